@@ -1,0 +1,24 @@
+using Bitbudget.Search.Quantization;
+
+namespace Bitbudget.Search.Planning;
+
+/// <summary>Everything a search needs besides the model and the calibration set.</summary>
+/// <param name="Budget">The error or size budget.</param>
+/// <param name="Bits">Candidate bit widths (2..8, 16 for FP16, 32 to keep FP32).</param>
+/// <param name="Pins">Layers forced to one bit width, by layer name.</param>
+/// <param name="Excluded">Layers kept in FP32 and left out of the search, by layer name.</param>
+/// <param name="QuantizeActivations">Per-tensor 8-bit activations on the inputs of quantized layers (opset 13 or later).</param>
+public sealed record SearchSettings(
+    Budget Budget,
+    IReadOnlyList<int> Bits,
+    SearchMethod Method = SearchMethod.Knapsack,
+    QuantizationScheme Scheme = QuantizationScheme.Symmetric,
+    Granularity Granularity = Granularity.PerChannel,
+    ClipMethod Clip = ClipMethod.MinMax,
+    bool QuantizeActivations = false,
+    IReadOnlyDictionary<string, int>? Pins = null,
+    IReadOnlyList<string>? Excluded = null)
+{
+    /// <summary>The candidate widths most teams start from (common practice).</summary>
+    public static IReadOnlyList<int> DefaultBits { get; } = [2, 3, 4, 5, 6, 8];
+}

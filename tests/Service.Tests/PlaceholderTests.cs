@@ -1,0 +1,1 @@
+namespace Bitbudget.Service.Tests; public class PlaceholderTests { [Fact] public void Runs() => Assert.True(true); }
