@@ -1,0 +1,12 @@
+namespace Bitbudget.Search.Evaluation;
+
+/// <summary>Knobs of a <see cref="TrialSession"/>.</summary>
+/// <param name="MaxBatch">Most samples per run when the model's batch dimension is dynamic.</param>
+/// <param name="SuffixRuns">Allow running only the part of the graph downstream of a perturbed layer.</param>
+/// <param name="MaxCachedActivationBytes">Memory the cached cut-set activations may take; beyond it suffix runs are off.</param>
+/// <param name="IntraOpThreads">ONNX Runtime intra-op threads; null lets ONNX Runtime choose.</param>
+public sealed record TrialSessionOptions(
+    int MaxBatch = 32,
+    bool SuffixRuns = true,
+    long MaxCachedActivationBytes = 512L << 20,
+    int? IntraOpThreads = null);

@@ -1,0 +1,92 @@
+namespace Bitbudget.Search.Manifest;
+
+/// <summary>
+/// The assignment manifest: what was searched, under which budget, what each layer got and why,
+/// and the totals predicted and measured. Serialised by <see cref="ManifestJson"/>; the schema is
+/// docs/manifest.schema.json. <see cref="FormatVersion"/> changes when a field changes meaning.
+/// </summary>
+public sealed record AssignmentManifest(
+    int FormatVersion,
+    DateTimeOffset CreatedAt,
+    ManifestModel Model,
+    ManifestDataset Dataset,
+    ManifestSettings Settings,
+    ManifestBudget Budget,
+    ManifestOutcome Outcome,
+    ManifestTotals? Totals,
+    ManifestMetrics Reference,
+    IReadOnlyList<ManifestLayer> Layers,
+    ManifestExport? Export,
+    int Trials)
+{
+    /// <summary>The version this code writes.</summary>
+    public const int CurrentFormatVersion = 1;
+}
+
+/// <summary>The model searched.</summary>
+public sealed record ManifestModel(string Name, string Sha256, long Opset, long Parameters, IReadOnlyList<string> Notes);
+
+/// <summary>The calibration set used.</summary>
+public sealed record ManifestDataset(int Samples, bool HasLabels);
+
+/// <summary>The search's settings.</summary>
+public sealed record ManifestSettings(
+    IReadOnlyList<int> Bits,
+    string Method,
+    string Scheme,
+    string Granularity,
+    string Clip,
+    bool Activations,
+    IReadOnlyDictionary<string, int> Pins,
+    IReadOnlyList<string> Excluded);
+
+/// <summary>The budget: an error bound on <see cref="Metric"/> (AtLeast or AtMost) or a size bound (Bytes or AverageBits).</summary>
+public sealed record ManifestBudget(string Kind, string Metric, double? AtLeast, double? AtMost, long? Bytes, double? AverageBits, string AdditiveModel);
+
+/// <summary>Whether the budget was met, and one sentence saying how.</summary>
+public sealed record ManifestOutcome(bool Feasible, string Message, int ValidationRounds);
+
+/// <summary>Totals of the chosen assignment.</summary>
+/// <param name="Predicted">The budget metric as the additive model predicts it.</param>
+/// <param name="Measured">Every metric, measured end to end.</param>
+public sealed record ManifestTotals(
+    long Bytes,
+    long Float32Bytes,
+    double AverageBits,
+    double Compression,
+    double Predicted,
+    ManifestMetrics Measured);
+
+/// <summary>Output metrics as stored in the manifest (SQNR in dB; infinity written as null).</summary>
+public sealed record ManifestMetrics(
+    double RelativeMse,
+    double? SqnrDb,
+    double Top1Agreement,
+    double KlDivergence,
+    double CosineSimilarity,
+    double? Accuracy);
+
+/// <summary>One layer: what it is, what it got, and how sensitive it was at each candidate.</summary>
+public sealed record ManifestLayer(
+    string Name,
+    string Op,
+    string Weight,
+    IReadOnlyList<long> Shape,
+    long Parameters,
+    int? Bits,
+    string Scheme,
+    string Granularity,
+    int Axis,
+    string Clip,
+    long Bytes,
+    bool Excluded,
+    bool Pinned,
+    IReadOnlyList<ManifestSensitivity> Sensitivity);
+
+/// <summary>A sensitivity trial: the layer alone at <see cref="Bits"/>.</summary>
+/// <param name="AdditiveError">What this choice adds to the additive error model.</param>
+public sealed record ManifestSensitivity(int Bits, long Bytes, double AdditiveError, ManifestMetrics Metrics);
+
+/// <summary>How the quantized model was written.</summary>
+/// <param name="Format">"qdq" (integer weights with DequantizeLinear) or "fake-quantized" (FP32 weights snapped to the grid).</param>
+public sealed record ManifestExport(string Format, long Opset, string? Note);

@@ -1,0 +1,134 @@
+using System.Diagnostics;
+using Bitbudget.Search.Evaluation;
+
+namespace Bitbudget.Search.Planning;
+
+/// <summary>
+/// Solves the knapsack (or runs greedy), measures the chosen assignment end to end, and when the
+/// measurement misses the budget tightens the additive budget and solves again. Additivity is only
+/// a model: layer errors interact, so the measurement, not the prediction, decides.
+/// </summary>
+internal sealed class AssignmentValidator(
+    TrialSession session,
+    PlanningProblem problem,
+    ITrialStore store,
+    IProgress<SearchProgress>? progress,
+    CancellationToken cancellationToken)
+{
+    private readonly List<AssignmentMeasurement> _rounds = [];
+
+    public SearchDecision MeetErrorBudget(ErrorBudget budget, SearchMethod method)
+    {
+        var metric = budget.Metric;
+        var reference = session.ReferenceMetrics;
+        progress?.Report(new SearchProgress(SearchStage.Validate, 0, SearchRunner.MaxValidationRounds + 1));
+
+        // The highest candidate everywhere is the best the search can do; if it misses, nothing will meet.
+        var highest = Measure(problem.Highest(), budget);
+        if (!highest.MeetsBudget)
+        {
+            var got = MetricValues.ValueOf(metric, highest.Measured, reference);
+            var top = problem.Settings.Bits.Max();
+            var message = $"Infeasible: {Describe(top)} everywhere gives {MetricValues.Format(metric, got)}; the budget asks for {(MetricValues.HigherIsBetter(metric) ? "at least" : "at most")} {MetricValues.Format(metric, budget.Limit)}. Add a higher candidate bit width, exclude the most sensitive layers, or relax the budget.";
+            return new SearchDecision(false, message, null, _rounds, highest.PredictedAdditive);
+        }
+
+        var limit = AdditiveError.LimitToAdditive(metric, budget.Limit);
+        var target = limit;
+        AssignmentMeasurement best = highest;
+        for (var round = 1; round <= SearchRunner.MaxValidationRounds; round++)
+        {
+            cancellationToken.ThrowIfCancellationRequested();
+            var selection = method == SearchMethod.Knapsack
+                ? KnapsackSolver.MinimumBytes(problem.Layers, target)
+                : GreedySolver.MinimumBytes(problem.Layers, target);
+            if (selection is null)
+            {
+                break;
+            }
+
+            var measured = Measure(selection, budget);
+            progress?.Report(new SearchProgress(SearchStage.Validate, round, SearchRunner.MaxValidationRounds + 1));
+            if (measured.MeetsBudget)
+            {
+                if (measured.Bytes < best.Bytes)
+                {
+                    best = measured;
+                }
+
+                break;
+            }
+
+            // Tighten in proportion to how far the measurement overshot the prediction, and at least by 10 %.
+            var measuredAdditive = AdditiveError.ToAdditive(metric, measured.Measured, reference);
+            var ratio = measuredAdditive > 0 ? measured.PredictedAdditive / measuredAdditive : 0.5;
+            target = Math.Min(target * 0.9, target * ratio);
+            if (target <= 0)
+            {
+                break;
+            }
+        }
+
+        var value = MetricValues.ValueOf(metric, best.Measured, reference);
+        var text = $"{FormatBytes(best.Bytes)} ({problem.Float32Bytes / (double)best.Bytes:0.00}x smaller than FP32) measured at {MetricValues.Format(metric, value)} against a budget of {MetricValues.Format(metric, budget.Limit)}.";
+        return new SearchDecision(true, text, best, _rounds, best.PredictedAdditive);
+    }
+
+    public SearchDecision MeetSizeBudget(SizeBudget budget, SearchMethod method)
+    {
+        var maxBytes = budget.Bytes ?? (long)Math.Floor(budget.AverageBits!.Value * problem.TotalParameters / 8.0);
+        var available = maxBytes - problem.ExcludedBytes;
+        var selection = available <= 0
+            ? null
+            : method == SearchMethod.Knapsack
+                ? KnapsackSolver.MinimumError(problem.Layers, available)
+                : GreedySolver.MinimumError(problem.Layers, available);
+        if (selection is null || problem.TotalBytes(selection) > maxBytes)
+        {
+            var smallest = problem.ExcludedBytes + problem.Layers.Sum(l => l.Choices.Min(c => c.Bytes));
+            var message = $"Infeasible: the smallest assignment the candidates allow is {FormatBytes(smallest)}; the budget allows {FormatBytes(maxBytes)}. Add a lower candidate bit width or raise the size budget.";
+            return new SearchDecision(false, message, null, _rounds, 0);
+        }
+
+        progress?.Report(new SearchProgress(SearchStage.Validate, 0, 1));
+        var measured = Measure(selection, budget);
+        progress?.Report(new SearchProgress(SearchStage.Validate, 1, 1));
+        var value = MetricValues.ValueOf(budget.Metric, measured.Measured, session.ReferenceMetrics);
+        var text = $"{FormatBytes(measured.Bytes)} (budget {FormatBytes(maxBytes)}) measured at {MetricValues.Format(budget.Metric, value)}.";
+        return new SearchDecision(true, text, measured, _rounds, measured.PredictedAdditive);
+    }
+
+    private AssignmentMeasurement Measure(Selection selection, Budget budget)
+    {
+        var assignment = problem.AssignmentOf(selection);
+        var hash = TrialKeys.AssignmentHash(assignment);
+        var key = TrialKeys.Validation(hash);
+        if (!store.LoadAll().TryGetValue(key, out var record))
+        {
+            var clock = Stopwatch.StartNew();
+            var metrics = session.MeasureAssignment(assignment);
+            record = new TrialRecord(key, "validation", null, null, hash, metrics, clock.Elapsed.TotalMilliseconds);
+            store.Save(record);
+        }
+
+        var meets = budget is ErrorBudget error
+            && AdditiveError.Meets(error.Metric, error.Limit, record.Metrics, session.ReferenceMetrics);
+        var measurement = new AssignmentMeasurement(assignment, hash, problem.TotalBytes(selection), selection.Error, record.Metrics, meets);
+        _rounds.Add(measurement);
+        return measurement;
+    }
+
+    private static string Describe(int bits) => bits switch
+    {
+        32 => "FP32",
+        16 => "FP16",
+        _ => $"{bits} bits",
+    };
+
+    internal static string FormatBytes(long bytes) => bytes switch
+    {
+        >= 1 << 20 => $"{bytes / 1048576.0:0.00} MiB",
+        >= 1 << 10 => $"{bytes / 1024.0:0.0} KiB",
+        _ => $"{bytes} bytes",
+    };
+}

@@ -1,0 +1,60 @@
+using System.Globalization;
+using Bitbudget.Search.Evaluation;
+
+namespace Bitbudget.Search.Planning;
+
+/// <summary>Reads a budget metric out of measured metrics and writes it for people.</summary>
+public static class MetricValues
+{
+    /// <summary>The value of <paramref name="metric"/> in <paramref name="measured"/>; accuracy drop is in points against <paramref name="reference"/>.</summary>
+    public static double ValueOf(BudgetMetric metric, MetricSet measured, MetricSet reference) => metric switch
+    {
+        BudgetMetric.Sqnr => measured.SqnrDb,
+        BudgetMetric.RelativeMse => measured.RelativeMse,
+        BudgetMetric.Top1Agreement => measured.Top1Agreement,
+        BudgetMetric.KlDivergence => measured.KlDivergence,
+        BudgetMetric.CosineSimilarity => measured.CosineSimilarity,
+        BudgetMetric.AccuracyDrop => ((reference.Accuracy ?? 0) - (measured.Accuracy ?? 0)) * 100,
+        _ => throw new ArgumentOutOfRangeException(nameof(metric)),
+    };
+
+    /// <summary>True when larger values are better (the budget is a lower bound).</summary>
+    public static bool HigherIsBetter(BudgetMetric metric) =>
+        metric is BudgetMetric.Sqnr or BudgetMetric.Top1Agreement or BudgetMetric.CosineSimilarity;
+
+    /// <summary>A value with its unit, e.g. "27.4 dB", "98.44%", "0.8 points".</summary>
+    public static string Format(BudgetMetric metric, double value) => metric switch
+    {
+        BudgetMetric.Sqnr => double.IsPositiveInfinity(value) ? "lossless (infinite SQNR)" : value.ToString("0.0", CultureInfo.InvariantCulture) + " dB SQNR",
+        BudgetMetric.RelativeMse => "relative MSE " + value.ToString("0.###e0", CultureInfo.InvariantCulture),
+        BudgetMetric.Top1Agreement => (value * 100).ToString("0.00", CultureInfo.InvariantCulture) + "% top-1 agreement",
+        BudgetMetric.KlDivergence => "KL " + value.ToString("0.###e0", CultureInfo.InvariantCulture) + " nats",
+        BudgetMetric.CosineSimilarity => "cosine " + value.ToString("0.000000", CultureInfo.InvariantCulture),
+        BudgetMetric.AccuracyDrop => value.ToString("0.00", CultureInfo.InvariantCulture) + " points accuracy drop",
+        _ => value.ToString(CultureInfo.InvariantCulture),
+    };
+
+    /// <summary>The wire name of a metric ("sqnr", "relative-mse", "top1", "kl", "cosine", "accuracy-drop").</summary>
+    public static string Name(BudgetMetric metric) => metric switch
+    {
+        BudgetMetric.Sqnr => "sqnr",
+        BudgetMetric.RelativeMse => "relative-mse",
+        BudgetMetric.Top1Agreement => "top1",
+        BudgetMetric.KlDivergence => "kl",
+        BudgetMetric.CosineSimilarity => "cosine",
+        BudgetMetric.AccuracyDrop => "accuracy-drop",
+        _ => throw new ArgumentOutOfRangeException(nameof(metric)),
+    };
+
+    /// <summary>Parses a wire name; null when unknown.</summary>
+    public static BudgetMetric? Parse(string name) => name.Trim().ToLowerInvariant() switch
+    {
+        "sqnr" => BudgetMetric.Sqnr,
+        "relative-mse" or "relmse" or "mse" => BudgetMetric.RelativeMse,
+        "top1" or "top-1" => BudgetMetric.Top1Agreement,
+        "kl" => BudgetMetric.KlDivergence,
+        "cosine" => BudgetMetric.CosineSimilarity,
+        "accuracy-drop" => BudgetMetric.AccuracyDrop,
+        _ => null,
+    };
+}

@@ -1,0 +1,124 @@
+using Bitbudget.Search.Evaluation;
+using Bitbudget.Search.Onnx;
+using Bitbudget.Search.Quantization;
+
+namespace Bitbudget.Search.Planning;
+
+/// <summary>
+/// The search as a multiple-choice knapsack: for each searched layer, its candidate settings with
+/// their bytes (cost model) and additive error (from its sensitivity trial). Excluded layers stay
+/// FP32 and only add bytes.
+/// </summary>
+internal sealed class PlanningProblem
+{
+    private PlanningProblem(
+        SearchSettings settings,
+        BudgetMetric metric,
+        IReadOnlyList<WeightLayer> searched,
+        IReadOnlyList<PlanningLayer> layers,
+        IReadOnlyList<WeightLayer> excluded,
+        IReadOnlyDictionary<string, MetricSet> sensitivity)
+    {
+        Settings = settings;
+        Metric = metric;
+        Searched = searched;
+        Layers = layers;
+        Excluded = excluded;
+        Sensitivity = sensitivity;
+        ExcludedBytes = excluded.Sum(l => CostModel.LayerBytes(l.ParameterCount, l.Channels, BitWidths.Float32, settings.Scheme, settings.Granularity));
+        TotalParameters = searched.Sum(l => l.ParameterCount) + excluded.Sum(l => l.ParameterCount);
+    }
+
+    public SearchSettings Settings { get; }
+
+    /// <summary>The metric the additive error model sums (see <see cref="AdditiveError"/>).</summary>
+    public BudgetMetric Metric { get; }
+
+    /// <summary>Searched layers, in the same order as <see cref="Layers"/>.</summary>
+    public IReadOnlyList<WeightLayer> Searched { get; }
+
+    public IReadOnlyList<PlanningLayer> Layers { get; }
+
+    public IReadOnlyList<WeightLayer> Excluded { get; }
+
+    /// <summary>Sensitivity trial metrics by trial key.</summary>
+    public IReadOnlyDictionary<string, MetricSet> Sensitivity { get; }
+
+    public long ExcludedBytes { get; }
+
+    public long TotalParameters { get; }
+
+    public long Float32Bytes => TotalParameters * 4;
+
+    public static PlanningProblem Build(
+        OnnxModel model,
+        SearchSettings settings,
+        MetricSet reference,
+        IReadOnlyDictionary<string, TrialRecord> sweep)
+    {
+        var metric = settings.Budget switch
+        {
+            ErrorBudget e => e.Metric,
+            SizeBudget s => s.Metric,
+            _ => BudgetMetric.Sqnr,
+        };
+        var excludedNames = (settings.Excluded ?? []).ToHashSet(StringComparer.Ordinal);
+        var searched = model.Layers.Where(l => !excludedNames.Contains(l.Name)).ToList();
+        var excluded = model.Layers.Where(l => excludedNames.Contains(l.Name)).ToList();
+        var sensitivity = sweep.ToDictionary(p => p.Key, p => p.Value.Metrics, StringComparer.Ordinal);
+        var layers = searched.Select(layer => new PlanningLayer(
+            layer.Name,
+            SensitivitySweep.CandidateBits(layer, settings).Select(bits =>
+            {
+                var setting = SensitivitySweep.SettingFor(bits, settings);
+                var bytes = CostModel.LayerBytes(layer.ParameterCount, layer.Channels, bits, settings.Scheme, settings.Granularity);
+                var error = bits == BitWidths.Float32
+                    ? 0
+                    : AdditiveError.ToAdditive(metric, sensitivity[TrialKeys.Sensitivity(layer.Name, setting)], reference);
+                return new PlanningChoice(bits, bytes, error);
+            }).ToList())).ToList();
+        return new PlanningProblem(settings, metric, searched, layers, excluded, sensitivity);
+    }
+
+    /// <summary>The assignment a selection stands for, by layer name.</summary>
+    public IReadOnlyDictionary<string, LayerSetting> AssignmentOf(Selection selection)
+    {
+        var assignment = new SortedDictionary<string, LayerSetting>(StringComparer.Ordinal);
+        for (var i = 0; i < Layers.Count; i++)
+        {
+            var bits = Layers[i].Choices[selection.ChoiceIndex[i]].Bits;
+            assignment[Layers[i].Name] = SensitivitySweep.SettingFor(bits, Settings);
+        }
+
+        return assignment;
+    }
+
+    /// <summary>Every layer at its least-error (highest) candidate.</summary>
+    public Selection Highest()
+    {
+        var index = new int[Layers.Count];
+        long bytes = 0;
+        double error = 0;
+        for (var i = 0; i < Layers.Count; i++)
+        {
+            var choices = Layers[i].Choices;
+            var best = 0;
+            for (var c = 1; c < choices.Count; c++)
+            {
+                if (choices[c].Bits > choices[best].Bits)
+                {
+                    best = c;
+                }
+            }
+
+            index[i] = best;
+            bytes += choices[best].Bytes;
+            error += choices[best].Error;
+        }
+
+        return new Selection(index, bytes, error);
+    }
+
+    /// <summary>Total weight bytes of a selection, excluded layers included.</summary>
+    public long TotalBytes(Selection selection) => selection.Bytes + ExcludedBytes;
+}

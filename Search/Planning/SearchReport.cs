@@ -1,0 +1,218 @@
+using System.Globalization;
+using System.Text;
+using Bitbudget.Search.Evaluation;
+using Bitbudget.Search.Manifest;
+using Bitbudget.Search.Onnx;
+using Bitbudget.Search.Quantization;
+
+namespace Bitbudget.Search.Planning;
+
+/// <summary>Turns a finished search into its artifacts: manifest, sensitivity CSV, frontier JSON.</summary>
+internal sealed class SearchReport(
+    OnnxModel model,
+    CalibrationSet data,
+    SearchSettings settings,
+    MetricSet reference,
+    PlanningProblem problem,
+    IReadOnlyList<Selection> frontier,
+    SearchDecision decision,
+    ExportedModel? exported,
+    int trialCount)
+{
+    /// <summary>Most frontier points written; a longer frontier is thinned evenly (its ends kept).</summary>
+    public const int MaxFrontierPoints = 400;
+
+    public SearchResult ToResult()
+    {
+        var manifest = BuildManifest(DateTimeOffset.UtcNow);
+        var chosen = decision.Chosen;
+        var metric = problem.Metric;
+        return new SearchResult(
+            decision.Feasible,
+            decision.Message,
+            ManifestJson.Serialize(manifest),
+            exported?.Bytes,
+            SensitivityCsv(),
+            Encoding.UTF8.GetString(ManifestJson.Serialize(Frontier())),
+            chosen?.Bytes ?? 0,
+            manifest.Totals?.AverageBits ?? 0,
+            manifest.Totals?.Compression ?? 0,
+            chosen is null ? double.NaN : AdditiveError.FromAdditive(metric, chosen.PredictedAdditive, reference),
+            chosen is null ? double.NaN : MetricValues.ValueOf(metric, chosen.Measured, reference),
+            trialCount);
+    }
+
+    public AssignmentManifest BuildManifest(DateTimeOffset createdAt)
+    {
+        var chosen = decision.Chosen;
+        var metric = problem.Metric;
+        var layers = model.Layers.Select(layer => Layer(layer, chosen)).ToList();
+        ManifestTotals? totals = chosen is null ? null : new ManifestTotals(
+            chosen.Bytes,
+            problem.Float32Bytes,
+            chosen.Bytes * 8.0 / problem.TotalParameters,
+            problem.Float32Bytes / (double)chosen.Bytes,
+            AdditiveError.FromAdditive(metric, chosen.PredictedAdditive, reference),
+            Metrics(chosen.Measured));
+        var export = exported is null ? null : new ManifestExport(exported.Format, exported.Opset, exported.Note);
+        return new AssignmentManifest(
+            AssignmentManifest.CurrentFormatVersion,
+            createdAt,
+            new ManifestModel(model.Name, model.Sha256, model.Opset, problem.TotalParameters, model.Notes),
+            new ManifestDataset(data.SampleCount, data.Labels is not null),
+            new ManifestSettings(
+                settings.Bits.Distinct().OrderDescending().ToList(),
+                Wire(settings.Method),
+                Wire(settings.Scheme),
+                Wire(settings.Granularity),
+                Wire(settings.Clip),
+                settings.QuantizeActivations,
+                new SortedDictionary<string, int>((settings.Pins ?? new Dictionary<string, int>()).ToDictionary(), StringComparer.Ordinal),
+                (settings.Excluded ?? []).Order(StringComparer.Ordinal).ToList()),
+            Budget(),
+            new ManifestOutcome(decision.Feasible, decision.Message, decision.Rounds.Count),
+            totals,
+            Metrics(reference),
+            layers,
+            export,
+            trialCount);
+    }
+
+    /// <summary>One row per (layer, candidate width): its bytes, additive error and measured metrics.</summary>
+    public string SensitivityCsv()
+    {
+        var csv = new StringBuilder("layer,op,parameters,bits,bytes,additive_error,sqnr_db,relative_mse,top1_agreement,kl_divergence,cosine_similarity,accuracy\n");
+        for (var i = 0; i < problem.Layers.Count; i++)
+        {
+            var layer = problem.Searched[i];
+            foreach (var choice in problem.Layers[i].Choices)
+            {
+                var m = SensitivityOf(layer, choice.Bits);
+                csv.Append(Csv(layer.Name)).Append(',').Append(layer.Op).Append(',')
+                    .Append(layer.ParameterCount.ToString(CultureInfo.InvariantCulture)).Append(',')
+                    .Append(choice.Bits.ToString(CultureInfo.InvariantCulture)).Append(',')
+                    .Append(choice.Bytes.ToString(CultureInfo.InvariantCulture)).Append(',')
+                    .Append(Number(choice.Error)).Append(',')
+                    .Append(Number(m?.SqnrDb)).Append(',').Append(Number(m?.RelativeMse)).Append(',')
+                    .Append(Number(m?.Top1Agreement)).Append(',').Append(Number(m?.KlDivergence)).Append(',')
+                    .Append(Number(m?.CosineSimilarity)).Append(',').Append(Number(m?.Accuracy)).Append('\n');
+            }
+        }
+
+        return csv.ToString();
+    }
+
+    public FrontierDocument Frontier()
+    {
+        var points = frontier;
+        if (points.Count > MaxFrontierPoints)
+        {
+            points = Enumerable.Range(0, MaxFrontierPoints)
+                .Select(i => frontier[(int)Math.Round(i * (frontier.Count - 1) / (double)(MaxFrontierPoints - 1))])
+                .Distinct()
+                .ToList();
+        }
+
+        var metric = problem.Metric;
+        return new FrontierDocument(
+            MetricValues.Name(metric),
+            AdditiveError.Describe(metric),
+            problem.Layers.Select(l => l.Name).ToList(),
+            frontier.Count,
+            points.Select(p =>
+            {
+                var bytes = problem.TotalBytes(p);
+                return new FrontierPoint(
+                    bytes,
+                    bytes * 8.0 / problem.TotalParameters,
+                    p.Error,
+                    AdditiveError.FromAdditive(metric, p.Error, reference),
+                    p.ChoiceIndex.Select((c, i) => problem.Layers[i].Choices[c].Bits).ToList());
+            }).ToList());
+    }
+
+    private ManifestLayer Layer(WeightLayer layer, AssignmentMeasurement? chosen)
+    {
+        var index = problem.Searched.ToList().FindIndex(l => l.Name == layer.Name);
+        var excluded = index < 0;
+        var setting = excluded
+            ? LayerSetting.KeepFloat32
+            : chosen?.Assignment[layer.Name];
+        var bits = setting?.Bits;
+        var sensitivity = excluded
+            ? []
+            : problem.Layers[index].Choices.Select(c => new ManifestSensitivity(
+                c.Bits,
+                c.Bytes,
+                c.Error,
+                SensitivityOf(layer, c.Bits) is { } m ? Metrics(m) : Metrics(reference) with { SqnrDb = null, RelativeMse = 0 })).ToList();
+        var granularity = setting is { Granularity: var g } ? g : settings.Granularity;
+        return new ManifestLayer(
+            layer.Name,
+            layer.Op,
+            layer.WeightName,
+            layer.Shape,
+            layer.ParameterCount,
+            bits,
+            Wire(settings.Scheme),
+            Wire(granularity),
+            granularity == Granularity.PerChannel ? layer.ChannelAxis : -1,
+            Wire(settings.Clip),
+            bits is { } b ? CostModel.LayerBytes(layer.ParameterCount, layer.Channels, b, settings.Scheme, settings.Granularity) : 0,
+            excluded,
+            settings.Pins?.ContainsKey(layer.Name) ?? false,
+            sensitivity);
+    }
+
+    private MetricSet? SensitivityOf(WeightLayer layer, int bits) =>
+        bits == BitWidths.Float32
+            ? null
+            : problem.Sensitivity.GetValueOrDefault(TrialKeys.Sensitivity(layer.Name, SensitivitySweep.SettingFor(bits, settings)));
+
+    private ManifestBudget Budget() => settings.Budget switch
+    {
+        ErrorBudget e => new ManifestBudget(
+            "error",
+            MetricValues.Name(e.Metric),
+            MetricValues.HigherIsBetter(e.Metric) ? e.Limit : null,
+            MetricValues.HigherIsBetter(e.Metric) ? null : e.Limit,
+            null,
+            null,
+            AdditiveError.Describe(e.Metric)),
+        SizeBudget s => new ManifestBudget("size", MetricValues.Name(s.Metric), null, null, s.Bytes, s.AverageBits, AdditiveError.Describe(s.Metric)),
+        _ => throw new InvalidOperationException("Unknown budget."),
+    };
+
+    internal static ManifestMetrics Metrics(MetricSet m) => new(
+        m.RelativeMse,
+        double.IsFinite(m.SqnrDb) ? m.SqnrDb : null,
+        m.Top1Agreement,
+        m.KlDivergence,
+        m.CosineSimilarity,
+        m.Accuracy);
+
+    private static string Wire<T>(T value)
+        where T : struct, Enum
+    {
+        // PerChannel -> per-channel, MseOptimal -> mse-optimal: the manifest's own spelling.
+        var name = value.ToString();
+        var text = new StringBuilder();
+        for (var i = 0; i < name.Length; i++)
+        {
+            if (i > 0 && char.IsUpper(name[i]))
+            {
+                text.Append('-');
+            }
+
+            text.Append(char.ToLowerInvariant(name[i]));
+        }
+
+        return text.ToString();
+    }
+
+    private static string Number(double? value) =>
+        value is { } v ? v.ToString("R", CultureInfo.InvariantCulture) : string.Empty;
+
+    private static string Csv(string text) =>
+        text.Contains(',') || text.Contains('"') ? "\"" + text.Replace("\"", "\"\"") + "\"" : text;
+}

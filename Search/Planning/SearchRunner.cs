@@ -1,0 +1,60 @@
+using Bitbudget.Search.Evaluation;
+using Bitbudget.Search.Manifest;
+using Bitbudget.Search.Onnx;
+using Bitbudget.Search.Quantization;
+
+namespace Bitbudget.Search.Planning;
+
+/// <summary>
+/// The whole job: FP32 reference, sensitivity sweep, search over the additive error model,
+/// end-to-end validation (tightening the additive budget when a choice misses when measured), and
+/// the artifacts. Every measurement goes through the <see cref="ITrialStore"/>, so a search that runs
+/// again measures nothing twice.
+/// </summary>
+public static class SearchRunner
+{
+    /// <summary>Most solve-and-measure rounds before falling back to the highest candidate everywhere.</summary>
+    public const int MaxValidationRounds = 6;
+
+    /// <summary>Runs a search; throws <see cref="EngineException"/> for settings that cannot work and <see cref="OperationCanceledException"/> when cancelled.</summary>
+    public static SearchResult Run(
+        OnnxModel model,
+        CalibrationSet data,
+        SearchSettings settings,
+        ITrialStore store,
+        IProgress<SearchProgress>? progress,
+        CancellationToken cancellationToken,
+        TrialSessionOptions? sessionOptions = null)
+    {
+        SearchSettingsValidator.Validate(model, data, settings);
+        progress?.Report(new SearchProgress(SearchStage.Reference, 0, 1));
+        using var session = TrialSession.Open(model, data, sessionOptions);
+        store.Save(new TrialRecord(TrialKeys.Reference, "reference", null, null, null, session.ReferenceMetrics, session.ForwardPassMilliseconds));
+        progress?.Report(new SearchProgress(SearchStage.Reference, 1, 1));
+
+        var trials = SensitivitySweep.Plan(model.Layers, settings);
+        var sweep = SensitivitySweep.Run(session, trials, store, progress, cancellationToken);
+
+        cancellationToken.ThrowIfCancellationRequested();
+        progress?.Report(new SearchProgress(SearchStage.Search, 0, 1));
+        var problem = PlanningProblem.Build(model, settings, session.ReferenceMetrics, sweep);
+        var frontier = KnapsackSolver.Frontier(problem.Layers);
+        progress?.Report(new SearchProgress(SearchStage.Search, 1, 1));
+
+        var validator = new AssignmentValidator(session, problem, store, progress, cancellationToken);
+        var decision = settings.Budget switch
+        {
+            ErrorBudget error => validator.MeetErrorBudget(error, settings.Method),
+            SizeBudget size => validator.MeetSizeBudget(size, settings.Method),
+            _ => throw new EngineException("budget-invalid", "The budget must bound an error metric or the size."),
+        };
+
+        cancellationToken.ThrowIfCancellationRequested();
+        progress?.Report(new SearchProgress(SearchStage.Export, 0, 1));
+        var exported = decision.Chosen is { } chosen ? QdqExporter.Export(model, chosen.Assignment) : null;
+        var report = new SearchReport(model, data, settings, session.ReferenceMetrics, problem, frontier, decision, exported, store.LoadAll().Count);
+        var result = report.ToResult();
+        progress?.Report(new SearchProgress(SearchStage.Export, 1, 1));
+        return result;
+    }
+}

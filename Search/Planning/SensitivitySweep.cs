@@ -1,0 +1,81 @@
+using System.Diagnostics;
+using Bitbudget.Search.Evaluation;
+using Bitbudget.Search.Onnx;
+using Bitbudget.Search.Quantization;
+
+namespace Bitbudget.Search.Planning;
+
+/// <summary>
+/// The sensitivity sweep: every searched layer at every candidate bit width, one trial each, in a
+/// fixed order (model order, then widths from high to low). Trials already in the store are skipped,
+/// so a restarted search resumes where it stopped; each new trial is saved as soon as it finishes.
+/// </summary>
+public static class SensitivitySweep
+{
+    /// <summary>The trials of a sweep, in the order they run.</summary>
+    public static IReadOnlyList<SweepTrial> Plan(IReadOnlyList<WeightLayer> layers, SearchSettings settings)
+    {
+        var trials = new List<SweepTrial>();
+        var excluded = (settings.Excluded ?? []).ToHashSet(StringComparer.Ordinal);
+        foreach (var layer in layers.Where(l => !excluded.Contains(l.Name)))
+        {
+            foreach (var bits in CandidateBits(layer, settings))
+            {
+                // Keeping FP32 changes nothing; it needs no trial.
+                if (bits == BitWidths.Float32)
+                {
+                    continue;
+                }
+
+                var setting = SettingFor(bits, settings);
+                trials.Add(new SweepTrial(TrialKeys.Sensitivity(layer.Name, setting), layer, setting));
+            }
+        }
+
+        return trials;
+    }
+
+    /// <summary>The widths a layer may take: its pin, or every candidate (high to low).</summary>
+    public static IReadOnlyList<int> CandidateBits(WeightLayer layer, SearchSettings settings) =>
+        settings.Pins is not null && settings.Pins.TryGetValue(layer.Name, out var pinned)
+            ? [pinned]
+            : settings.Bits.Distinct().OrderDescending().ToList();
+
+    /// <summary>The full setting a width gets under the search's scheme, granularity and clipping.</summary>
+    public static LayerSetting SettingFor(int bits, SearchSettings settings) =>
+        new(bits, settings.Scheme, settings.Granularity, settings.Clip);
+
+    /// <summary>
+    /// Runs the trials not yet in <paramref name="store"/> and returns every trial's record by key.
+    /// Cancellation is honoured between trials.
+    /// </summary>
+    public static IReadOnlyDictionary<string, TrialRecord> Run(
+        TrialSession session,
+        IReadOnlyList<SweepTrial> trials,
+        ITrialStore store,
+        IProgress<SearchProgress>? progress,
+        CancellationToken cancellationToken)
+    {
+        var stored = store.LoadAll();
+        var results = new Dictionary<string, TrialRecord>(StringComparer.Ordinal);
+        var perLayer = trials.GroupBy(t => t.Layer.Name).ToDictionary(g => g.Key, g => g.Count(), StringComparer.Ordinal);
+        var done = 0;
+        progress?.Report(new SearchProgress(SearchStage.Sweep, 0, trials.Count));
+        foreach (var trial in trials)
+        {
+            if (!stored.TryGetValue(trial.Key, out var record))
+            {
+                cancellationToken.ThrowIfCancellationRequested();
+                var clock = Stopwatch.StartNew();
+                var metrics = session.MeasureLayer(trial.Layer, trial.Setting, perLayer[trial.Layer.Name]);
+                record = new TrialRecord(trial.Key, "sensitivity", trial.Layer.Name, trial.Setting.Bits, null, metrics, clock.Elapsed.TotalMilliseconds);
+                store.Save(record);
+            }
+
+            results[trial.Key] = record;
+            progress?.Report(new SearchProgress(SearchStage.Sweep, ++done, trials.Count));
+        }
+
+        return results;
+    }
+}

@@ -1,0 +1,43 @@
+using System.Security.Cryptography;
+using System.Text;
+using Bitbudget.Search.Quantization;
+
+namespace Bitbudget.Search.Planning;
+
+/// <summary>
+/// The stable keys trials are stored under. A key names what was measured, not when, so a search
+/// that runs again (a retried or resumed job) finds its earlier trials and measures nothing twice.
+/// </summary>
+public static class TrialKeys
+{
+    /// <summary>Key of the FP32 reference run.</summary>
+    public const string Reference = "reference";
+
+    /// <summary>Key of a sensitivity trial.</summary>
+    public static string Sensitivity(string layer, LayerSetting setting) =>
+        $"sensitivity/{layer}/{Describe(setting)}";
+
+    /// <summary>Key of the end-to-end measurement of a whole assignment.</summary>
+    public static string Validation(string assignmentHash) => $"validation/{assignmentHash}";
+
+    /// <summary>SHA-256 (hex) of an assignment, independent of dictionary order.</summary>
+    public static string AssignmentHash(IReadOnlyDictionary<string, LayerSetting> assignment)
+    {
+        var text = new StringBuilder();
+        foreach (var (layer, setting) in assignment.OrderBy(p => p.Key, StringComparer.Ordinal))
+        {
+            text.Append(layer).Append('=').Append(Describe(setting)).Append('\n');
+        }
+
+        return Convert.ToHexStringLower(SHA256.HashData(Encoding.UTF8.GetBytes(text.ToString())));
+    }
+
+    /// <summary>A setting as a short stable string, e.g. "4b-symmetric-perchannel-minmax".</summary>
+    public static string Describe(LayerSetting setting)
+    {
+        var text = $"{setting.Bits}b-{setting.Scheme}-{setting.Granularity}-{setting.Clip}".ToLowerInvariant();
+        return setting.Clip == ClipMethod.Percentile
+            ? text + "-" + setting.Percentile.ToString("R", System.Globalization.CultureInfo.InvariantCulture)
+            : text;
+    }
+}
