@@ -192,23 +192,7 @@ internal sealed class SearchReport(
         m.Accuracy);
 
     private static string Wire<T>(T value)
-        where T : struct, Enum
-    {
-        // PerChannel -> per-channel, MseOptimal -> mse-optimal: the manifest's own spelling.
-        var name = value.ToString();
-        var text = new StringBuilder();
-        for (var i = 0; i < name.Length; i++)
-        {
-            if (i > 0 && char.IsUpper(name[i]))
-            {
-                text.Append('-');
-            }
-
-            text.Append(char.ToLowerInvariant(name[i]));
-        }
-
-        return text.ToString();
-    }
+        where T : struct, Enum => WireNames.Format(value);
 
     private static string Number(double? value) =>
         value is { } v ? v.ToString("R", CultureInfo.InvariantCulture) : string.Empty;

@@ -1,0 +1,68 @@
+using System.Globalization;
+using Bitbudget.Search.Planning;
+using Bitbudget.Search.Quantization;
+
+namespace Bitbudget.Service.Commands;
+
+/// <summary>The parsed arguments of <see cref="PlanCommand"/>; malformed ones throw <see cref="ArgumentException"/> with what to write instead.</summary>
+internal sealed record PlanArguments(string Model, string Data, SearchSettings Settings, string Out)
+{
+    public static PlanArguments Parse(string[] args)
+    {
+        string? model = null, data = null, budget = null, bits = null, outDir = null;
+        var method = SearchMethod.Knapsack;
+        var scheme = QuantizationScheme.Symmetric;
+        var granularity = Granularity.PerChannel;
+        var clip = ClipMethod.MinMax;
+        var pins = new Dictionary<string, int>(StringComparer.Ordinal);
+        var excluded = new List<string>();
+        for (var i = 0; i < args.Length; i++)
+        {
+            var name = args[i];
+            string Value() => i + 1 < args.Length ? args[++i] : throw new ArgumentException($"{name} needs a value.");
+            switch (name)
+            {
+                case "--model": model = Value(); break;
+                case "--data": data = Value(); break;
+                case "--budget": budget = Value(); break;
+                case "--bits": bits = Value(); break;
+                case "--out": outDir = Value(); break;
+                case "--method": method = Enum<SearchMethod>(name, Value()); break;
+                case "--scheme": scheme = Enum<QuantizationScheme>(name, Value()); break;
+                case "--granularity": granularity = Enum<Granularity>(name, Value()); break;
+                case "--clip": clip = Enum<ClipMethod>(name, Value()); break;
+                case "--exclude": excluded.Add(Value()); break;
+                case "--pin":
+                    var pin = Value().Split('=', 2);
+                    if (pin.Length != 2 || !int.TryParse(pin[1], CultureInfo.InvariantCulture, out var pinned))
+                    {
+                        throw new ArgumentException("--pin takes LAYER=BITS, e.g. --pin conv1=8.");
+                    }
+
+                    pins[pin[0]] = pinned;
+                    break;
+                default:
+                    throw new ArgumentException($"Unknown option '{name}'.");
+            }
+        }
+
+        if (model is null || data is null || budget is null)
+        {
+            throw new ArgumentException("--model, --data and --budget are required.");
+        }
+
+        var candidates = bits is null
+            ? SearchSettings.DefaultBits
+            : bits.Split(',', StringSplitOptions.RemoveEmptyEntries | StringSplitOptions.TrimEntries)
+                .Select(b => int.TryParse(b, CultureInfo.InvariantCulture, out var v) ? v : throw new ArgumentException($"--bits takes a comma-separated list of widths, e.g. 2,3,4,6,8; '{b}' is not a number."))
+                .ToList();
+        var settings = new SearchSettings(BudgetText.Parse(budget), candidates, method, scheme, granularity, clip, false, pins, excluded);
+        return new PlanArguments(model, data, settings, outDir ?? "plan");
+    }
+
+    private static T Enum<T>(string option, string text)
+        where T : struct, System.Enum =>
+        WireNames.TryParse<T>(text, out var value)
+            ? value
+            : throw new ArgumentException($"{option} takes one of: {WireNames.Choices<T>()}; got '{text}'.");
+}

@@ -1,0 +1,112 @@
+using System.Globalization;
+using System.Text;
+using Bitbudget.Search;
+using Bitbudget.Search.Evaluation;
+using Bitbudget.Search.Manifest;
+using Bitbudget.Search.Onnx;
+using Bitbudget.Search.Planning;
+using Bitbudget.Search.Quantization;
+
+namespace Bitbudget.Service.Commands;
+
+/// <summary>
+/// <c>plan --model M.onnx --data D.npz --budget "sqnr&gt;=30" [--bits 2,3,4,6,8] [--method knapsack|greedy]
+/// [--scheme symmetric|asymmetric] [--granularity per-channel|per-tensor] [--clip min-max|percentile|mse-optimal|analytic-laplace|analytic-gaussian]
+/// [--pin LAYER=BITS]... [--exclude LAYER]... [--out DIR]</c>: the whole search locally, writing the
+/// manifest, the quantized model, the sensitivity CSV and the frontier into DIR.
+/// </summary>
+internal static class PlanCommand
+{
+    private const string Usage =
+        "usage: plan --model M.onnx --data D.npz --budget \"sqnr>=30\" [--bits 2,3,4,6,8] [--method knapsack|greedy] " +
+        "[--scheme symmetric|asymmetric] [--granularity per-channel|per-tensor] [--clip min-max|percentile|mse-optimal|analytic-laplace|analytic-gaussian] " +
+        "[--pin LAYER=BITS]... [--exclude LAYER]... [--out DIR]";
+
+    public static Task<int> RunAsync(string[] args)
+    {
+        PlanArguments parsed;
+        try
+        {
+            parsed = PlanArguments.Parse(args);
+        }
+        catch (ArgumentException e)
+        {
+            Console.Error.WriteLine($"error: {e.Message}");
+            Console.Error.WriteLine(Usage);
+            return Task.FromResult(2);
+        }
+
+        try
+        {
+            return Task.FromResult(Run(parsed));
+        }
+        catch (EngineException e)
+        {
+            Console.Error.WriteLine($"error: {e.Message}");
+            return Task.FromResult(1);
+        }
+        catch (IOException e)
+        {
+            Console.Error.WriteLine($"error: {e.Message}");
+            return Task.FromResult(1);
+        }
+    }
+
+    private static int Run(PlanArguments args)
+    {
+        var model = OnnxModel.LoadFile(args.Model);
+        var data = CalibrationSet.Create(DatasetReader.Read(File.ReadAllBytes(args.Data)), model.Inputs);
+        var store = new InMemoryTrialStore();
+        var clock = System.Diagnostics.Stopwatch.StartNew();
+        var result = SearchRunner.Run(model, data, args.Settings, store, new TerminalProgress(), CancellationToken.None);
+        Console.Error.WriteLine();
+
+        Directory.CreateDirectory(args.Out);
+        File.WriteAllBytes(Path.Combine(args.Out, "manifest.json"), result.ManifestJson);
+        File.WriteAllText(Path.Combine(args.Out, "sensitivity.csv"), result.SensitivityCsv);
+        File.WriteAllText(Path.Combine(args.Out, "frontier.json"), result.FrontierJson);
+        File.WriteAllBytes(Path.Combine(args.Out, "trials.json"), ManifestJson.Serialize(store.LoadAll().Values.OrderBy(t => t.Key, StringComparer.Ordinal).ToList()));
+        if (result.QuantizedModel is { } quantized)
+        {
+            File.WriteAllBytes(Path.Combine(args.Out, "model.quantized.onnx"), quantized);
+        }
+
+        var manifest = ManifestJson.Deserialize(result.ManifestJson);
+        Console.Out.Write(Summary(manifest, result));
+        Console.Out.WriteLine($"{result.TrialCount} trials in {clock.Elapsed.TotalSeconds:0.0} s; artifacts in {Path.GetFullPath(args.Out)}");
+        return result.Feasible ? 0 : 3;
+    }
+
+    private static string Summary(AssignmentManifest manifest, SearchResult result)
+    {
+        var text = new StringBuilder();
+        var width = Math.Max(5, manifest.Layers.Max(l => l.Name.Length));
+        text.AppendLine(CultureInfo.InvariantCulture, $"{"layer".PadRight(width)}  {"op",-13} {"params",10} {"bits",5} {"bytes",10}");
+        foreach (var layer in manifest.Layers)
+        {
+            var bits = layer.Excluded ? "fp32*" : layer.Bits?.ToString(CultureInfo.InvariantCulture) ?? "-";
+            text.AppendLine(CultureInfo.InvariantCulture, $"{layer.Name.PadRight(width)}  {layer.Op,-13} {layer.Parameters,10} {bits,5} {layer.Bytes,10}");
+        }
+
+        if (manifest.Totals is { } totals)
+        {
+            text.AppendLine(CultureInfo.InvariantCulture, $"total: {totals.Bytes} bytes (FP32 {totals.Float32Bytes}), {totals.AverageBits:0.00} bits per weight, {totals.Compression:0.00}x smaller");
+            text.AppendLine(CultureInfo.InvariantCulture, $"{manifest.Budget.Metric}: predicted {result.PredictedError:0.####}, measured {result.MeasuredError:0.####}");
+        }
+
+        text.AppendLine(result.Message);
+        return text.ToString();
+    }
+
+    /// <summary>A one-line progress bar on standard error.</summary>
+    private sealed class TerminalProgress : IProgress<SearchProgress>
+    {
+        public void Report(SearchProgress value)
+        {
+            const int Width = 30;
+            var filled = value.Total == 0 ? Width : value.Done * Width / value.Total;
+            var stage = value.Stage.ToString().ToLowerInvariant();
+            Console.Error.Write($"\r{stage,-9} [{new string('#', filled)}{new string('.', Width - filled)}] {value.Done}/{value.Total}   ");
+        }
+    }
+}
