@@ -29,7 +29,7 @@ internal static class PlanCommand
         {
             parsed = PlanArguments.Parse(args);
         }
-        catch (ArgumentException e)
+        catch (Exception e) when (e is ArgumentException or EngineException)
         {
             Console.Error.WriteLine($"error: {e.Message}");
             Console.Error.WriteLine(Usage);

@@ -1,0 +1,186 @@
+using System.Diagnostics;
+using System.Globalization;
+using Bitbudget.Search;
+using Bitbudget.Search.Evaluation;
+using Bitbudget.Search.Onnx;
+using Bitbudget.Search.Planning;
+using Bitbudget.Search.Quantization;
+using Microsoft.ML.OnnxRuntime;
+
+namespace Bitbudget.Benchmarks;
+
+/// <summary>
+/// Measures, side by side in one process: a trial against a plain forward pass, weights-as-inputs
+/// against rebuilding a session per trial, a suffix trial against a full trial, the whole sweep
+/// against layers x bits forward passes, the knapsack on 2,000 synthetic layers x 7 choices, and peak
+/// memory. Prints ratios, which travel between machines better than absolute times.
+/// </summary>
+internal static class BenchmarkRun
+{
+    public static int Main(string[] args)
+    {
+        var ocr = Option(args, "--ocr") ?? Path.Combine(
+            Environment.GetEnvironmentVariable("BITBUDGET_MODEL_CACHE") ?? Path.Combine(Environment.GetFolderPath(Environment.SpecialFolder.UserProfile), ".cache", "bitbudget", "ocr"),
+            "package", "assets");
+        var demo = Option(args, "--demo");
+        var samples = int.Parse(Option(args, "--samples") ?? "8", CultureInfo.InvariantCulture);
+        var repeat = int.Parse(Option(args, "--repeat") ?? "7", CultureInfo.InvariantCulture);
+
+        Console.WriteLine($"Bitbudget benchmark  ({Environment.ProcessorCount} cores, {RuntimeInfo()})");
+        var classifier = Path.Combine(ocr, "ch_ppocr_mobile_v2.0_cls_infer.onnx");
+        if (File.Exists(classifier))
+        {
+            var model = OnnxModel.LoadFile(classifier);
+            ModelBenchmarks(model, SyntheticData(model, samples), repeat);
+        }
+        else
+        {
+            Console.WriteLine($"OCR classifier not found at {classifier}; run scripts/fetch-test-models.sh");
+        }
+
+        if (demo is not null)
+        {
+            var model = OnnxModel.LoadFile(Directory.GetFiles(demo, "*.onnx").Single());
+            var data = CalibrationSet.Create(DatasetReader.Read(File.ReadAllBytes(Path.Combine(demo, "calibration.npz"))), model.Inputs);
+            ModelBenchmarks(model, data, repeat);
+        }
+
+        KnapsackBenchmark();
+        var process = Process.GetCurrentProcess();
+        Console.WriteLine($"peak working set: {process.PeakWorkingSet64 / 1048576.0:0} MiB; managed heap now: {GC.GetTotalMemory(false) / 1048576.0:0} MiB");
+        return 0;
+    }
+
+    private static void ModelBenchmarks(OnnxModel model, CalibrationSet data, int repeat)
+    {
+        Console.WriteLine();
+        Console.WriteLine($"== {model.Name}: {model.Layers.Count} layers, {model.Layers.Sum(l => l.ParameterCount)} weights, {data.SampleCount} samples");
+        using var session = TrialSession.Open(model, data, new TrialSessionOptions());
+        var layer = model.Layers[model.Layers.Count / 2];
+        var setting = new LayerSetting(4);
+
+        // A plain forward pass: the original model with constant weights, as a deployment would run it.
+        using var plain = new InferenceSession(model.BuildWithWeights(new Dictionary<string, float[]>()));
+        var plainMs = Timing.MedianMilliseconds(repeat, () => PlainPass(plain, data));
+        var trialMs = Timing.MedianMilliseconds(repeat, () => session.MeasureLayer(layer, setting, allowSuffix: false));
+        Row("one trial (full graph) vs one plain forward pass", trialMs, plainMs);
+
+        var rebuildMs = Timing.MedianMilliseconds(Math.Max(3, repeat / 2), () =>
+        {
+            var weight = session.Quantized(layer, setting);
+            using var rebuilt = new InferenceSession(model.BuildWithWeights(new Dictionary<string, float[]> { [layer.Name] = weight }));
+            PlainPass(rebuilt, data);
+        });
+        Row("weights-as-inputs trial vs session rebuilt per trial", trialMs, rebuildMs);
+
+        if (session.SuffixAvailable)
+        {
+            var late = model.Layers[^1];
+            var weight = session.Quantized(late, setting);
+            session.RunSuffix(late, weight);
+            var suffixMs = Timing.MedianMilliseconds(repeat, () => session.RunSuffix(late, weight));
+            var fullMs = Timing.MedianMilliseconds(repeat, () => session.RunFull(new Dictionary<string, float[]> { [late.Name] = weight }));
+            Row($"suffix trial vs full trial (last layer '{late.Name}')", suffixMs, fullMs);
+        }
+
+        var bits = new[] { 2, 3, 4, 5, 6, 8 };
+        var settings = new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 30), bits);
+        var trials = SensitivitySweep.Plan(model.Layers, settings);
+        var clock = Stopwatch.StartNew();
+        SensitivitySweep.Run(session, trials, new InMemoryTrialStore(), null, CancellationToken.None);
+        var sweepMs = clock.Elapsed.TotalMilliseconds;
+        Row($"whole sweep ({trials.Count} trials) vs {trials.Count} plain forward passes", sweepMs, trials.Count * plainMs);
+        Console.WriteLine($"   session build {session.SessionBuildMilliseconds:0} ms; reference pass {session.ForwardPassMilliseconds:0.0} ms");
+    }
+
+    private static void PlainPass(InferenceSession session, CalibrationSet data)
+    {
+        var plan = Enumerable.Range(0, data.SampleCount);
+        var inputs = new Dictionary<string, OrtValue>();
+        try
+        {
+            var batch = Math.Min(32, data.SampleCount);
+            var fixedBatch = session.InputMetadata.Values.First().Dimensions[0] > 0;
+            if (fixedBatch)
+            {
+                batch = session.InputMetadata.Values.First().Dimensions[0];
+            }
+
+            for (var start = 0; start < data.SampleCount; start += batch)
+            {
+                var count = Math.Min(batch, data.SampleCount - start);
+                var names = session.InputNames;
+                var values = new List<OrtValue>();
+                for (var i = 0; i < names.Count; i++)
+                {
+                    values.Add(OrtTensors.SliceSamples(data.Inputs[i], start, count, fixedBatch ? batch : count));
+                }
+
+                using var results = session.Run(new RunOptions(), names, values, session.OutputNames);
+                values.ForEach(v => v.Dispose());
+            }
+        }
+        finally
+        {
+            foreach (var value in inputs.Values)
+            {
+                value.Dispose();
+            }
+        }
+
+        _ = plan;
+    }
+
+    private static void KnapsackBenchmark()
+    {
+        Console.WriteLine();
+        var random = new Random(2026);
+        var layers = Enumerable.Range(0, 2000).Select(i =>
+        {
+            var parameters = (long)Math.Exp(random.NextDouble() * Math.Log(1000) + Math.Log(1000));
+            var sensitivity = Math.Exp(random.NextDouble() * 6 - 3) * 1e-4;
+            return new PlanningLayer($"layer{i}", new[] { 2, 3, 4, 5, 6, 8, 16 }.Select(b =>
+                new PlanningChoice(b, CostModel.LayerBytes(parameters, 16, b, QuantizationScheme.Symmetric, Granularity.PerChannel), sensitivity * Math.Pow(4, 8 - Math.Min(b, 8)) / (b == 16 ? 1e3 : 1))).ToList());
+        }).ToList();
+        var clock = Stopwatch.StartNew();
+        var frontier = KnapsackSolver.Frontier(layers);
+        var frontierMs = clock.Elapsed.TotalMilliseconds;
+        clock.Restart();
+        var budget = layers.Sum(l => l.Choices.Min(c => c.Error)) * 50;
+        var chosen = KnapsackSolver.MinimumBytes(layers, budget);
+        var solveMs = clock.Elapsed.TotalMilliseconds;
+        clock.Restart();
+        var greedy = GreedySolver.MinimumBytes(layers, budget);
+        var greedyMs = clock.Elapsed.TotalMilliseconds;
+        Console.WriteLine($"knapsack, 2,000 layers x 7 choices: frontier of {frontier.Count} points in {frontierMs:0} ms; one solve {solveMs:0} ms ({chosen?.Bytes} bytes); greedy {greedyMs:0} ms ({greedy.Bytes} bytes, {greedy.Bytes / (double)(chosen?.Bytes ?? 1):0.000}x the knapsack's)");
+    }
+
+    private static CalibrationSet SyntheticData(OnnxModel model, int samples)
+    {
+        // The OCR classifier reads text-line crops; uniform noise in [0, 1) exercises every layer just as well for timing.
+        var random = new Random(7);
+        var arrays = model.Inputs.Select(input =>
+        {
+            var shape = input.Shape.Select((d, i) => i == 0 ? samples : d ?? (i == input.Shape.Count - 1 ? 192 : 48)).ToArray();
+            var data = new float[shape.Aggregate(1L, (a, b) => a * b)];
+            for (var i = 0; i < data.Length; i++)
+            {
+                data[i] = random.NextSingle();
+            }
+
+            return new NpyArray(input.Name, ElementType.Float32, shape, data);
+        }).ToList();
+        return CalibrationSet.Create(arrays, model.Inputs);
+    }
+
+    private static void Row(string what, double ours, double baseline) =>
+        Console.WriteLine($"{what,-70} {ours,9:0.0} ms vs {baseline,9:0.0} ms  ratio {ours / baseline:0.00}");
+
+    private static string? Option(string[] args, string name)
+    {
+        var index = Array.IndexOf(args, name);
+        return index >= 0 && index + 1 < args.Length ? args[index + 1] : null;
+    }
+
+    private static string RuntimeInfo() => System.Runtime.InteropServices.RuntimeInformation.FrameworkDescription;
+}
