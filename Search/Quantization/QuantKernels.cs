@@ -73,8 +73,9 @@ internal static class QuantKernels
     }
 
     /// <summary>
-    /// Quantize then dequantize in one pass. The rounded, clamped value is exactly q - z (a small integer in
-    /// float), so multiplying it by s gives the same bits as dequantizing the stored level.
+    /// Quantize then dequantize in one pass. The rounded, clamped value is exactly q - z; it goes through an
+    /// integer (as the stored level does) so that -0 becomes +0, and times s it gives the same bits as
+    /// dequantizing the stored level.
     /// </summary>
     public static void FakeQuantize(ReadOnlySpan<float> values, float scale, int zeroPoint, int qmin, int qmax, Span<float> destination)
     {
@@ -97,13 +98,14 @@ internal static class QuantKernels
             for (; i <= last; i += Vector<float>.Count)
             {
                 var v = Vector.LoadUnsafe(ref src, (nuint)i) / s;
-                (Vector.Round(Vector.Min(Vector.Max(v, lo), hi)) * s).StoreUnsafe(ref dst, (nuint)i);
+                var q = Vector.ConvertToInt32(Vector.Round(Vector.Min(Vector.Max(v, lo), hi)));
+                (Vector.ConvertToSingle(q) * s).StoreUnsafe(ref dst, (nuint)i);
             }
         }
 
         for (; i < values.Length; i++)
         {
-            Unsafe.Add(ref dst, i) = MathF.Round(Math.Clamp(Unsafe.Add(ref src, i) / scale, low, high)) * scale;
+            Unsafe.Add(ref dst, i) = (int)MathF.Round(Math.Clamp(Unsafe.Add(ref src, i) / scale, low, high)) * scale;
         }
     }
 
