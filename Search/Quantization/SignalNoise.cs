@@ -15,12 +15,13 @@ public static class SignalNoise
             throw new ArgumentException("Both spans must have the same length.", nameof(approx));
         }
 
+        Span<float> difference = stackalloc float[Block];
         double sum = 0;
         for (int start = 0; start < reference.Length; start += Block)
         {
             int count = Math.Min(Block, reference.Length - start);
-            double distance = TensorPrimitives.Distance(reference.Slice(start, count), approx.Slice(start, count));
-            sum += distance * distance;
+            TensorPrimitives.Subtract(reference.Slice(start, count), approx.Slice(start, count), difference[..count]);
+            sum += TensorPrimitives.SumOfSquares(difference[..count]);
         }
 
         return sum;
