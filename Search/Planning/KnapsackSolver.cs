@@ -23,7 +23,11 @@ public static class KnapsackSolver
     private const double PruneSlack = 1e-9;
 
     /// <summary>The assignment with the fewest bytes whose summed error is at most <paramref name="maxError"/>; null when even the least-error assignment exceeds it.</summary>
-    public static Selection? MinimumBytes(IReadOnlyList<PlanningLayer> layers, double maxError)
+    public static Selection? MinimumBytes(IReadOnlyList<PlanningLayer> layers, double maxError) =>
+        MinimumBytes(layers, maxError, DefaultMaxPoints);
+
+    /// <summary>As <see cref="MinimumBytes(IReadOnlyList{PlanningLayer}, double)"/> with a chosen frontier cap (tests force thinning with it).</summary>
+    internal static Selection? MinimumBytes(IReadOnlyList<PlanningLayer> layers, double maxError, int maxPoints)
     {
         PlanningInput.Validate(layers);
         if (double.IsNaN(maxError))
@@ -31,18 +35,38 @@ public static class KnapsackSolver
             throw new EngineException("invalid-error-budget", "The error budget is not a number.");
         }
 
-        FrontierResult frontier = Solve(layers, long.MaxValue, maxError, DefaultMaxPoints);
+        // The greedy answer is a feasible incumbent: partial points that provably cannot beat it are
+        // dropped, which keeps the programme small on models with many layers.
+        Selection greedy = GreedySolver.MinimumBytes(layers, maxError);
+        if (greedy.Error > maxError)
+        {
+            return null;
+        }
+
+        var bound = LagrangeBound.ForMinimumBytes(layers, maxError, greedy.Bytes);
+        FrontierResult frontier = Solve(layers, long.MaxValue, maxError, CheckedCap(maxPoints), bound);
         int index = frontier.IndexOfMinimumBytes(maxError);
-        return index < 0 ? null : frontier[index];
+        return Better(index < 0 ? null : frontier[index], greedy, byBytes: true, frontier.Exact);
     }
 
     /// <summary>The assignment with the least summed error whose bytes are at most <paramref name="maxBytes"/>; null when even the smallest assignment exceeds it.</summary>
-    public static Selection? MinimumError(IReadOnlyList<PlanningLayer> layers, long maxBytes)
+    public static Selection? MinimumError(IReadOnlyList<PlanningLayer> layers, long maxBytes) =>
+        MinimumError(layers, maxBytes, DefaultMaxPoints);
+
+    /// <summary>As <see cref="MinimumError(IReadOnlyList{PlanningLayer}, long)"/> with a chosen frontier cap (tests force thinning with it).</summary>
+    internal static Selection? MinimumError(IReadOnlyList<PlanningLayer> layers, long maxBytes, int maxPoints)
     {
         PlanningInput.Validate(layers);
-        FrontierResult frontier = Solve(layers, maxBytes, double.PositiveInfinity, DefaultMaxPoints);
+        Selection greedy = GreedySolver.MinimumError(layers, maxBytes);
+        if (greedy.Bytes > maxBytes)
+        {
+            return null;
+        }
+
+        var bound = LagrangeBound.ForMinimumError(layers, maxBytes, greedy.Error);
+        FrontierResult frontier = Solve(layers, maxBytes, double.PositiveInfinity, CheckedCap(maxPoints), bound);
         int index = frontier.IndexOfMinimumError(maxBytes);
-        return index < 0 ? null : frontier[index];
+        return Better(index < 0 ? null : frontier[index], greedy, byBytes: false, frontier.Exact);
     }
 
     /// <summary>Every Pareto-optimal (bytes, error) assignment, sorted by bytes (exact unless <see cref="FrontierResult.Exact"/> says otherwise).</summary>
@@ -52,15 +76,33 @@ public static class KnapsackSolver
     public static FrontierResult Frontier(IReadOnlyList<PlanningLayer> layers, int maxPoints)
     {
         PlanningInput.Validate(layers);
-        if (maxPoints < 2 || maxPoints > MaxPointsLimit)
-        {
-            throw new EngineException("invalid-frontier-cap", $"The frontier cap must be 2..{MaxPointsLimit} points; got {maxPoints}.");
-        }
-
-        return Solve(layers, long.MaxValue, double.PositiveInfinity, maxPoints);
+        return Solve(layers, long.MaxValue, double.PositiveInfinity, CheckedCap(maxPoints), bound: null);
     }
 
-    private static FrontierResult Solve(IReadOnlyList<PlanningLayer> layers, long maxBytes, double maxError, int maxPoints)
+    private static int CheckedCap(int maxPoints) =>
+        maxPoints is >= 2 and <= MaxPointsLimit
+            ? maxPoints
+            : throw new EngineException("invalid-frontier-cap", $"The frontier cap must be 2..{MaxPointsLimit} points; got {maxPoints}.");
+
+    /// <summary>
+    /// The programme's answer, or the greedy incumbent when the programme found nothing better. Exact
+    /// runs always find the optimum (never worse than greedy); a thinned run may not, and then the
+    /// better of the two is returned, still marked as thinned.
+    /// </summary>
+    private static Selection Better(Selection? programme, Selection greedy, bool byBytes, bool exact)
+    {
+        if (programme is null)
+        {
+            return greedy with { Thinned = !exact };
+        }
+
+        bool greedyWins = byBytes
+            ? greedy.Bytes < programme.Bytes || (greedy.Bytes == programme.Bytes && greedy.Error < programme.Error)
+            : greedy.Error < programme.Error || (greedy.Error == programme.Error && greedy.Bytes < programme.Bytes);
+        return greedyWins ? greedy with { Thinned = !exact } : programme;
+    }
+
+    private static FrontierResult Solve(IReadOnlyList<PlanningLayer> layers, long maxBytes, double maxError, int maxPoints, LagrangeBound? bound)
     {
         int layerCount = layers.Count;
         var suffixBytes = new long[layerCount + 1];
@@ -89,7 +131,7 @@ public static class KnapsackSolver
         var scratch = new PointBuffer(16);
         var back = new uint[layerCount][];
         bool exact = true;
-        double bound = 1.0;
+        double factor = 1.0;
 
         for (int layer = 0; layer < layerCount; layer++)
         {
@@ -112,9 +154,14 @@ public static class KnapsackSolver
                 (merged, scratch) = (scratch, merged);
             }
 
+            if (bound is not null)
+            {
+                DropHopeless(merged, bound, layer + 1);
+            }
+
             if (merged.Count > maxPoints)
             {
-                bound *= 1.0 + Thin(merged, maxPoints);
+                factor *= 1.0 + Thin(merged, maxPoints);
                 exact = false;
             }
 
@@ -131,7 +178,24 @@ public static class KnapsackSolver
             current.Bytes.AsSpan(0, current.Count).ToArray(),
             current.Errors.AsSpan(0, current.Count).ToArray(),
             exact,
-            bound);
+            factor);
+    }
+
+    private static void DropHopeless(PointBuffer points, LagrangeBound bound, int nextLayer)
+    {
+        int kept = 0;
+        for (int i = 0; i < points.Count; i++)
+        {
+            if (!bound.CannotImprove(nextLayer, points.Bytes[i], points.Errors[i]))
+            {
+                points.Bytes[kept] = points.Bytes[i];
+                points.Errors[kept] = points.Errors[i];
+                points.Pack[kept] = points.Pack[i];
+                kept++;
+            }
+        }
+
+        points.Count = kept;
     }
 
     /// <summary>

@@ -128,6 +128,38 @@ public class KnapsackSolverTests
         }
     }
 
+    [Theory]
+    [InlineData(21, 0.05)]
+    [InlineData(22, 0.3)]
+    [InlineData(23, 0.7)]
+    public void BudgetedAnswersStayFeasibleAndNoWorseThanGreedyWhenThinned(int seed, double fraction)
+    {
+        List<PlanningLayer> layers = PlanningInstances.Realistic(seed, layerCount: 30, choiceCount: 6, integerErrors: false);
+        double least = layers.Sum(l => l.Choices.Min(c => c.Error));
+        double maxError = least + ((layers.Sum(l => l.Choices.Max(c => c.Error)) - least) * fraction);
+        long maxBytes = layers.Sum(l => l.Choices.Min(c => c.Bytes)) + (long)(layers.Sum(l => l.Choices.Max(c => c.Bytes)) * fraction * 0.5);
+
+        Selection? exactBytes = KnapsackSolver.MinimumBytes(layers, maxError);
+        Selection? thinBytes = KnapsackSolver.MinimumBytes(layers, maxError, maxPoints: 8);
+        Selection? exactError = KnapsackSolver.MinimumError(layers, maxBytes);
+        Selection? thinError = KnapsackSolver.MinimumError(layers, maxBytes, maxPoints: 8);
+
+        Assert.NotNull(exactBytes);
+        Assert.NotNull(thinBytes);
+        Assert.False(exactBytes.Thinned);
+        Assert.True(thinBytes.Thinned, "a cap of 8 points should force thinning on 30 layers");
+        PlanningInstances.AssertConsistent(layers, thinBytes);
+        Assert.True(thinBytes.Error <= maxError);
+        Assert.InRange(thinBytes.Bytes, exactBytes.Bytes, GreedySolver.MinimumBytes(layers, maxError).Bytes);
+
+        Assert.NotNull(exactError);
+        Assert.NotNull(thinError);
+        Assert.True(thinError.Thinned);
+        PlanningInstances.AssertConsistent(layers, thinError);
+        Assert.True(thinError.Bytes <= maxBytes);
+        Assert.InRange(thinError.Error, exactError.Error, GreedySolver.MinimumError(layers, maxBytes).Error);
+    }
+
     [Fact]
     public void PinnedLayersKeepTheirOnlyChoice()
     {
