@@ -1,0 +1,125 @@
+using Bitbudget.Search.Quantization;
+
+namespace Bitbudget.Search.Planning;
+
+/// <summary>
+/// Storage cost of weights at a bit width: the packed integer payload plus its scales and zero points,
+/// or 2 / 4 bytes per parameter for FP16 / FP32. All results are in bytes unless named otherwise.
+/// </summary>
+public static class CostModel
+{
+    /// <summary>Bytes of one scale: scales are stored as FP32.</summary>
+    public const int ScaleBytes = 4;
+
+    /// <summary>
+    /// Bytes of one zero point at an integer width of 2..8 bits: the zero point is stored in the
+    /// weight's own integer type, and the smallest such element is one byte.
+    /// </summary>
+    public const int ZeroPointBytes = 1;
+
+    /// <summary>
+    /// Bytes of a weight of <paramref name="parameters"/> values at <paramref name="bits"/>:
+    /// ceil(parameters x bits / 8) plus one FP32 scale (and, when asymmetric, one zero point) per
+    /// channel for per-channel or once for per-tensor; 2 x parameters for FP16, 4 x parameters for FP32.
+    /// </summary>
+    /// <param name="channels">Output channels; used only for per-channel integer widths.</param>
+    public static long LayerBytes(long parameters, long channels, int bits, QuantizationScheme scheme, Granularity granularity)
+    {
+        if (parameters < 1)
+        {
+            ThrowInvalid("invalid-parameter-count", $"A layer must have at least one weight parameter; got {parameters}.");
+        }
+
+        if (!BitWidths.IsValid(bits))
+        {
+            ThrowInvalid("invalid-bit-width", $"Bit width {bits} is not supported; use 2..8, 16 (FP16) or 32 (keep FP32).");
+        }
+
+        if (bits == BitWidths.Float32)
+        {
+            return checked(parameters * 4);
+        }
+
+        if (bits == BitWidths.Float16)
+        {
+            return checked(parameters * 2);
+        }
+
+        long scales = 1;
+        if (granularity == Granularity.PerChannel)
+        {
+            if (channels < 1 || channels > parameters)
+            {
+                ThrowInvalid("invalid-channel-count", $"A per-channel weight of {parameters} parameters needs 1..{parameters} channels; got {channels}.");
+            }
+
+            scales = channels;
+        }
+
+        long payload = checked((parameters * bits) + 7) / 8;
+        long overhead = scales * ScaleBytes;
+        if (scheme == QuantizationScheme.Asymmetric)
+        {
+            overhead += scales * ZeroPointBytes;
+        }
+
+        return checked(payload + overhead);
+    }
+
+    /// <summary>Bytes of a weight kept in FP32 (4 per parameter).</summary>
+    public static long Float32Bytes(long parameters) => checked(parameters * 4);
+
+    /// <summary>Average stored bits per quantizable weight, scales and zero points included: 8 x bytes / parameters.</summary>
+    public static double AverageBits(long quantizedBytes, long quantizedParameters)
+    {
+        if (quantizedParameters < 1)
+        {
+            ThrowInvalid("no-quantizable-weights", "Average bits need at least one quantizable weight parameter; the model has none.");
+        }
+
+        return 8.0 * quantizedBytes / quantizedParameters;
+    }
+
+    /// <summary>
+    /// The largest byte count of the quantizable layers that keeps the average at or below
+    /// <paramref name="averageBits"/> bits per weight (rounded down to whole bytes).
+    /// </summary>
+    public static long LayerBytesForAverageBits(double averageBits, long quantizedParameters)
+    {
+        if (!(averageBits > 0) || double.IsInfinity(averageBits))
+        {
+            ThrowInvalid("invalid-size-budget", $"An average-bits budget must be a positive number of bits; got {averageBits}.");
+        }
+
+        if (quantizedParameters < 1)
+        {
+            ThrowInvalid("no-quantizable-weights", "Average bits need at least one quantizable weight parameter; the model has none.");
+        }
+
+        return (long)Math.Floor(averageBits * quantizedParameters / 8.0);
+    }
+
+    /// <summary>
+    /// Totals of a model: the quantizable layers' bytes plus the tensors that stay as they are
+    /// (biases, norms, excluded layers), which count once and unchanged on both sides of the
+    /// compression ratio. Average bits cover the quantizable weights only.
+    /// </summary>
+    /// <param name="quantizedBytes">Sum of <see cref="LayerBytes"/> over the searched layers.</param>
+    /// <param name="quantizedParameters">Parameters of the searched layers.</param>
+    /// <param name="otherTensorBytes">Bytes of every other stored tensor, as stored.</param>
+    public static SizeTotals Totals(long quantizedBytes, long quantizedParameters, long otherTensorBytes)
+    {
+        if (quantizedBytes < 0 || otherTensorBytes < 0)
+        {
+            ThrowInvalid("invalid-byte-count", $"Byte counts cannot be negative; got {quantizedBytes} and {otherTensorBytes}.");
+        }
+
+        long bytes = checked(quantizedBytes + otherTensorBytes);
+        long float32Bytes = checked(Float32Bytes(quantizedParameters) + otherTensorBytes);
+        double averageBits = AverageBits(quantizedBytes, quantizedParameters);
+        double compression = bytes == 0 ? 1.0 : (double)float32Bytes / bytes;
+        return new SizeTotals(bytes, float32Bytes, averageBits, compression);
+    }
+
+    private static void ThrowInvalid(string code, string message) => throw new EngineException(code, message);
+}
