@@ -22,6 +22,18 @@ namespace Bitbudget.Search.Planning;
 /// </summary>
 public static class AdditiveError
 {
+    /// <summary>What the additive model sums for <paramref name="metric"/>, in words (written into manifests and frontiers).</summary>
+    public static string Describe(BudgetMetric metric) => metric switch
+    {
+        BudgetMetric.Sqnr => "relative noise power 10^(-SQNR/10), summed over layers",
+        BudgetMetric.RelativeMse => "relative MSE, summed over layers",
+        BudgetMetric.Top1Agreement => "disagreement rate 1 - agreement, summed over layers (a union bound)",
+        BudgetMetric.KlDivergence => "KL divergence, summed over layers",
+        BudgetMetric.CosineSimilarity => "1 - cosine similarity, summed over layers",
+        BudgetMetric.AccuracyDrop => "accuracy drop in points (floored at 0), summed over layers",
+        _ => throw UnknownMetric(metric),
+    };
+
     /// <summary>True when the budget on <paramref name="metric"/> is a lower bound (SQNR, top-1 agreement, cosine).</summary>
     public static bool IsLowerBound(BudgetMetric metric) => metric switch
     {

@@ -27,9 +27,9 @@ internal sealed class AssignmentValidator(
         var highest = Measure(problem.Highest(), budget);
         if (!highest.MeetsBudget)
         {
-            var got = MetricValues.ValueOf(metric, highest.Measured, reference);
+            var got = AdditiveError.MetricValue(metric, highest.Measured, reference);
             var top = problem.Settings.Bits.Max();
-            var message = $"Infeasible: {Describe(top)} everywhere gives {MetricValues.Format(metric, got)}; the budget asks for {(MetricValues.HigherIsBetter(metric) ? "at least" : "at most")} {MetricValues.Format(metric, budget.Limit)}. Add a higher candidate bit width, exclude the most sensitive layers, or relax the budget.";
+            var message = $"Infeasible: {Describe(top)} everywhere gives {MetricValues.Format(metric, got)}; the budget asks for {(AdditiveError.IsLowerBound(metric) ? "at least" : "at most")} {MetricValues.Format(metric, budget.Limit)}. Add a higher candidate bit width, exclude the most sensitive layers, or relax the budget.";
             return new SearchDecision(false, message, null, _rounds, highest.PredictedAdditive);
         }
 
@@ -42,7 +42,8 @@ internal sealed class AssignmentValidator(
             var selection = method == SearchMethod.Knapsack
                 ? KnapsackSolver.MinimumBytes(problem.Layers, target)
                 : GreedySolver.MinimumBytes(problem.Layers, target);
-            if (selection is null)
+            // Greedy answers with its closest assignment even when that misses the target.
+            if (selection is null || selection.Error > target)
             {
                 break;
             }
@@ -69,7 +70,7 @@ internal sealed class AssignmentValidator(
             }
         }
 
-        var value = MetricValues.ValueOf(metric, best.Measured, reference);
+        var value = AdditiveError.MetricValue(metric, best.Measured, reference);
         var text = $"{FormatBytes(best.Bytes)} ({problem.Float32Bytes / (double)best.Bytes:0.00}x smaller than FP32) measured at {MetricValues.Format(metric, value)} against a budget of {MetricValues.Format(metric, budget.Limit)}.";
         return new SearchDecision(true, text, best, _rounds, best.PredictedAdditive);
     }
@@ -93,7 +94,7 @@ internal sealed class AssignmentValidator(
         progress?.Report(new SearchProgress(SearchStage.Validate, 0, 1));
         var measured = Measure(selection, budget);
         progress?.Report(new SearchProgress(SearchStage.Validate, 1, 1));
-        var value = MetricValues.ValueOf(budget.Metric, measured.Measured, session.ReferenceMetrics);
+        var value = AdditiveError.MetricValue(budget.Metric, measured.Measured, session.ReferenceMetrics);
         var text = $"{FormatBytes(measured.Bytes)} (budget {FormatBytes(maxBytes)}) measured at {MetricValues.Format(budget.Metric, value)}.";
         return new SearchDecision(true, text, measured, _rounds, measured.PredictedAdditive);
     }

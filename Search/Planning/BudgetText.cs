@@ -36,7 +36,7 @@ public static partial class BudgetText
         }
 
         var metric = MetricValues.Parse(name) ?? throw Invalid(text);
-        var wanted = MetricValues.HigherIsBetter(metric) ? ">=" : "<=";
+        var wanted = AdditiveError.IsLowerBound(metric) ? ">=" : "<=";
         if (op != wanted)
         {
             throw new EngineException("budget-invalid", $"'{name}' is bounded with '{wanted}' (for example \"{name}{wanted}{Example(metric)}\"), not '{op}'.");

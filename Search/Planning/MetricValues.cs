@@ -1,27 +1,10 @@
 using System.Globalization;
-using Bitbudget.Search.Evaluation;
 
 namespace Bitbudget.Search.Planning;
 
 /// <summary>Reads a budget metric out of measured metrics and writes it for people.</summary>
 public static class MetricValues
 {
-    /// <summary>The value of <paramref name="metric"/> in <paramref name="measured"/>; accuracy drop is in points against <paramref name="reference"/>.</summary>
-    public static double ValueOf(BudgetMetric metric, MetricSet measured, MetricSet reference) => metric switch
-    {
-        BudgetMetric.Sqnr => measured.SqnrDb,
-        BudgetMetric.RelativeMse => measured.RelativeMse,
-        BudgetMetric.Top1Agreement => measured.Top1Agreement,
-        BudgetMetric.KlDivergence => measured.KlDivergence,
-        BudgetMetric.CosineSimilarity => measured.CosineSimilarity,
-        BudgetMetric.AccuracyDrop => ((reference.Accuracy ?? 0) - (measured.Accuracy ?? 0)) * 100,
-        _ => throw new ArgumentOutOfRangeException(nameof(metric)),
-    };
-
-    /// <summary>True when larger values are better (the budget is a lower bound).</summary>
-    public static bool HigherIsBetter(BudgetMetric metric) =>
-        metric is BudgetMetric.Sqnr or BudgetMetric.Top1Agreement or BudgetMetric.CosineSimilarity;
-
     /// <summary>A value with its unit, e.g. "27.4 dB", "98.44%", "0.8 points".</summary>
     public static string Format(BudgetMetric metric, double value) => metric switch
     {

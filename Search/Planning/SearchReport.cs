@@ -38,7 +38,7 @@ internal sealed class SearchReport(
             manifest.Totals?.AverageBits ?? 0,
             manifest.Totals?.Compression ?? 0,
             chosen is null ? double.NaN : AdditiveError.FromAdditive(metric, chosen.PredictedAdditive, reference),
-            chosen is null ? double.NaN : MetricValues.ValueOf(metric, chosen.Measured, reference),
+            chosen is null ? double.NaN : AdditiveError.MetricValue(metric, chosen.Measured, reference),
             trialCount);
     }
 
@@ -174,8 +174,8 @@ internal sealed class SearchReport(
         ErrorBudget e => new ManifestBudget(
             "error",
             MetricValues.Name(e.Metric),
-            MetricValues.HigherIsBetter(e.Metric) ? e.Limit : null,
-            MetricValues.HigherIsBetter(e.Metric) ? null : e.Limit,
+            AdditiveError.IsLowerBound(e.Metric) ? e.Limit : null,
+            AdditiveError.IsLowerBound(e.Metric) ? null : e.Limit,
             null,
             null,
             AdditiveError.Describe(e.Metric)),
