@@ -1,6 +1,7 @@
 using System.Globalization;
 using System.Text;
 using System.Text.Json;
+using System.Text.Json.Serialization;
 using Bitbudget.Search;
 using Bitbudget.Search.Onnx;
 
@@ -11,7 +12,7 @@ internal static class InspectCommand
 {
     private const string Usage = "usage: inspect MODEL.onnx [--json]";
 
-    private static readonly JsonSerializerOptions Json = new(JsonSerializerDefaults.Web) { WriteIndented = true };
+    private static readonly JsonSerializerOptions Json = new(JsonSerializerDefaults.Web) { WriteIndented = true, Converters = { new JsonStringEnumConverter() } };
 
     public static Task<int> RunAsync(string[] args)
     {
