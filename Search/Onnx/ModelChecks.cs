@@ -36,7 +36,7 @@ internal static class ModelChecks
             throw NotOnnx($"The file '{name}' is not a readable ONNX model (it is truncated or not an ONNX protobuf); upload the complete .onnx file.", ex);
         }
 
-        if (model.Graph is null || model.IrVersion <= 0 || model.OpsetImport.Count == 0 || model.Graph.Node.Count == 0)
+        if (model.Graph is null || model.IrVersion <= 0 || model.OpsetImport.Count == 0)
         {
             throw NotOnnx($"The file '{name}' is not an ONNX model (it has no graph, IR version or opset); upload the .onnx file of an FP32 model.");
         }

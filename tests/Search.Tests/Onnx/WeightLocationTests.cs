@@ -137,6 +137,30 @@ public sealed class WeightLocationTests
     }
 
     [Fact]
+    public void WeightInsideScanBodyMovesToTheMainGraph()
+    {
+        var body = new GraphBuilder()
+            .Input("s_in", 4).Input("x_t", 4)
+            .Initializer("w_scan", [4, 4], GraphBuilder.RandomValues(13, 16))
+            .Node("MatMul", ["x_t", "w_scan"], ["y_t"], "project")
+            .Node("Add", ["s_in", "y_t"], ["s_out"], "accumulate")
+            .Output("s_out", 4).Output("y_t", 4)
+            .BuildGraph();
+        var bytes = new GraphBuilder().Opset(11)
+            .Input("s0", 4).Input("xs", 2, 4)
+            .Node("Scan", ["s0", "xs"], ["s_final", "ys"], "sweep",
+                GraphBuilder.GraphAttribute("body", body), GraphBuilder.IntAttribute("num_scan_inputs", 1))
+            .Output("s_final", 4).Output("ys", 2, 4).ToBytes();
+
+        var model = OnnxModel.Load(bytes, "m");
+
+        var layer = Assert.Single(model.Layers);
+        Assert.Equal(("sweep/body/project", "w_scan"), (layer.Name, layer.WeightName));
+        Assert.Empty(model.Proto.Graph.Node.Single().Attribute.Single(a => a.Name == "body").G.Initializer);
+        AssertSameOutputs(bytes, model, new() { ["s0"] = OrtRunner.Floats(X[..4], 4), ["xs"] = OrtRunner.Floats(X, 2, 4) });
+    }
+
+    [Fact]
     public void TiedWeightIsOneLayerWithTwoConsumers()
     {
         var square = GraphBuilder.RandomValues(6, 16);
