@@ -1,0 +1,137 @@
+using System.Globalization;
+using System.Text;
+using System.Text.Json;
+using System.Text.Json.Serialization;
+using Bitbudget.Search;
+using Bitbudget.Search.Onnx;
+
+namespace Bitbudget.Service.Commands;
+
+/// <summary><c>inspect MODEL.onnx [--json]</c>: loads a model as an upload would be and prints its layer table.</summary>
+internal static class InspectCommand
+{
+    private const string Usage = "usage: inspect MODEL.onnx [--json]";
+
+    private static readonly JsonSerializerOptions Json = new(JsonSerializerDefaults.Web) { WriteIndented = true, Converters = { new JsonStringEnumConverter() } };
+
+    public static Task<int> RunAsync(string[] args)
+    {
+        string? path = null;
+        var json = false;
+        foreach (var arg in args)
+        {
+            if (arg == "--json")
+            {
+                json = true;
+            }
+            else if (arg.StartsWith('-') || path is not null)
+            {
+                Console.Error.WriteLine(Usage);
+                return Task.FromResult(2);
+            }
+            else
+            {
+                path = arg;
+            }
+        }
+
+        if (path is null)
+        {
+            Console.Error.WriteLine(Usage);
+            return Task.FromResult(2);
+        }
+
+        OnnxModel model;
+        try
+        {
+            model = OnnxModel.LoadFile(path);
+        }
+        catch (EngineException ex)
+        {
+            Console.Error.WriteLine($"error: {ex.Message}");
+            return Task.FromResult(1);
+        }
+
+        Console.Out.Write(json ? ToJson(model) : ToTable(model));
+        return Task.FromResult(0);
+    }
+
+    private static string ToJson(OnnxModel model)
+    {
+        var document = new
+        {
+            model.Name,
+            model.Sha256,
+            model.Opset,
+            model.IrVersion,
+            model.Inputs,
+            model.Outputs,
+            Layers = model.Layers.Select(l => new
+            {
+                l.Name,
+                l.Op,
+                l.WeightName,
+                l.Shape,
+                l.ParameterCount,
+                l.ChannelAxis,
+                BatchNormFolded = l.FollowedByBatchNorm,
+                l.Consumers,
+            }),
+            Totals = new { Layers = model.Layers.Count, Parameters = model.Layers.Sum(l => l.ParameterCount) },
+            model.Notes,
+        };
+        return JsonSerializer.Serialize(document, Json) + Environment.NewLine;
+    }
+
+    private static string ToTable(OnnxModel model)
+    {
+        var text = new StringBuilder();
+        var c = CultureInfo.InvariantCulture;
+        text.AppendLine(c, $"model   {model.Name}");
+        text.AppendLine(c, $"sha256  {model.Sha256}");
+        text.AppendLine(c, $"opset   {model.Opset} (IR version {model.IrVersion})");
+        foreach (var input in model.Inputs)
+        {
+            text.AppendLine(c, $"input   {Describe(input)}");
+        }
+
+        foreach (var output in model.Outputs)
+        {
+            text.AppendLine(c, $"output  {Describe(output)}");
+        }
+
+        text.AppendLine();
+        string[] header = ["name", "op", "weight", "shape", "params", "axis", "bn folded"];
+        var rows = model.Layers.Select(l => new[]
+        {
+            l.Consumers.Count > 1 ? $"{l.Name} (+{l.Consumers.Count - 1} tied)" : l.Name,
+            l.Op,
+            l.WeightName,
+            "[" + string.Join(",", l.Shape) + "]",
+            l.ParameterCount.ToString("N0", c),
+            l.ChannelAxis.ToString(c),
+            l.FollowedByBatchNorm ? "yes" : "no",
+        }).ToList();
+        var widths = header.Select((h, i) => rows.Select(r => r[i].Length).Append(h.Length).Max()).ToArray();
+        text.AppendLine(Row(header, widths));
+        foreach (var row in rows)
+        {
+            text.AppendLine(Row(row, widths));
+        }
+
+        text.AppendLine();
+        text.AppendLine(c, $"total   {model.Layers.Count} layers, {model.Layers.Sum(l => l.ParameterCount).ToString("N0", c)} parameters");
+        foreach (var note in model.Notes)
+        {
+            text.AppendLine(c, $"note    {note}");
+        }
+
+        return text.ToString();
+    }
+
+    private static string Row(string[] cells, int[] widths) =>
+        string.Join("  ", cells.Select((cell, i) => i == 4 ? cell.PadLeft(widths[i]) : cell.PadRight(widths[i]))).TrimEnd();
+
+    private static string Describe(ValueDescription value) =>
+        $"{value.Name} {value.ElementType} [{string.Join(",", value.Shape.Select(d => d?.ToString(CultureInfo.InvariantCulture) ?? "?"))}]";
+}
