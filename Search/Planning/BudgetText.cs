@@ -4,9 +4,10 @@ using System.Text.RegularExpressions;
 namespace Bitbudget.Search.Planning;
 
 /// <summary>
-/// Parses the one-line budget form used on the command line: "sqnr>=30", "top1>=0.99",
-/// "kl<=0.01", "cosine>=0.999", "relative-mse<=1e-3", "accuracy-drop<=0.5", "bytes<=2500000",
-/// "average-bits<=4.5" (size budgets may add ",least=kl" to pick the error they minimise).
+/// Parses the one-line budget form used on the command line: <c>sqnr&gt;=30</c>, <c>top1&gt;=0.99</c>,
+/// <c>kl&lt;=0.01</c>, <c>cosine&gt;=0.999</c>, <c>relative-mse&lt;=1e-3</c>, <c>accuracy-drop&lt;=0.5</c>,
+/// <c>bytes&lt;=2500000</c>, <c>average-bits&lt;=4.5</c> (size budgets may add <c>,least=kl</c> to pick
+/// the error they minimise).
 /// </summary>
 public static partial class BudgetText
 {
