@@ -227,12 +227,13 @@ public sealed class CalibrationSet
                 $"Array '{LabelsName}' must be 1-D (one class per sample) but has shape {DatasetErrors.FormatShape(array.Shape)}.");
         if (array.Shape[0] != samples)
             throw DatasetErrors.Invalid($"Array '{LabelsName}' holds {array.Shape[0]} labels for {samples} samples; it needs one per sample.");
-        long[] labels = array.Data switch
+        // Switch on the element type, not the array's runtime type: the CLR lets a byte[] pass as sbyte[].
+        long[] labels = array.ElementType switch
         {
-            long[] a => (long[])a.Clone(),
-            int[] a => Array.ConvertAll(a, v => (long)v),
-            sbyte[] a => Array.ConvertAll(a, v => (long)v),
-            byte[] a => Array.ConvertAll(a, v => (long)v),
+            ElementType.Int64 => (long[])((long[])array.Data).Clone(),
+            ElementType.Int32 => Array.ConvertAll((int[])array.Data, v => (long)v),
+            ElementType.Int8 => Array.ConvertAll((sbyte[])array.Data, v => (long)v),
+            ElementType.UInt8 => Array.ConvertAll((byte[])array.Data, v => (long)v),
             _ => throw DatasetErrors.Invalid(
                 $"Array '{LabelsName}' holds {DatasetErrors.TypeName(array.ElementType)}; labels are integer class indices (int64, int32, int8 or uint8)."),
         };

@@ -21,7 +21,7 @@ public static class DatasetReader
             using var zip = new MemoryStream(bytes, writable: false);
             return NpzReader.Read(zip, limits);
         }
-        if (span.StartsWith("\x93NUMPY"u8))
+        if (span.StartsWith(NpyReader.Magic))
         {
             using var npy = new MemoryStream(bytes, writable: false);
             var array = NpyReader.Read(npy, SingleArrayName, limits);

@@ -13,7 +13,8 @@ namespace Bitbudget.Search.Evaluation;
 /// </summary>
 public static class NpyReader
 {
-    private static ReadOnlySpan<byte> Magic => "\x93NUMPY"u8;
+    /// <summary>The six bytes every .npy file starts with (0x93 is a raw byte, not a UTF-8 character).</summary>
+    internal static ReadOnlySpan<byte> Magic => [0x93, (byte)'N', (byte)'U', (byte)'M', (byte)'P', (byte)'Y'];
 
     /// <summary>Longest header accepted; NumPy's own headers are a few hundred bytes.</summary>
     private const int MaxHeaderBytes = 64 * 1024;

@@ -47,7 +47,7 @@ public static class NpyWriter
         var header = dict + new string(' ', padded - preamble - dict.Length - 1) + "\n";
 
         Span<byte> start = stackalloc byte[12];
-        "\x93NUMPY"u8.CopyTo(start);
+        NpyReader.Magic.CopyTo(start);
         start[6] = version2 ? (byte)2 : (byte)1;
         start[7] = 0;
         if (version2) System.Buffers.Binary.BinaryPrimitives.WriteUInt32LittleEndian(start[8..], (uint)header.Length);
@@ -63,8 +63,7 @@ public static class NpyWriter
             double[] a => MemoryMarshal.AsBytes(a.AsSpan()),
             long[] a => MemoryMarshal.AsBytes(a.AsSpan()),
             int[] a => MemoryMarshal.AsBytes(a.AsSpan()),
-            sbyte[] a => MemoryMarshal.AsBytes(a.AsSpan()),
-            byte[] a => a.AsSpan(),
+            byte[] a => a.AsSpan(), // also matches sbyte[]: the CLR treats the two as one array type
             bool[] a => MemoryMarshal.AsBytes(a.AsSpan()),
             _ => throw new InvalidOperationException("Unreachable: data type was checked above."),
         });
