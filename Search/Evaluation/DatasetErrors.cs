@@ -46,11 +46,12 @@ internal static class DatasetErrors
         _ => "an unsupported element type",
     };
 
+    /// <summary>A size a user can read at a glance, with the exact count for comparing against limits.</summary>
     public static string FormatBytes(long bytes) => bytes switch
     {
-        >= 1L << 30 => $"{bytes / (double)(1L << 30):0.##} GiB",
-        >= 1L << 20 => $"{bytes / (double)(1L << 20):0.##} MiB",
-        >= 1L << 10 => $"{bytes / (double)(1L << 10):0.##} KiB",
+        >= 1L << 30 => $"{bytes / (double)(1L << 30):0.##} GiB ({bytes} bytes)",
+        >= 1L << 20 => $"{bytes / (double)(1L << 20):0.##} MiB ({bytes} bytes)",
+        >= 1L << 10 => $"{bytes / (double)(1L << 10):0.##} KiB ({bytes} bytes)",
         _ => $"{bytes} bytes",
     };
 }
