@@ -20,4 +20,13 @@ public sealed record NpyArray(string Name, ElementType ElementType, IReadOnlyLis
             return n;
         }
     }
+
+    /// <summary>Bytes of data: element count times the element size (a bool is one byte).</summary>
+    public long ByteCount => ElementCount * ElementType switch
+    {
+        ElementType.Float64 or ElementType.Int64 => 8,
+        ElementType.Float32 or ElementType.Int32 => 4,
+        ElementType.Float16 => 2,
+        _ => 1,
+    };
 }

@@ -36,7 +36,7 @@ public static class NpzReader
                 if (!seen.Add(name))
                     throw DatasetErrors.Invalid($"The .npz holds two members for array '{name}'.");
                 var array = ReadMember(entry, name, limits, limits.MaxTotalBytes - total);
-                total += Buffer.ByteLength(array.Data);
+                total += array.ByteCount;
                 arrays.Add(array);
             }
             return arrays;
