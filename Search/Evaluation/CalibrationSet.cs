@@ -199,8 +199,10 @@ public sealed class CalibrationSet
     private static void CheckFinite<T>(T[] data, NpyArray array, string? overflowWhat)
         where T : System.Numerics.IFloatingPointIeee754<T>
     {
-        if (TensorPrimitives.IsFiniteAll<T>(data)) return;
+        // IsFiniteAll answers false for an empty span, hence the length test.
+        if (data.Length == 0 || TensorPrimitives.IsFiniteAll<T>(data)) return;
         int at = Array.FindIndex(data, v => !T.IsFinite(v));
+        if (at < 0) return;
         var value = data[at];
         string index = FormatIndex(at, array.Shape);
         string what = overflowWhat is not null
