@@ -42,7 +42,7 @@ public sealed class TrialSession : IDisposable
             _sessionOptions.IntraOpNumThreads = threads;
         }
 
-        var weightsAsInputs = ModelProto.Parser.ParseFrom(model.BuildWeightsAsInputs());
+        var weightsAsInputs = global::Onnx.ModelProto.Parser.ParseFrom(model.BuildWeightsAsInputs());
         _slicer = new GraphSlicer(weightsAsInputs);
 
         var build = Stopwatch.StartNew();

@@ -17,7 +17,7 @@ namespace Bitbudget.Benchmarks;
 /// </summary>
 internal static class BenchmarkRun
 {
-    public static int Main(string[] args)
+    public static int Run(string[] args)
     {
         var ocr = Option(args, "--ocr") ?? Path.Combine(
             Environment.GetEnvironmentVariable("BITBUDGET_MODEL_CACHE") ?? Path.Combine(Environment.GetFolderPath(Environment.SpecialFolder.UserProfile), ".cache", "bitbudget", "ocr"),
@@ -95,40 +95,17 @@ internal static class BenchmarkRun
 
     private static void PlainPass(InferenceSession session, CalibrationSet data)
     {
-        var plan = Enumerable.Range(0, data.SampleCount);
-        var inputs = new Dictionary<string, OrtValue>();
-        try
+        // Batches as the model's first dimension allows, the same rule the trial session follows.
+        var first = session.InputMetadata.Values.First().Dimensions[0];
+        var batch = first > 0 ? first : Math.Min(32, data.SampleCount);
+        using var runOptions = new RunOptions();
+        for (var start = 0; start < data.SampleCount; start += batch)
         {
-            var batch = Math.Min(32, data.SampleCount);
-            var fixedBatch = session.InputMetadata.Values.First().Dimensions[0] > 0;
-            if (fixedBatch)
-            {
-                batch = session.InputMetadata.Values.First().Dimensions[0];
-            }
-
-            for (var start = 0; start < data.SampleCount; start += batch)
-            {
-                var count = Math.Min(batch, data.SampleCount - start);
-                var names = session.InputNames;
-                var values = new List<OrtValue>();
-                for (var i = 0; i < names.Count; i++)
-                {
-                    values.Add(OrtTensors.SliceSamples(data.Inputs[i], start, count, fixedBatch ? batch : count));
-                }
-
-                using var results = session.Run(new RunOptions(), names, values, session.OutputNames);
-                values.ForEach(v => v.Dispose());
-            }
+            var count = Math.Min(batch, data.SampleCount - start);
+            var values = data.Inputs.Select(a => OrtTensors.SliceSamples(a, start, count, first > 0 ? batch : count)).ToList();
+            using var results = session.Run(runOptions, session.InputNames, values, session.OutputNames);
+            values.ForEach(v => v.Dispose());
         }
-        finally
-        {
-            foreach (var value in inputs.Values)
-            {
-                value.Dispose();
-            }
-        }
-
-        _ = plan;
     }
 
     private static void KnapsackBenchmark()

@@ -2,4 +2,4 @@ using Bitbudget.Benchmarks;
 
 // Side-by-side measurements of what a search costs; see DEVELOPERS.md ("Benchmarks") for how to read them.
 // usage: dotnet run -c Release --project tests/Benchmarks -- [--ocr DIR] [--demo DIR] [--samples N] [--repeat N]
-return BenchmarkRun.Main(args);
+return BenchmarkRun.Run(args);
