@@ -1,0 +1,115 @@
+#!/usr/bin/python3
+"""Writes the .npy/.npz fixtures of tests/Search.Tests/Evaluation with NumPy itself.
+
+Run with Debian's NumPy:  /usr/bin/python3 tests/Search.Tests/Fixtures/make_fixtures.py
+Every value comes from a formula the C# tests recompute, except the metric cases, whose inputs are
+seeded random numbers stored in the files next to the values NumPy computes from them.
+"""
+import os
+
+import numpy as np
+
+OUT = os.path.join(os.path.dirname(os.path.abspath(__file__)), "numpy")
+SHAPE = (2, 3, 4)
+N = 24
+
+
+def values(kind):
+    """The formula per dtype family; the C# side (NumpyFixtureTests.Expected) mirrors it."""
+    i = np.arange(N)
+    if kind == "f":
+        return (i * 0.25 - 3).reshape(SHAPE)
+    if kind == "i8":
+        return (i * 123456789013 - 1500000000000).reshape(SHAPE)
+    if kind == "i":
+        return (i * 7 - 20).reshape(SHAPE)
+    if kind == "i1":
+        return ((i * 11) % 256 - 128).reshape(SHAPE)
+    if kind == "u1":
+        return ((i * 11) % 256).reshape(SHAPE)
+    if kind == "b1":
+        return (i % 3 == 0).reshape(SHAPE)
+    raise ValueError(kind)
+
+
+def save(name, array, **kwargs):
+    path = os.path.join(OUT, name)
+    with open(path, "wb") as f:
+        np.lib.format.write_array(f, array, allow_pickle=kwargs.pop("allow_pickle", False), **kwargs)
+
+
+def main():
+    os.makedirs(OUT, exist_ok=True)
+    for descr, kind in [("f4", "f"), ("f2", "f"), ("f8", "f"), ("i8", "i8"), ("i4", "i")]:
+        for order, tag in [("<", "le"), (">", "be")]:
+            save(f"{descr}_{tag}.npy", values(kind).astype(order + descr))
+    save("i1.npy", values("i1").astype("i1"))
+    save("u1.npy", values("u1").astype("u1"))
+    save("b1.npy", values("b1").astype("?"))
+
+    # Header versions: 2.0 has a 4-byte header length; 3.0 also allows a UTF-8 header.
+    save("f4_v2.npy", values("f").astype("<f4"), version=(2, 0))
+    save("f4_v3.npy", values("f").astype("<f4"), version=(3, 0))
+
+    # Fortran order: same logical values, column-major bytes on disk.
+    save("f4_fortran.npy", np.asfortranarray(values("f").astype("<f4")))
+    save("i4_fortran_be.npy", np.asfortranarray(values("i").astype(">i4")))
+
+    save("f8_scalar.npy", np.array(2.5, dtype="<f8"))
+    save("i8_vector.npy", np.arange(5, dtype="<i8") * 3 - 4)
+    save("f4_empty.npy", np.zeros((0, 3), dtype="<f4"))
+
+    # Types we refuse.
+    save("c8.npy", values("f").astype("<c8"))
+    save("object.npy", np.array([1, "two", None], dtype=object), allow_pickle=True)
+    save("unicode.npy", np.array(["abc", "de"], dtype="<U3"))
+    save("structured.npy", np.zeros(3, dtype=[("a", "<f4"), ("b", "<i4")]))
+    # A field name outside Latin-1 is what version 3.0 exists for; the header is then UTF-8.
+    save("structured_v3.npy", np.zeros(2, dtype=[("\u03c0", "<f4")]), version=(3, 0))
+
+    x = values("f").astype("<f4")
+    labels = np.array([1, 0], dtype="<i8")
+    np.savez(os.path.join(OUT, "plain.npz"), x=x, labels=labels)
+    np.savez_compressed(os.path.join(OUT, "compressed.npz"), x=x, labels=labels)
+
+    bad = np.arange(4 * 2 * 3, dtype="<f4").reshape(4, 2, 3)
+    bad[3, 1, 2] = np.nan
+    np.savez(os.path.join(OUT, "nan.npz"), x=bad)
+
+    # Metric cases: NumPy computes every metric in float64 from the float32 values stored beside it.
+    rng = np.random.default_rng(20240611)
+    ref = (rng.standard_normal((6, 4, 10)) * 3).astype("<f4")
+    trial = (ref + rng.standard_normal(ref.shape) * 0.3).astype("<f4")
+    np.savez(os.path.join(OUT, "metrics_logits.npz"), reference=ref, trial=trial, expected=expected(ref, trial, softmax=True))
+
+    p = softmax(ref.astype(np.float64)).astype("<f4")
+    q = softmax(trial.astype(np.float64)).astype("<f4")
+    np.savez(os.path.join(OUT, "metrics_probabilities.npz"), reference=p, trial=q, expected=expected(p, q, softmax=False))
+
+
+def softmax(x):
+    e = np.exp(x - x.max(axis=-1, keepdims=True))
+    return e / e.sum(axis=-1, keepdims=True)
+
+
+def expected(ref, trial, softmax):
+    """[relative MSE, SQNR dB, top-1 agreement, mean KL(ref || trial), mean cosine] in float64."""
+    r = ref.astype(np.float64).reshape(-1, ref.shape[-1])
+    t = trial.astype(np.float64).reshape(-1, ref.shape[-1])
+    rel = ((t - r) ** 2).sum() / (r ** 2).sum()
+    sqnr = -10 * np.log10(rel)
+    top1 = (r.argmax(axis=1) == t.argmax(axis=1)).mean()
+    if softmax:
+        log_p = r - r.max(axis=1, keepdims=True)
+        log_p -= np.log(np.exp(log_p).sum(axis=1, keepdims=True))
+        log_q = t - t.max(axis=1, keepdims=True)
+        log_q -= np.log(np.exp(log_q).sum(axis=1, keepdims=True))
+        kl = (np.exp(log_p) * (log_p - log_q)).sum(axis=1).mean()
+    else:
+        kl = (r * (np.log(r) - np.log(t))).sum(axis=1).mean()
+    cos = ((r * t).sum(axis=1) / np.linalg.norm(r, axis=1) / np.linalg.norm(t, axis=1)).mean()
+    return np.array([rel, sqnr, top1, kl, cos], dtype="<f8")
+
+
+if __name__ == "__main__":
+    main()
