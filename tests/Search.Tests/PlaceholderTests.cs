@@ -1,1 +1,0 @@
-namespace Bitbudget.Search.Tests; public class PlaceholderTests { [Fact] public void Runs() => Assert.True(true); }
