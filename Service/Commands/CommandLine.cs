@@ -5,6 +5,7 @@ internal static class CommandLine
 {
     private static readonly Dictionary<string, Func<string[], Task<int>>> Verbs = new(StringComparer.Ordinal)
     {
+        ["demo"] = DemoCommand.RunAsync,
     };
 
     public static bool IsCommand(string[] args) => args.Length > 0 && Verbs.ContainsKey(args[0]);
