@@ -169,6 +169,28 @@ internal sealed class HiveNetTrainer
 
     private (double Loss, int Correct) Step(ReadOnlySpan<float> input, ReadOnlySpan<long> labels, int size, float learningRate)
     {
+        (double loss, int correct) = Backpropagate(input, labels, size);
+        AdamUpdate(learningRate);
+        return (loss, correct);
+    }
+
+    /// <summary>The gradient buffer the last <see cref="Backpropagate"/> filled for one of the network's parameter arrays.</summary>
+    public float[] GradientOf(float[] parameter) =>
+        Array.Find(_parameters, p => ReferenceEquals(p.Value, parameter))?.Gradient
+        ?? throw new ArgumentException("The array is not a parameter of this trainer's network.", nameof(parameter));
+
+    /// <summary>
+    /// One forward and backward pass over a batch in training mode: returns the mean cross-entropy and
+    /// the number of correct patches, and leaves d(loss)/d(parameter) in the gradient buffers.
+    /// Updates the BN running statistics as training does, but not the parameters.
+    /// </summary>
+    public (double Loss, int Correct) Backpropagate(ReadOnlySpan<float> input, ReadOnlySpan<long> labels, int size)
+    {
+        if (size < 2 || size > _batchSize || input.Length != size * P1 || labels.Length != size)
+        {
+            throw new ArgumentException($"A batch must hold 2..{_batchSize} patches with one label each.");
+        }
+
         foreach (Parameter parameter in _parameters)
         {
             Array.Clear(parameter.Gradient);
@@ -310,7 +332,6 @@ internal sealed class HiveNetTrainer
             }
         }
 
-        AdamUpdate(learningRate);
         return (loss / size, correct);
     }
 
