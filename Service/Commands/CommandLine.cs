@@ -6,6 +6,7 @@ internal static class CommandLine
     private static readonly Dictionary<string, Func<string[], Task<int>>> Verbs = new(StringComparer.Ordinal)
     {
         ["inspect"] = InspectCommand.RunAsync,
+        ["demo"] = DemoCommand.RunAsync,
     };
 
     public static bool IsCommand(string[] args) => args.Length > 0 && Verbs.ContainsKey(args[0]);
