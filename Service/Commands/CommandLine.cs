@@ -7,6 +7,7 @@ internal static class CommandLine
     {
         ["inspect"] = InspectCommand.RunAsync,
         ["demo"] = DemoCommand.RunAsync,
+        ["plan"] = PlanCommand.RunAsync,
     };
 
     public static bool IsCommand(string[] args) => args.Length > 0 && Verbs.ContainsKey(args[0]);
