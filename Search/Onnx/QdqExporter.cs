@@ -24,6 +24,19 @@ public static class QdqExporter
     /// <summary>First opset with INT4/UINT4.</summary>
     public const long Int4Opset = 21;
 
+    /// <summary>The ONNX Runtime session option that sets how a fused DequantizeLinear+MatMul computes.</summary>
+    public const string MatMulAccuracyOption = "session.qdq_matmulnbits_accuracy_level";
+
+    /// <summary>
+    /// ONNX Runtime's CPU provider fuses DequantizeLinear+MatMul into its MatMulNBits kernel and by default
+    /// computes it with 8-bit activations, which adds error that a weights-only measurement does not see
+    /// (observed with Microsoft.ML.OnnxRuntime 1.31; see QdqExporterTests).
+    /// </summary>
+    public const string MatMulNote =
+        "MatMul weights are stored as DequantizeLinear+MatMul. ONNX Runtime on CPU fuses that pair and, at its default accuracy level, " +
+        "also quantizes the MatMul's activations to 8 bits, which adds error beyond what was measured here (weights only). " +
+        "To run as measured, set the session option " + MatMulAccuracyOption + "=1; otherwise re-measure with your runtime's settings.";
+
     /// <summary>Exports <paramref name="model"/> with each layer stored as <paramref name="assignment"/> says (by layer name; missing layers stay FP32).</summary>
     public static ExportedModel Export(OnnxModel model, IReadOnlyDictionary<string, LayerSetting> assignment)
     {
@@ -91,7 +104,8 @@ public static class QdqExporter
             graph.Node.Insert(0, dequantizers[i]);
         }
 
-        return new ExportedModel(proto.ToByteArray(), "qdq", model.Opset, null);
+        var quantizedMatMul = model.Layers.Any(l => l.Op == "MatMul" && assignment.TryGetValue(l.Name, out var s) && BitWidths.IsInteger(s.Bits));
+        return new ExportedModel(proto.ToByteArray(), "qdq", model.Opset, quantizedMatMul ? MatMulNote : null);
     }
 
     /// <summary>The integer type a setting is stored in at a given opset.</summary>
