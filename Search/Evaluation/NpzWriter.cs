@@ -2,9 +2,18 @@ using System.IO.Compression;
 
 namespace Bitbudget.Search.Evaluation;
 
-/// <summary>Writes arrays as a NumPy .npz archive: one member <c>name.npy</c> per array.</summary>
+/// <summary>
+/// Writes arrays as a NumPy .npz archive: one member <c>name.npy</c> per array. Every member carries
+/// the same fixed time stamp, so the same arrays always give the same bytes.
+/// </summary>
 public static class NpzWriter
 {
+    /// <summary>
+    /// The time stamp of every member: 1980-01-01 00:00, the earliest an MS-DOS (ZIP) date can hold.
+    /// A clock time would make two writes of the same arrays differ.
+    /// </summary>
+    public static DateTimeOffset EntryTime { get; } = new(1980, 1, 1, 0, 0, 0, TimeSpan.Zero);
+
     /// <summary>
     /// Writes <paramref name="arrays"/> to <paramref name="stream"/>, deflated (as np.savez_compressed)
     /// or stored (as np.savez). The stream is left open.
@@ -24,6 +33,7 @@ public static class NpzWriter
         foreach (var array in arrays)
         {
             var entry = archive.CreateEntry(array.Name + ".npy", compress ? CompressionLevel.Optimal : CompressionLevel.NoCompression);
+            entry.LastWriteTime = EntryTime;
             using var member = entry.Open();
             NpyWriter.Write(member, array);
         }

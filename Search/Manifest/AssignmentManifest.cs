@@ -47,14 +47,14 @@ public sealed record ManifestBudget(string Kind, string Metric, double? AtLeast,
 public sealed record ManifestOutcome(bool Feasible, string Message, int ValidationRounds);
 
 /// <summary>Totals of the chosen assignment.</summary>
-/// <param name="Predicted">The budget metric as the additive model predicts it.</param>
+/// <param name="Predicted">The budget metric as the additive model predicts it; null when infinite (SQNR of an assignment with no predicted error, e.g. every layer kept FP32).</param>
 /// <param name="Measured">Every metric, measured end to end.</param>
 public sealed record ManifestTotals(
     long Bytes,
     long Float32Bytes,
     double AverageBits,
     double Compression,
-    double Predicted,
+    double? Predicted,
     ManifestMetrics Measured);
 
 /// <summary>Output metrics as stored in the manifest (SQNR in dB; infinity written as null).</summary>

@@ -8,5 +8,5 @@ namespace Bitbudget.Search.Planning;
 public sealed record FrontierDocument(string Metric, string AdditiveModel, IReadOnlyList<string> Layers, int TotalPoints, IReadOnlyList<FrontierPoint> Points);
 
 /// <summary>One Pareto-optimal assignment under the additive model.</summary>
-/// <param name="Predicted">The budget metric the additive model predicts.</param>
-public sealed record FrontierPoint(long Bytes, double AverageBits, double AdditiveError, double Predicted, IReadOnlyList<int> Bits);
+/// <param name="Predicted">The budget metric the additive model predicts; null when infinite (SQNR of the zero-error point, e.g. all FP32).</param>
+public sealed record FrontierPoint(long Bytes, double AverageBits, double AdditiveError, double? Predicted, IReadOnlyList<int> Bits);

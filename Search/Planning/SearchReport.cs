@@ -52,7 +52,7 @@ internal sealed class SearchReport(
             problem.Float32Bytes,
             chosen.Bytes * 8.0 / problem.TotalParameters,
             problem.Float32Bytes / (double)chosen.Bytes,
-            AdditiveError.FromAdditive(metric, chosen.PredictedAdditive, reference),
+            Finite(AdditiveError.FromAdditive(metric, chosen.PredictedAdditive, reference)),
             Metrics(chosen.Measured));
         var export = exported is null ? null : new ManifestExport(exported.Format, exported.Opset, exported.Note);
         return new AssignmentManifest(
@@ -126,7 +126,7 @@ internal sealed class SearchReport(
                     bytes,
                     bytes * 8.0 / problem.TotalParameters,
                     p.Error,
-                    AdditiveError.FromAdditive(metric, p.Error, reference),
+                    Finite(AdditiveError.FromAdditive(metric, p.Error, reference)),
                     p.ChoiceIndex.Select((c, i) => problem.Layers[i].Choices[c].Bits).ToList());
             }).ToList());
     }
@@ -190,6 +190,9 @@ internal sealed class SearchReport(
         m.KlDivergence,
         m.CosineSimilarity,
         m.Accuracy);
+
+    // JSON has no infinity: an infinite SQNR (no error predicted) is written as null, as ManifestMetrics.SqnrDb is.
+    private static double? Finite(double value) => double.IsFinite(value) ? value : null;
 
     private static string Wire<T>(T value)
         where T : struct, Enum => WireNames.Format(value);

@@ -65,7 +65,7 @@ internal static class PlanCommand
         File.WriteAllBytes(Path.Combine(args.Out, "manifest.json"), result.ManifestJson);
         File.WriteAllText(Path.Combine(args.Out, "sensitivity.csv"), result.SensitivityCsv);
         File.WriteAllText(Path.Combine(args.Out, "frontier.json"), result.FrontierJson);
-        File.WriteAllBytes(Path.Combine(args.Out, "trials.json"), ManifestJson.Serialize(store.LoadAll().Values.OrderBy(t => t.Key, StringComparer.Ordinal).ToList()));
+        File.WriteAllBytes(Path.Combine(args.Out, "trials.json"), ManifestJson.Serialize(Trials(store)));
         if (result.QuantizedModel is { } quantized)
         {
             File.WriteAllBytes(Path.Combine(args.Out, "model.quantized.onnx"), quantized);
@@ -76,6 +76,31 @@ internal static class PlanCommand
         Console.Out.WriteLine($"{result.TrialCount} trials in {clock.Elapsed.TotalSeconds:0.0} s; artifacts in {Path.GetFullPath(args.Out)}");
         return result.Feasible ? 0 : 3;
     }
+
+    /// <summary>
+    /// The stored trials in key order, metrics in the manifest's form: JSON has no infinity, and the
+    /// reference trial (and any lossless one) has an infinite SQNR, which is written as null.
+    /// </summary>
+    private static List<object> Trials(InMemoryTrialStore store) =>
+        store.LoadAll().Values
+            .OrderBy(t => t.Key, StringComparer.Ordinal)
+            .Select(object (t) => new
+            {
+                t.Key,
+                t.Kind,
+                t.Layer,
+                t.Bits,
+                t.AssignmentHash,
+                Metrics = new ManifestMetrics(
+                    t.Metrics.RelativeMse,
+                    double.IsFinite(t.Metrics.SqnrDb) ? t.Metrics.SqnrDb : null,
+                    t.Metrics.Top1Agreement,
+                    t.Metrics.KlDivergence,
+                    t.Metrics.CosineSimilarity,
+                    t.Metrics.Accuracy),
+                t.DurationMs,
+            })
+            .ToList();
 
     private static string Summary(AssignmentManifest manifest, SearchResult result)
     {

@@ -1,5 +1,7 @@
 using System.Diagnostics;
 using System.Globalization;
+using Bitbudget.Search;
+using Bitbudget.Search.Evaluation;
 
 namespace Bitbudget.Service.Demo;
 
@@ -47,9 +49,9 @@ internal static class HiveMonitorScenario
         {
             Write(outputFolder, ModelFileName, HiveNetExporter.Export(network),
                 $"FP32 classifier, input '{HiveNetExporter.InputName}' [batch,1,16,16] -> '{HiveNetExporter.OutputName}' [batch,4], opset {HiveNetExporter.Opset}"),
-            Write(outputFolder, CalibrationFileName, DemoArrays.SampleSetNpz(calibration),
+            Write(outputFolder, CalibrationFileName, SampleSetNpz(calibration),
                 $"calibration set: spectrogram [{CalibrationCount},1,16,16] float32, labels [{CalibrationCount}] int64"),
-            Write(outputFolder, HoldoutFileName, DemoArrays.SampleSetNpz(holdout),
+            Write(outputFolder, HoldoutFileName, SampleSetNpz(holdout),
                 $"held-out set: spectrogram [{HoldoutCount},1,16,16] float32, labels [{HoldoutCount}] int64"),
             Write(outputFolder, ReadmeFileName, System.Text.Encoding.UTF8.GetBytes(Readme(holdoutAccuracy)),
                 "what the setting is and what each file holds"),
@@ -57,6 +59,20 @@ internal static class HiveMonitorScenario
 
         clock.Stop();
         return new DemoResult(files, epochs, network, calibration, holdout, holdoutAccuracy, clock.Elapsed);
+    }
+
+    /// <summary>A sample set as .npz bytes: "spectrogram" float32 [count,1,16,16] and "labels" int64 [count], deflated.</summary>
+    internal static byte[] SampleSetNpz(HiveSoundSet set)
+    {
+        // NpzWriter stamps every member with a fixed time, which keeps the demo files byte-identical run to run.
+        using var buffer = new MemoryStream();
+        NpzWriter.Write(
+            buffer,
+            [
+                new NpyArray("spectrogram", ElementType.Float32, [.. set.Shape.Select(d => (long)d)], set.Spectrograms),
+                new NpyArray("labels", ElementType.Int64, [set.Count], set.Labels),
+            ]);
+        return buffer.ToArray();
     }
 
     private static DemoFile Write(string folder, string name, byte[] bytes, string contents)

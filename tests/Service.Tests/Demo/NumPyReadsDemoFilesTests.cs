@@ -1,12 +1,14 @@
 using System.Globalization;
 using System.Text.Json;
+using Bitbudget.Search;
+using Bitbudget.Search.Evaluation;
 using Bitbudget.Service.Demo;
 
 namespace Bitbudget.Service.Tests.Demo;
 
 /// <summary>
 /// Outside check: NumPy (Debian's python3-numpy, numpy.load) reads the files the demo writes and
-/// the small writer's output for edge shapes; shapes, dtypes, label counts and sums must match C#.
+/// the shared .npz writer's output (NpzWriter, which the demo uses) for edge shapes; shapes, dtypes, label counts and sums must match C#.
 /// </summary>
 [Collection(DemoFolderCollection.Name)]
 public sealed class NumPyReadsDemoFilesTests(DemoFolderFixture demo)
@@ -69,11 +71,16 @@ public sealed class NumPyReadsDemoFilesTests(DemoFolderFixture demo)
         float[] floats = Enumerable.Range(0, length).Select(i => (float)((i * 0.37) - 3.1)).ToArray();
         long[] longs = Enumerable.Range(0, length).Select(i => ((long)i * 1_000_000_007L) - 5).ToArray();
         string path = Path.Combine(demo.Folder, $"edge-{string.Join('x', shape)}.npz");
-        File.WriteAllBytes(path, DemoArrays.Npz(
-        [
-            new("floats", DemoArrays.Float32Npy(floats, shape)),
-            new("longs", DemoArrays.Int64Npy(longs, shape)),
-        ]));
+        long[] dims = shape.Select(d => (long)d).ToArray();
+        using (FileStream file = File.Create(path))
+        {
+            NpzWriter.Write(
+                file,
+                [
+                    new NpyArray("floats", ElementType.Float32, dims, floats),
+                    new NpyArray("longs", ElementType.Int64, dims, longs),
+                ]);
+        }
 
         JsonElement described = Describe(path);
         JsonElement f = described.GetProperty("floats");

@@ -1,0 +1,123 @@
+using System.Text.Json;
+using Bitbudget.Service.Demo;
+using Microsoft.ML.OnnxRuntime;
+using Microsoft.ML.OnnxRuntime.Tensors;
+using P = global::Onnx;
+
+namespace Bitbudget.Service.Tests.Commands;
+
+/// <summary>
+/// <c>plan</c> run in-process on the generated demo. Outside check: ONNX Runtime (Microsoft.ML.OnnxRuntime)
+/// loads the written QDQ model, and the SQNR of its outputs against ONNX Runtime's outputs of the FP32
+/// model, computed here from scratch, must equal what the manifest claims.
+/// </summary>
+[Collection(ConsoleCollection.Name)]
+public sealed class PlanCommandTests(PlanDemoFixture fixture) : IClassFixture<PlanDemoFixture>
+{
+    private static readonly string[] Artifacts = ["manifest.json", "model.quantized.onnx", "sensitivity.csv", "frontier.json", "trials.json"];
+
+    [Fact]
+    public void PlanOnTheDemoExitsZeroAndWritesEveryArtifact()
+    {
+        var run = fixture.Plan;
+        Assert.True(run.ExitCode == 0, run.ToString());
+        Assert.Empty(run.ErrorLinesStartingWithError);
+        foreach (var name in Artifacts)
+        {
+            var path = Path.Combine(fixture.PlanFolder, name);
+            Assert.True(File.Exists(path) && new FileInfo(path).Length > 0, $"{name} is missing or empty.\n{run}");
+        }
+
+        using var manifest = ReadJson("manifest.json");
+        var layers = manifest.RootElement.GetProperty("layers");
+        Assert.Equal(4, layers.GetArrayLength());
+        Assert.All(layers.EnumerateArray(), l => Assert.Contains(l.GetProperty("bits").GetInt32(), new[] { 2, 4, 8 }));
+        Assert.True(manifest.RootElement.GetProperty("outcome").GetProperty("feasible").GetBoolean());
+
+        // One CSV row per layer and candidate width, after the header.
+        var csv = File.ReadAllLines(Path.Combine(fixture.PlanFolder, "sensitivity.csv"));
+        Assert.StartsWith("layer,op,parameters,bits", csv[0], StringComparison.Ordinal);
+        Assert.Equal(1 + (4 * 3), csv.Length);
+
+        using var trials = ReadJson("trials.json");
+        Assert.Equal(manifest.RootElement.GetProperty("trials").GetInt32(), trials.RootElement.GetArrayLength());
+        using var frontier = ReadJson("frontier.json");
+        Assert.True(frontier.RootElement.GetProperty("points").GetArrayLength() > 1);
+        Assert.Contains("25.", run.Out, StringComparison.Ordinal);
+    }
+
+    [Fact]
+    public void QuantizedModelRunsInOnnxRuntimeAndGivesTheSqnrTheManifestClaims()
+    {
+        using var manifest = ReadJson("manifest.json");
+        var claimed = manifest.RootElement.GetProperty("totals").GetProperty("measured").GetProperty("sqnrDb").GetDouble();
+        Assert.True(claimed >= 25, $"The manifest claims {claimed} dB against a 25 dB budget.");
+
+        var quantizedBytes = File.ReadAllBytes(Path.Combine(fixture.PlanFolder, "model.quantized.onnx"));
+        var proto = P.ModelProto.Parser.ParseFrom(quantizedBytes);
+        Assert.Equal(
+            manifest.RootElement.GetProperty("layers").GetArrayLength(),
+            proto.Graph.Node.Count(n => n.OpType == "DequantizeLinear"));
+
+        var calibration = fixture.Demo.Calibration;
+        var reference = Outputs(File.ReadAllBytes(fixture.ModelPath), calibration);
+        var quantized = Outputs(quantizedBytes, calibration);
+        Assert.Equal(reference.Length, quantized.Length);
+        Assert.Equal(HiveMonitorScenario.CalibrationCount * 4, reference.Length);
+
+        // SQNR = 10 log10(signal power / noise power) over every output value of the calibration set.
+        double signal = 0, noise = 0;
+        for (var i = 0; i < reference.Length; i++)
+        {
+            signal += (double)reference[i] * reference[i];
+            var d = (double)quantized[i] - reference[i];
+            noise += d * d;
+        }
+
+        Assert.True(noise > 0, "The quantized model gives exactly the FP32 outputs; nothing was quantized.");
+        var sqnrDb = 10 * Math.Log10(signal / noise);
+        Assert.True(Math.Abs(sqnrDb - claimed) <= 0.01, $"ONNX Runtime gives {sqnrDb:F4} dB; the manifest claims {claimed:F4} dB.");
+    }
+
+    [Theory]
+    [InlineData("sqnr<=30", "sqnr>=30")]
+    [InlineData("foo>=1", "sqnr>=30")]
+    public async Task BadBudgetExits2WithOneErrorLineNamingTheRightForm(string budget, string rightForm)
+    {
+        var run = await CommandRun.RunAsync(
+            "plan", "--model", fixture.ModelPath, "--data", fixture.CalibrationPath, "--budget", budget, "--out", Path.Combine(fixture.Folder, "bad"));
+
+        Assert.True(run.ExitCode == 2, run.ToString());
+        var line = Assert.Single(run.ErrorLinesStartingWithError);
+        Assert.Contains(rightForm, line, StringComparison.Ordinal);
+        Assert.Contains(budget.Split('<', '>')[0], line, StringComparison.Ordinal);
+        Assert.False(Directory.Exists(Path.Combine(fixture.Folder, "bad")), "A refused budget must write nothing.");
+    }
+
+    [Fact]
+    public async Task InfeasibleBudgetExits3AndSaysWhy()
+    {
+        var outFolder = Path.Combine(fixture.Folder, "infeasible");
+        var run = await CommandRun.RunAsync(
+            "plan", "--model", fixture.ModelPath, "--data", fixture.CalibrationPath, "--budget", "sqnr>=150", "--bits", "2,4,8", "--out", outFolder);
+
+        Assert.True(run.ExitCode == 3, run.ToString());
+        Assert.Contains("Infeasible", run.Out, StringComparison.Ordinal);
+        Assert.Contains("150.0 dB", run.Out, StringComparison.Ordinal);
+        using var manifest = JsonDocument.Parse(File.ReadAllBytes(Path.Combine(outFolder, "manifest.json")));
+        Assert.False(manifest.RootElement.GetProperty("outcome").GetProperty("feasible").GetBoolean());
+        Assert.Contains(manifest.RootElement.GetProperty("outcome").GetProperty("message").GetString()!, run.Out, StringComparison.Ordinal);
+        Assert.Equal(JsonValueKind.Null, manifest.RootElement.GetProperty("totals").ValueKind);
+        Assert.False(File.Exists(Path.Combine(outFolder, "model.quantized.onnx")));
+    }
+
+    private JsonDocument ReadJson(string name) => JsonDocument.Parse(File.ReadAllBytes(Path.Combine(fixture.PlanFolder, name)));
+
+    private static float[] Outputs(byte[] model, HiveSoundSet set)
+    {
+        using var session = new InferenceSession(model);
+        var input = new DenseTensor<float>(set.Spectrograms, set.Shape);
+        using var results = session.Run([NamedOnnxValue.CreateFromTensor(HiveNetExporter.InputName, input)]);
+        return results.Single(r => r.Name == HiveNetExporter.OutputName).AsEnumerable<float>().ToArray();
+    }
+}
