@@ -158,7 +158,7 @@ internal sealed class SearchReport(
             Wire(granularity),
             granularity == Granularity.PerChannel ? layer.ChannelAxis : -1,
             Wire(settings.Clip),
-            bits is { } b ? CostModel.LayerBytes(layer.ParameterCount, layer.Channels, b, settings.Scheme, settings.Granularity) : 0,
+            bits is { } b ? CostModel.LayerBytes(layer.ParameterCount, layer.Channels, b, setting!.Scheme, setting.Granularity) : 0,
             excluded,
             settings.Pins?.ContainsKey(layer.Name) ?? false,
             sensitivity);
