@@ -75,12 +75,13 @@ internal static class BenchmarkRun
 
         if (session.SuffixAvailable)
         {
-            var late = model.Layers[^1];
-            var weight = session.Quantized(late, setting);
-            session.RunSuffix(late, weight);
-            var suffixMs = Timing.MedianMilliseconds(repeat, () => session.RunSuffix(late, weight));
-            var fullMs = Timing.MedianMilliseconds(repeat, () => session.RunFull(new Dictionary<string, float[]> { [late.Name] = weight }));
-            Row($"suffix trial vs full trial (last layer '{late.Name}')", suffixMs, fullMs);
+            foreach (var late in new[] { model.Layers[model.Layers.Count / 2], model.Layers[^1] }.Distinct())
+            {
+                var weight = session.Quantized(late, setting);
+                var suffixMs = Timing.MedianMilliseconds(repeat, () => session.RunSuffix(late, weight));
+                var fullMs = Timing.MedianMilliseconds(repeat, () => session.RunFull(new Dictionary<string, float[]> { [late.Name] = weight }));
+                Row($"suffix trial vs full trial (layer '{late.Name}')", suffixMs, fullMs);
+            }
         }
 
         var bits = new[] { 2, 3, 4, 5, 6, 8 };
@@ -151,7 +152,7 @@ internal static class BenchmarkRun
     }
 
     private static void Row(string what, double ours, double baseline) =>
-        Console.WriteLine($"{what,-70} {ours,9:0.0} ms vs {baseline,9:0.0} ms  ratio {ours / baseline:0.00}");
+        Console.WriteLine($"{what,-70} {ours,9:0.00} ms vs {baseline,9:0.00} ms  ratio {ours / baseline:0.00}");
 
     private static string? Option(string[] args, string name)
     {
