@@ -41,6 +41,8 @@ public static class QdqExporter
     /// Exports <paramref name="model"/> with each layer stored as <paramref name="assignment"/> says (by layer name;
     /// missing layers stay FP32). With <paramref name="activations"/>, every layer at an integer bit width also
     /// gets QuantizeLinear/DequantizeLinear (uint8, per-tensor) on its input activation; that needs opset 13.
+    /// Run unoptimised, such a model reproduces the validation trial exactly; with ONNX Runtime's default
+    /// optimisations it stays within a relative MSE of about 1e-5 of it (measured on the demo model's Conv and Gemm layers).
     /// </summary>
     public static ExportedModel Export(
         OnnxModel model,

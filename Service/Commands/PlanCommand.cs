@@ -12,7 +12,7 @@ namespace Bitbudget.Service.Commands;
 /// <summary>
 /// <c>plan --model M.onnx --data D.npz --budget "sqnr&gt;=30" [--bits 2,3,4,6,8] [--method knapsack|greedy]
 /// [--scheme symmetric|asymmetric] [--granularity per-channel|per-tensor] [--clip min-max|percentile|mse-optimal|analytic-laplace|analytic-gaussian]
-/// [--pin LAYER=BITS]... [--exclude LAYER]... [--out DIR]</c>: the whole search locally, writing the
+/// [--pin LAYER=BITS]... [--exclude LAYER]... [--activations] [--out DIR]</c>: the whole search locally, writing the
 /// manifest, the quantized model, the sensitivity CSV and the frontier into DIR.
 /// </summary>
 internal static class PlanCommand
@@ -20,7 +20,7 @@ internal static class PlanCommand
     private const string Usage =
         "usage: plan --model M.onnx --data D.npz --budget \"sqnr>=30\" [--bits 2,3,4,6,8] [--method knapsack|greedy] " +
         "[--scheme symmetric|asymmetric] [--granularity per-channel|per-tensor] [--clip min-max|percentile|mse-optimal|analytic-laplace|analytic-gaussian] " +
-        "[--pin LAYER=BITS]... [--exclude LAYER]... [--out DIR]";
+        "[--pin LAYER=BITS]... [--exclude LAYER]... [--activations] [--out DIR]";
 
     public static Task<int> RunAsync(string[] args)
     {
@@ -65,7 +65,9 @@ internal static class PlanCommand
         File.WriteAllBytes(Path.Combine(args.Out, "manifest.json"), result.ManifestJson);
         File.WriteAllText(Path.Combine(args.Out, "sensitivity.csv"), result.SensitivityCsv);
         File.WriteAllText(Path.Combine(args.Out, "frontier.json"), result.FrontierJson);
-        File.WriteAllBytes(Path.Combine(args.Out, "trials.json"), ManifestJson.Serialize(store.LoadAll().Values.OrderBy(t => t.Key, StringComparer.Ordinal).ToList()));
+        // The reference trial compares the reference with itself: its SQNR is infinite, which strict JSON numbers cannot hold.
+        var trialOptions = new System.Text.Json.JsonSerializerOptions(ManifestJson.Options) { NumberHandling = System.Text.Json.Serialization.JsonNumberHandling.AllowNamedFloatingPointLiterals };
+        File.WriteAllBytes(Path.Combine(args.Out, "trials.json"), System.Text.Json.JsonSerializer.SerializeToUtf8Bytes(store.LoadAll().Values.OrderBy(t => t.Key, StringComparer.Ordinal).ToList(), trialOptions));
         if (result.QuantizedModel is { } quantized)
         {
             File.WriteAllBytes(Path.Combine(args.Out, "model.quantized.onnx"), quantized);

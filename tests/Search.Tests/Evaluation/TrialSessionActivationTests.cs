@@ -124,6 +124,18 @@ public sealed class TrialSessionActivationTests
     }
 
     [Fact]
+    public void PercentileCalibrationRefusesToKeepMoreActivationValuesThanAllowed()
+    {
+        var model = SmallModels.Mlp();
+        var options = new TrialSessionOptions(MaxCachedActivationBytes: 4096, Activations: ActivationCalibration.Percentile);
+
+        var error = Assert.Throws<EngineException>(() => TrialSession.Open(model, SmallModels.MlpData(model), options));
+
+        Assert.Equal("activations-too-large", error.Code);
+        Assert.Contains("min-max", error.Message);
+    }
+
+    [Fact]
     public void SessionBelowOpset13RefusesActivationQuantization()
     {
         var model = SmallModels.Mlp(opset: 11);

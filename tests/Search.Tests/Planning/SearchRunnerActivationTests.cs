@@ -1,5 +1,6 @@
 using Bitbudget.Search.Evaluation;
 using Bitbudget.Search.Manifest;
+using Bitbudget.Search.Onnx;
 using Bitbudget.Search.Planning;
 using Bitbudget.Search.Quantization;
 using Bitbudget.Search.Tests.Support;
@@ -80,6 +81,21 @@ public sealed class SearchRunnerActivationTests
         Assert.Contains("needs opset 13; the model's opset is 11", error.Message);
         Assert.Contains("never raised", error.Message);
         Assert.Empty(store.LoadAll());
+    }
+
+    [Fact]
+    public void ActivationsOfALayerInsideAnIfBodyAreRefusedUnlessTheLayerIsExcluded()
+    {
+        var model = OnnxModel.Load(Onnx.WeightLocationTests.IfModel(), "if");
+        // The If model's scalar condition cannot come from a dataset; the validator reads a dataset only for its labels.
+        var data = SmallModels.MlpData(SmallModels.Mlp());
+        var settings = new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 25), Bits, QuantizeActivations: true);
+
+        var error = Assert.Throws<EngineException>(() => SearchSettingsValidator.Validate(model, data, settings));
+
+        Assert.Equal("settings-invalid", error.Code);
+        Assert.Contains("'choose/then_branch/fc'", error.Message);
+        SearchSettingsValidator.Validate(model, data, settings with { Excluded = [model.Layers[0].Name] });
     }
 
     [Fact]
