@@ -1,8 +1,10 @@
 using System.Diagnostics;
+using System.Numerics.Tensors;
 using Bitbudget.Search.Onnx;
 using Bitbudget.Search.Quantization;
 using Google.Protobuf;
 using Microsoft.ML.OnnxRuntime;
+using Microsoft.ML.OnnxRuntime.Tensors;
 
 namespace Bitbudget.Search.Evaluation;
 
@@ -12,6 +14,9 @@ namespace Bitbudget.Search.Evaluation;
 /// perturbed weights and runs forward; no session is rebuilt per trial. For a single perturbed layer
 /// the session can also run only the graph downstream of that layer, fed from activations cached by
 /// the reference run (see <see cref="GraphSlicer"/>), when that is estimated to be cheaper.
+/// With <see cref="TrialSessionOptions.Activations"/> set, the input activation of every layer is
+/// calibrated on the calibration set and put behind a per-layer switch (see <see cref="ActivationQdq"/>),
+/// so a trial quantizes the activations of exactly the layers whose weights it quantizes.
 /// </summary>
 public sealed class TrialSession : IDisposable
 {
@@ -28,6 +33,10 @@ public sealed class TrialSession : IDisposable
     private readonly GraphSlicer _slicer;
     private readonly List<Dictionary<string, OrtValue>>? _cachedActivations;
     private readonly Dictionary<string, (int ElementType, int Rank)> _activationTypes = new(StringComparer.Ordinal);
+    private readonly HashSet<string> _switchedLayers = new(StringComparer.Ordinal);
+    private readonly HashSet<string> _switchNames = new(StringComparer.Ordinal);
+    private readonly OrtValue? _switchOff;
+    private readonly OrtValue? _switchOn;
     private (string Layer, InferenceSession Session)? _suffix;
 
     private TrialSession(OnnxModel model, CalibrationSet data, TrialSessionOptions options)
@@ -43,18 +52,34 @@ public sealed class TrialSession : IDisposable
         }
 
         var weightsAsInputs = global::Onnx.ModelProto.Parser.ParseFrom(model.BuildWeightsAsInputs());
-        _slicer = new GraphSlicer(weightsAsInputs);
-
-        var build = Stopwatch.StartNew();
-        _full = new InferenceSession(weightsAsInputs.ToByteArray(), _sessionOptions);
-        SessionBuildMilliseconds = build.Elapsed.TotalMilliseconds;
-
         _fp32ByLayer = model.Layers.ToDictionary(l => l.Name, model.GetWeight, StringComparer.Ordinal);
         _fp32Values = model.Layers.ToDictionary(
             l => l.WeightName,
             l => OrtTensors.Wrap(_fp32ByLayer[l.Name], l.Shape.ToArray()),
             StringComparer.Ordinal);
         _dataFeeds = BuildDataFeeds();
+
+        var runModel = weightsAsInputs;
+        Activations = [];
+        if (options.Activations is { } calibration)
+        {
+            if (model.Opset < ActivationQuantization.MinimumOpset)
+            {
+                throw new EngineException("settings-invalid", ActivationQuantization.OpsetMessage(model.Opset));
+            }
+
+            Activations = Calibrate(weightsAsInputs, calibration);
+            _switchedLayers.UnionWith(Activations.Select(a => a.Layer));
+            _switchNames.UnionWith(_switchedLayers.Select(ActivationQdq.SwitchName));
+            _switchOff = OrtValue.CreateTensorValueFromMemory(new[] { false }, []);
+            _switchOn = OrtValue.CreateTensorValueFromMemory(new[] { true }, []);
+            runModel = ActivationQdq.WithSwitches(weightsAsInputs, Activations);
+        }
+
+        _slicer = new GraphSlicer(runModel);
+        var build = Stopwatch.StartNew();
+        _full = new InferenceSession(runModel.ToByteArray(), _sessionOptions);
+        SessionBuildMilliseconds = build.Elapsed.TotalMilliseconds;
 
         var pass = Stopwatch.StartNew();
         ReferenceOutputs = Run(_full, _full.OutputNames, feedsOverride: null, extraFeeds: null);
@@ -82,6 +107,12 @@ public sealed class TrialSession : IDisposable
     /// <summary>True when cut-set activations are cached, so single-layer trials may run a suffix.</summary>
     public bool SuffixAvailable => _cachedActivations is not null;
 
+    /// <summary>
+    /// The calibrated 8-bit quantization of each layer's input activation (one entry per consumer node of
+    /// the main graph); empty when activation quantization is off.
+    /// </summary>
+    public IReadOnlyList<ActivationQuantization> Activations { get; }
+
     /// <summary>Opens a session for <paramref name="model"/> and runs the FP32 reference on <paramref name="data"/>.</summary>
     public static TrialSession Open(OnnxModel model, CalibrationSet data, TrialSessionOptions? options = null)
     {
@@ -104,19 +135,28 @@ public sealed class TrialSession : IDisposable
         return result;
     }
 
-    /// <summary>Measures a whole assignment end to end; layers not named stay FP32.</summary>
+    /// <summary>
+    /// Measures a whole assignment end to end; layers not named stay FP32. With activation quantization on,
+    /// every layer at an integer bit width also gets its input activation quantized.
+    /// </summary>
     public MetricSet MeasureAssignment(IReadOnlyDictionary<string, LayerSetting> assignment)
     {
         var weights = new Dictionary<string, float[]>(StringComparer.Ordinal);
+        var activations = new List<string>();
         foreach (var (name, setting) in assignment)
         {
             if (setting.Bits != BitWidths.Float32)
             {
                 weights[name] = Quantized(Layer(name), setting);
             }
+
+            if (QuantizesActivation(setting))
+            {
+                activations.Add(name);
+            }
         }
 
-        return OutputComparer.Compare(ReferenceOutputs, RunFull(weights), _data.Labels);
+        return OutputComparer.Compare(ReferenceOutputs, RunFull(weights, activations), _data.Labels);
     }
 
     /// <summary>
@@ -127,29 +167,37 @@ public sealed class TrialSession : IDisposable
     public MetricSet MeasureLayer(WeightLayer layer, LayerSetting setting, int trialsForLayer = 1, bool allowSuffix = true)
     {
         var weight = Quantized(layer, setting);
+        var activation = QuantizesActivation(setting);
         var outputs = allowSuffix && PrefersSuffix(layer, trialsForLayer)
-            ? RunSuffix(layer, weight)
-            : RunFull(new Dictionary<string, float[]>(StringComparer.Ordinal) { [layer.Name] = weight });
+            ? RunSuffix(layer, weight, activation)
+            : RunFull(new Dictionary<string, float[]>(StringComparer.Ordinal) { [layer.Name] = weight }, activation ? [layer.Name] : null);
         return OutputComparer.Compare(ReferenceOutputs, outputs, _data.Labels);
     }
 
-    /// <summary>Runs the whole model with some layers' weights replaced (by layer name).</summary>
-    public IReadOnlyList<OutputTensor> RunFull(IReadOnlyDictionary<string, float[]> weightsByLayer)
+    /// <summary>
+    /// Runs the whole model with some layers' weights replaced (by layer name) and, when activation
+    /// quantization is on, the input activations of <paramref name="activationLayers"/> quantized.
+    /// </summary>
+    public IReadOnlyList<OutputTensor> RunFull(IReadOnlyDictionary<string, float[]> weightsByLayer, IReadOnlyCollection<string>? activationLayers = null)
     {
-        var overrides = new Dictionary<string, OrtValue>(StringComparer.Ordinal);
+        var owned = new List<OrtValue>();
         try
         {
+            var overrides = new Dictionary<string, OrtValue>(StringComparer.Ordinal);
             foreach (var (name, weight) in weightsByLayer)
             {
                 var layer = Layer(name);
-                overrides[layer.WeightName] = OrtTensors.Wrap(weight, layer.Shape.ToArray());
+                var value = OrtTensors.Wrap(weight, layer.Shape.ToArray());
+                owned.Add(value);
+                overrides[layer.WeightName] = value;
             }
 
+            SwitchOn(overrides, activationLayers ?? []);
             return Run(_full, _full.OutputNames, overrides, extraFeeds: null);
         }
         finally
         {
-            foreach (var value in overrides.Values)
+            foreach (var value in owned)
             {
                 value.Dispose();
             }
@@ -168,7 +216,7 @@ public sealed class TrialSession : IDisposable
             return false;
         }
 
-        var position = _slicer.FirstReader(layer.WeightName);
+        var position = CutPosition(layer);
         if (position <= 0)
         {
             return false;
@@ -178,8 +226,8 @@ public sealed class TrialSession : IDisposable
         return trials * ForwardPassMilliseconds * skippedShare > SessionBuildMilliseconds;
     }
 
-    /// <summary>Runs only the graph downstream of <paramref name="layer"/>, with its weight replaced.</summary>
-    internal IReadOnlyList<OutputTensor> RunSuffix(WeightLayer layer, float[] weight)
+    /// <summary>Runs only the graph downstream of <paramref name="layer"/>, with its weight replaced (and its activation quantized when asked).</summary>
+    internal IReadOnlyList<OutputTensor> RunSuffix(WeightLayer layer, float[] weight, bool quantizeActivation = false)
     {
         if (_cachedActivations is null)
         {
@@ -189,6 +237,7 @@ public sealed class TrialSession : IDisposable
         var session = SuffixSession(layer);
         using var value = OrtTensors.Wrap(weight, layer.Shape.ToArray());
         var overrides = new Dictionary<string, OrtValue>(StringComparer.Ordinal) { [layer.WeightName] = value };
+        SwitchOn(overrides, quantizeActivation ? [layer.Name] : []);
         var suffixOutputs = Run(session, session.OutputNames, overrides, _cachedActivations);
         var byName = suffixOutputs.ToDictionary(o => o.Name, StringComparer.Ordinal);
 
@@ -202,6 +251,8 @@ public sealed class TrialSession : IDisposable
         _full.Dispose();
         _runOptions.Dispose();
         _sessionOptions.Dispose();
+        _switchOff?.Dispose();
+        _switchOn?.Dispose();
         foreach (var value in _fp32Values.Values)
         {
             value.Dispose();
@@ -228,11 +279,145 @@ public sealed class TrialSession : IDisposable
         // Sweeps go layer by layer, so one suffix session at a time is enough.
         _suffix?.Session.Dispose();
         _suffix = null;
-        var position = _slicer.FirstReader(layer.WeightName);
+        var position = CutPosition(layer);
         var suffix = _slicer.Suffix(position, _activationTypes);
         var session = new InferenceSession(suffix.ToByteArray(), _sessionOptions);
         _suffix = (layer.Name, session);
         return session;
+    }
+
+    private bool QuantizesActivation(LayerSetting setting) =>
+        _options.Activations is not null && BitWidths.IsInteger(setting.Bits);
+
+    private bool IsSwitch(string name) => _switchNames.Contains(name);
+
+    private void SwitchOn(Dictionary<string, OrtValue> overrides, IEnumerable<string> layers)
+    {
+        foreach (var name in layers)
+        {
+            if (_switchOn is null || !_switchedLayers.Contains(name))
+            {
+                throw new EngineException(
+                    "activations-unavailable",
+                    $"The activation of layer '{name}' cannot be quantized: activation quantization is off for this session, or the layer sits inside an If/Loop/Scan body.");
+            }
+
+            overrides[ActivationQdq.SwitchName(name)] = _switchOn;
+        }
+    }
+
+    /// <summary>Where a suffix for <paramref name="layer"/> starts: its first weight reader, or its activation switch when that comes first.</summary>
+    private int CutPosition(WeightLayer layer)
+    {
+        var position = _slicer.FirstReader(layer.WeightName);
+        if (_switchedLayers.Contains(layer.Name))
+        {
+            var switchPosition = _slicer.FirstReader(ActivationQdq.SwitchName(layer.Name));
+            if (switchPosition >= 0 && (position < 0 || switchPosition < position))
+            {
+                position = switchPosition;
+            }
+        }
+
+        return position;
+    }
+
+    /// <summary>
+    /// Runs the FP32 model once over the calibration set with every layer's input activation as an extra
+    /// output and turns each tensor's range into an 8-bit scale and zero point. Consumers inside
+    /// If/Loop/Scan bodies are left out: their inputs cannot be read from outside the body.
+    /// </summary>
+    private List<ActivationQuantization> Calibrate(global::Onnx.ModelProto plain, ActivationCalibration calibration)
+    {
+        var nodes = new Dictionary<string, global::Onnx.NodeProto>(StringComparer.Ordinal);
+        foreach (var node in plain.Graph.Node)
+        {
+            nodes.TryAdd(node.Name, node);
+        }
+
+        var sites = new List<(string Layer, string Consumer, string Tensor)>();
+        foreach (var layer in _model.Layers)
+        {
+            foreach (var consumer in layer.Consumers)
+            {
+                if (nodes.TryGetValue(consumer, out var node) && node.Input.Count > 1 && node.Input[1] == layer.WeightName && node.Input[0].Length > 0)
+                {
+                    sites.Add((layer.Name, consumer, node.Input[0]));
+                }
+            }
+        }
+
+        var tensors = sites.Select(s => s.Tensor).Distinct(StringComparer.Ordinal).ToList();
+        var ranges = MeasureRanges(plain, tensors, calibration);
+        return sites.Select(s =>
+        {
+            var (scale, zeroPoint) = ActivationQuantization.ParametersFor(ranges.GetValueOrDefault(s.Tensor));
+            return new ActivationQuantization(s.Layer, s.Consumer, s.Tensor, scale, zeroPoint);
+        }).ToList();
+    }
+
+    private Dictionary<string, ClipRange> MeasureRanges(global::Onnx.ModelProto plain, IReadOnlyList<string> tensors, ActivationCalibration calibration)
+    {
+        var graphInputs = plain.Graph.Input.Select(i => i.Name).ToHashSet(StringComparer.Ordinal);
+        var tapped = tensors.Where(t => !graphInputs.Contains(t)).ToList();
+        var minMax = new Dictionary<string, ClipRange>(StringComparer.Ordinal);
+        var kept = new Dictionary<string, List<float[]>>(StringComparer.Ordinal);
+        long keptBytes = 0;
+        using var session = new InferenceSession(new GraphSlicer(plain).WithExtraOutputs(tapped).ToByteArray(), _sessionOptions);
+        for (var b = 0; b < _plan.BatchCount; b++)
+        {
+            var inputs = Feeds(session, b, overrides: null, extraFeeds: null);
+            using var results = session.Run(_runOptions, inputs.Keys.ToList(), inputs.Values.ToList(), tapped);
+            foreach (var name in tensors)
+            {
+                var index = tapped.IndexOf(name);
+                var value = index >= 0 ? results[index] : _dataFeeds[b][name];
+                if (value.GetTensorTypeAndShape().ElementDataType != TensorElementType.Float)
+                {
+                    throw new EngineException("activation-type-unsupported", $"The activation '{name}' is not FP32; only FP32 activations can be quantized. Search weights only.");
+                }
+
+                // Padding rows of a fixed batch repeat a real sample: they leave min and max unchanged.
+                var values = value.GetTensorDataAsSpan<float>();
+                if (values.IsEmpty)
+                {
+                    continue;
+                }
+
+                // Min and max propagate NaN, so both finite means every value is.
+                if (!float.IsFinite(TensorPrimitives.Min(values)) || !float.IsFinite(TensorPrimitives.Max(values)))
+                {
+                    throw new EngineException("activation-not-finite", $"The activation '{name}' takes NaN or infinite values on the calibration set; check the dataset and the model.");
+                }
+
+                var range = ActivationQuantization.RangeOf(values, ActivationCalibration.MinMax);
+                minMax[name] = minMax.TryGetValue(name, out var seen)
+                    ? new ClipRange(Math.Min(seen.Low, range.Low), Math.Max(seen.High, range.High))
+                    : range;
+                if (calibration == ActivationCalibration.Percentile)
+                {
+                    keptBytes += (long)values.Length * sizeof(float);
+                    if (keptBytes > _options.MaxCachedActivationBytes)
+                    {
+                        throw new EngineException(
+                            "activations-too-large",
+                            $"Percentile calibration of activations keeps every activation value of the calibration set, more than the {_options.MaxCachedActivationBytes >> 20} MiB allowed; use min-max calibration or fewer samples.");
+                    }
+
+                    (kept.TryGetValue(name, out var parts) ? parts : kept[name] = []).Add(values.ToArray());
+                }
+            }
+        }
+
+        if (calibration == ActivationCalibration.MinMax)
+        {
+            return minMax;
+        }
+
+        return kept.ToDictionary(
+            p => p.Key,
+            p => ActivationQuantization.RangeOf((float[])OrtTensors.Concatenate(p.Value), ActivationCalibration.Percentile),
+            StringComparer.Ordinal);
     }
 
     private List<Dictionary<string, OrtValue>> BuildDataFeeds()
@@ -262,7 +447,7 @@ public sealed class TrialSession : IDisposable
         var taps = new SortedSet<string>(StringComparer.Ordinal);
         foreach (var layer in _model.Layers)
         {
-            var position = _slicer.FirstReader(layer.WeightName);
+            var position = CutPosition(layer);
             if (position > 0)
             {
                 taps.UnionWith(_slicer.CutSet(position).Where(n => !_slicer.IsGraphInput(n)));
@@ -328,6 +513,10 @@ public sealed class TrialSession : IDisposable
             else if (extraFeeds is not null && extraFeeds[batch].TryGetValue(name, out value))
             {
                 feeds[name] = value;
+            }
+            else if (_switchOff is not null && IsSwitch(name))
+            {
+                feeds[name] = _switchOff;
             }
             else
             {

@@ -1,3 +1,5 @@
+using Bitbudget.Search.Quantization;
+
 namespace Bitbudget.Search.Evaluation;
 
 /// <summary>Knobs of a <see cref="TrialSession"/>.</summary>
@@ -5,8 +7,10 @@ namespace Bitbudget.Search.Evaluation;
 /// <param name="SuffixRuns">Allow running only the part of the graph downstream of a perturbed layer.</param>
 /// <param name="MaxCachedActivationBytes">Memory the cached cut-set activations may take; beyond it suffix runs are off.</param>
 /// <param name="IntraOpThreads">ONNX Runtime intra-op threads; null lets ONNX Runtime choose.</param>
+/// <param name="Activations">Calibration of 8-bit activations on the inputs of quantized layers; null for weights only.</param>
 public sealed record TrialSessionOptions(
     int MaxBatch = 32,
     bool SuffixRuns = true,
     long MaxCachedActivationBytes = 512L << 20,
-    int? IntraOpThreads = null);
+    int? IntraOpThreads = null,
+    ActivationCalibration? Activations = null);

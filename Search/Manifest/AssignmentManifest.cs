@@ -67,6 +67,7 @@ public sealed record ManifestMetrics(
     double? Accuracy);
 
 /// <summary>One layer: what it is, what it got, and how sensitive it was at each candidate.</summary>
+/// <param name="Activations">The 8-bit quantization of the layer's input activation, one per consumer node; null when activations stay FP32.</param>
 public sealed record ManifestLayer(
     string Name,
     string Op,
@@ -81,7 +82,11 @@ public sealed record ManifestLayer(
     long Bytes,
     bool Excluded,
     bool Pinned,
-    IReadOnlyList<ManifestSensitivity> Sensitivity);
+    IReadOnlyList<ManifestSensitivity> Sensitivity,
+    IReadOnlyList<ManifestActivation>? Activations = null);
+
+/// <summary>Per-tensor uint8 quantization of the activation <see cref="Tensor"/> that node <see cref="Consumer"/> reads.</summary>
+public sealed record ManifestActivation(string Consumer, string Tensor, float Scale, int ZeroPoint);
 
 /// <summary>A sensitivity trial: the layer alone at <see cref="Bits"/>.</summary>
 /// <param name="AdditiveError">What this choice adds to the additive error model.</param>

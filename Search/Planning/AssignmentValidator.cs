@@ -103,7 +103,7 @@ internal sealed class AssignmentValidator(
     {
         var assignment = problem.AssignmentOf(selection);
         var hash = TrialKeys.AssignmentHash(assignment);
-        var key = TrialKeys.Validation(hash);
+        var key = TrialKeys.Validation(hash, SensitivitySweep.ActivationsFor(problem.Settings));
         if (!store.LoadAll().TryGetValue(key, out var record))
         {
             var clock = Stopwatch.StartNew();

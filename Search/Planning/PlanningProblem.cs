@@ -74,7 +74,7 @@ internal sealed class PlanningProblem
                 var bytes = CostModel.LayerBytes(layer.ParameterCount, layer.Channels, bits, settings.Scheme, settings.Granularity);
                 var error = bits == BitWidths.Float32
                     ? 0
-                    : AdditiveError.ToAdditive(metric, sensitivity[TrialKeys.Sensitivity(layer.Name, setting)], reference);
+                    : AdditiveError.ToAdditive(metric, sensitivity[TrialKeys.Sensitivity(layer.Name, setting, SensitivitySweep.ActivationsFor(settings))], reference);
                 return new PlanningChoice(bits, bytes, error);
             }).ToList())).ToList();
         return new PlanningProblem(settings, metric, searched, layers, excluded, sensitivity);

@@ -17,6 +17,7 @@ internal sealed class SearchReport(
     IReadOnlyList<Selection> frontier,
     SearchDecision decision,
     ExportedModel? exported,
+    IReadOnlyList<ActivationQuantization> activations,
     int trialCount)
 {
     /// <summary>Most frontier points written; a longer frontier is thinned evenly (its ends kept).</summary>
@@ -161,13 +162,16 @@ internal sealed class SearchReport(
             bits is { } b ? CostModel.LayerBytes(layer.ParameterCount, layer.Channels, b, setting!.Scheme, setting.Granularity) : 0,
             excluded,
             settings.Pins?.ContainsKey(layer.Name) ?? false,
-            sensitivity);
+            sensitivity,
+            settings.QuantizeActivations && bits is { } integer && BitWidths.IsInteger(integer)
+                ? activations.Where(a => a.Layer == layer.Name).Select(a => new ManifestActivation(a.Consumer, a.Tensor, a.Scale, a.ZeroPoint)).ToList()
+                : null);
     }
 
     private MetricSet? SensitivityOf(WeightLayer layer, int bits) =>
         bits == BitWidths.Float32
             ? null
-            : problem.Sensitivity.GetValueOrDefault(TrialKeys.Sensitivity(layer.Name, SensitivitySweep.SettingFor(bits, settings)));
+            : problem.Sensitivity.GetValueOrDefault(TrialKeys.Sensitivity(layer.Name, SensitivitySweep.SettingFor(bits, settings), SensitivitySweep.ActivationsFor(settings)));
 
     private ManifestBudget Budget() => settings.Budget switch
     {

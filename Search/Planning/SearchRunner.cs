@@ -28,7 +28,8 @@ public static class SearchRunner
     {
         SearchSettingsValidator.Validate(model, data, settings);
         progress?.Report(new SearchProgress(SearchStage.Reference, 0, 1));
-        using var session = TrialSession.Open(model, data, sessionOptions);
+        var options = (sessionOptions ?? new TrialSessionOptions()) with { Activations = SensitivitySweep.ActivationsFor(settings) };
+        using var session = TrialSession.Open(model, data, options);
         store.Save(new TrialRecord(TrialKeys.Reference, "reference", null, null, null, session.ReferenceMetrics, session.ForwardPassMilliseconds));
         progress?.Report(new SearchProgress(SearchStage.Reference, 1, 1));
 
@@ -51,8 +52,8 @@ public static class SearchRunner
 
         cancellationToken.ThrowIfCancellationRequested();
         progress?.Report(new SearchProgress(SearchStage.Export, 0, 1));
-        var exported = decision.Chosen is { } chosen ? QdqExporter.Export(model, chosen.Assignment) : null;
-        var report = new SearchReport(model, data, settings, session.ReferenceMetrics, problem, frontier, decision, exported, store.LoadAll().Count);
+        var exported = decision.Chosen is { } chosen ? QdqExporter.Export(model, chosen.Assignment, session.Activations) : null;
+        var report = new SearchReport(model, data, settings, session.ReferenceMetrics, problem, frontier, decision, exported, session.Activations, store.LoadAll().Count);
         var result = report.ToResult();
         progress?.Report(new SearchProgress(SearchStage.Export, 1, 1));
         return result;

@@ -41,7 +41,21 @@ public static class SearchSettingsValidator
 
         if (settings.QuantizeActivations)
         {
-            Fail("Activation quantization is not available in this version; leave 'activations' off (weights only).");
+            if (model.Opset < ActivationQuantization.MinimumOpset)
+            {
+                Fail(ActivationQuantization.OpsetMessage(model.Opset));
+            }
+
+            // An input read inside an If/Loop/Scan body cannot be tapped from the main graph for calibration.
+            var mainNodes = model.Proto.Graph.Node.Select(n => n.Name).ToHashSet(StringComparer.Ordinal);
+            var excludedNames = (settings.Excluded ?? []).ToHashSet(StringComparer.Ordinal);
+            foreach (var layer in model.Layers.Where(l => !excludedNames.Contains(l.Name)))
+            {
+                if (layer.Consumers.FirstOrDefault(c => !mainNodes.Contains(c)) is { } inner)
+                {
+                    Fail($"Layer '{layer.Name}' is read by '{inner}' inside an If/Loop/Scan body, whose input activation cannot be quantized; exclude the layer or search weights only.");
+                }
+            }
         }
 
         switch (settings.Budget)

@@ -28,7 +28,7 @@ public static class SensitivitySweep
                 }
 
                 var setting = SettingFor(bits, settings);
-                trials.Add(new SweepTrial(TrialKeys.Sensitivity(layer.Name, setting), layer, setting));
+                trials.Add(new SweepTrial(TrialKeys.Sensitivity(layer.Name, setting, ActivationsFor(settings)), layer, setting));
             }
         }
 
@@ -40,6 +40,15 @@ public static class SensitivitySweep
         settings.Pins is not null && settings.Pins.TryGetValue(layer.Name, out var pinned)
             ? [pinned]
             : settings.Bits.Distinct().OrderDescending().ToList();
+
+    /// <summary>
+    /// How activations are calibrated, or null when the search quantizes weights only: percentile when the
+    /// weights are clipped at a percentile, min-max otherwise (the MSE and analytic clips are weight methods).
+    /// </summary>
+    public static ActivationCalibration? ActivationsFor(SearchSettings settings) =>
+        !settings.QuantizeActivations ? null
+        : settings.Clip == ClipMethod.Percentile ? ActivationCalibration.Percentile
+        : ActivationCalibration.MinMax;
 
     /// <summary>The full setting a width gets under the search's scheme, granularity and clipping.</summary>
     public static LayerSetting SettingFor(int bits, SearchSettings settings) =>

@@ -13,12 +13,13 @@ public static class TrialKeys
     /// <summary>Key of the FP32 reference run.</summary>
     public const string Reference = "reference";
 
-    /// <summary>Key of a sensitivity trial.</summary>
-    public static string Sensitivity(string layer, LayerSetting setting) =>
-        $"sensitivity/{layer}/{Describe(setting)}";
+    /// <summary>Key of a sensitivity trial; trials with quantized activations (<paramref name="activations"/> set) get keys of their own.</summary>
+    public static string Sensitivity(string layer, LayerSetting setting, ActivationCalibration? activations = null) =>
+        $"sensitivity/{layer}/{Describe(setting)}{Activations(activations)}";
 
-    /// <summary>Key of the end-to-end measurement of a whole assignment.</summary>
-    public static string Validation(string assignmentHash) => $"validation/{assignmentHash}";
+    /// <summary>Key of the end-to-end measurement of a whole assignment; with quantized activations, a key of its own.</summary>
+    public static string Validation(string assignmentHash, ActivationCalibration? activations = null) =>
+        $"validation/{assignmentHash}{Activations(activations)}";
 
     /// <summary>SHA-256 (hex) of an assignment, independent of dictionary order.</summary>
     public static string AssignmentHash(IReadOnlyDictionary<string, LayerSetting> assignment)
@@ -31,6 +32,9 @@ public static class TrialKeys
 
         return Convert.ToHexStringLower(SHA256.HashData(Encoding.UTF8.GetBytes(text.ToString())));
     }
+
+    private static string Activations(ActivationCalibration? activations) =>
+        activations is { } a ? "/activations-" + WireNames.Format(a) : string.Empty;
 
     /// <summary>A setting as a short stable string, e.g. "4b-symmetric-perchannel-minmax".</summary>
     public static string Describe(LayerSetting setting)

@@ -14,6 +14,7 @@ internal sealed record PlanArguments(string Model, string Data, SearchSettings S
         var scheme = QuantizationScheme.Symmetric;
         var granularity = Granularity.PerChannel;
         var clip = ClipMethod.MinMax;
+        var activations = false;
         var pins = new Dictionary<string, int>(StringComparer.Ordinal);
         var excluded = new List<string>();
         for (var i = 0; i < args.Length; i++)
@@ -32,6 +33,7 @@ internal sealed record PlanArguments(string Model, string Data, SearchSettings S
                 case "--granularity": granularity = Enum<Granularity>(name, Value()); break;
                 case "--clip": clip = Enum<ClipMethod>(name, Value()); break;
                 case "--exclude": excluded.Add(Value()); break;
+                case "--activations": activations = true; break;
                 case "--pin":
                     var pin = Value().Split('=', 2);
                     if (pin.Length != 2 || !int.TryParse(pin[1], CultureInfo.InvariantCulture, out var pinned))
@@ -56,7 +58,7 @@ internal sealed record PlanArguments(string Model, string Data, SearchSettings S
             : bits.Split(',', StringSplitOptions.RemoveEmptyEntries | StringSplitOptions.TrimEntries)
                 .Select(b => int.TryParse(b, CultureInfo.InvariantCulture, out var v) ? v : throw new ArgumentException($"--bits takes a comma-separated list of widths, e.g. 2,3,4,6,8; '{b}' is not a number."))
                 .ToList();
-        var settings = new SearchSettings(BudgetText.Parse(budget), candidates, method, scheme, granularity, clip, false, pins, excluded);
+        var settings = new SearchSettings(BudgetText.Parse(budget), candidates, method, scheme, granularity, clip, activations, pins, excluded);
         return new PlanArguments(model, data, settings, outDir ?? "plan");
     }
 

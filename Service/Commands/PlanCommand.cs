@@ -12,7 +12,7 @@ namespace Bitbudget.Service.Commands;
 /// <summary>
 /// <c>plan --model M.onnx --data D.npz --budget "sqnr&gt;=30" [--bits 2,3,4,6,8] [--method knapsack|greedy]
 /// [--scheme symmetric|asymmetric] [--granularity per-channel|per-tensor] [--clip min-max|percentile|mse-optimal|analytic-laplace|analytic-gaussian]
-/// [--pin LAYER=BITS]... [--exclude LAYER]... [--out DIR]</c>: the whole search locally, writing the
+/// [--pin LAYER=BITS]... [--exclude LAYER]... [--activations] [--out DIR]</c>: the whole search locally, writing the
 /// manifest, the quantized model, the sensitivity CSV and the frontier into DIR.
 /// </summary>
 internal static class PlanCommand
@@ -20,7 +20,7 @@ internal static class PlanCommand
     private const string Usage =
         "usage: plan --model M.onnx --data D.npz --budget \"sqnr>=30\" [--bits 2,3,4,6,8] [--method knapsack|greedy] " +
         "[--scheme symmetric|asymmetric] [--granularity per-channel|per-tensor] [--clip min-max|percentile|mse-optimal|analytic-laplace|analytic-gaussian] " +
-        "[--pin LAYER=BITS]... [--exclude LAYER]... [--out DIR]";
+        "[--pin LAYER=BITS]... [--exclude LAYER]... [--activations] [--out DIR]";
 
     public static Task<int> RunAsync(string[] args)
     {
