@@ -36,6 +36,19 @@ public sealed class ManifestSchemaTests
     }
 
     [Fact]
+    public void ActivationSearchManifestMatchesTheSchemaWithActivationParameters()
+    {
+        var model = SmallModels.Mlp(opset: 13);
+        var settings = new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 25), [2, 4, 8], QuantizeActivations: true);
+        var result = SearchRunner.Run(model, SmallModels.MlpData(model), settings, new InMemoryTrialStore(), null, CancellationToken.None);
+
+        var manifest = Parse(result.ManifestJson);
+        AssertValid(manifest);
+        Assert.True((bool)manifest["settings"]!["activations"]!);
+        Assert.All(manifest["layers"]!.AsArray(), layer => Assert.NotEmpty(layer!["activations"]!.AsArray()));
+    }
+
+    [Fact]
     public void SizeBudgetManifestMatchesTheSchema()
     {
         var result = Search(new SizeBudget(null, 4.5));
