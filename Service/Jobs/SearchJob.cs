@@ -52,7 +52,12 @@ internal sealed partial class SearchJob(
             var settings = SearchVocabulary.ToSettings(search.Spec);
             var trials = new TrialStore(database, searchId);
 
-            var result = engine.RunSearch(modelBytes, model.Summary.Name, datasetBytes, settings, trials, progress, run.Token);
+            // The engine is synchronous and CPU-bound for minutes: give it a thread of its own rather than a pool thread.
+            var result = await Task.Factory.StartNew(
+                () => engine.RunSearch(modelBytes, model.Summary.Name, datasetBytes, settings, trials, progress, run.Token),
+                CancellationToken.None,
+                TaskCreationOptions.LongRunning,
+                TaskScheduler.Default).ConfigureAwait(false);
             run.Token.ThrowIfCancellationRequested();
 
             var record = new ResultRecord(

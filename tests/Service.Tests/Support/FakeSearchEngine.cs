@@ -155,7 +155,15 @@ internal sealed class FakeSearchEngine : ISearchEngine
             if (i == 0 && holds.TryRemove(modelName, out var hold))
             {
                 hold.Started.TrySetResult();
-                hold.Gate.Wait(cancellationToken);
+                try
+                {
+                    hold.Gate.Wait(cancellationToken);
+                }
+                catch (OperationCanceledException)
+                {
+                    hold.Canceled.TrySetResult();
+                    throw;
+                }
             }
         }
 
@@ -234,6 +242,9 @@ internal sealed class FakeSearchEngine : ISearchEngine
         public TaskCompletionSource Started { get; } = new(TaskCreationOptions.RunContinuationsAsynchronously);
 
         public ManualResetEventSlim Gate { get; } = new(false);
+
+        /// <summary>Completes when the run's cancellation token freed it from the gate.</summary>
+        public TaskCompletionSource Canceled { get; } = new(TaskCreationOptions.RunContinuationsAsynchronously);
 
         public void Release() => Gate.Set();
     }
