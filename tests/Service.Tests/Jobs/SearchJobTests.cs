@@ -124,6 +124,25 @@ public sealed class SearchJobTests : IDisposable
     }
 
     [Fact]
+    public async Task ACancelWrittenByAnotherProcessStopsTheRunAtItsNextProgressReport()
+    {
+        var id = await QueueAsync("remote-cancel");
+        var hold = factory.Engine.HoldRun("remote-cancel");
+        var run = Job().RunAsync(id, CancellationToken.None);
+        await hold.Started.Task.WaitAsync(TimeSpan.FromSeconds(30));
+
+        // Straight to the store, as an API process elsewhere would: this process's cancel registry is not told.
+        Assert.True(Store().Cancel(id));
+        await Task.Delay(ProgressReporterMinInterval());
+        hold.Release();
+        await run.WaitAsync(TimeSpan.FromSeconds(30));
+
+        Assert.Equal("canceled", Store().Find(id)!.State);
+        Assert.Null(Store().FindResult(id));
+        Assert.True(factory.Engine.Measured["remote-cancel"].Count < 20);
+    }
+
+    [Fact]
     public async Task SearchesWhoseJobIsGoneAreQueuedAgainAtStart()
     {
         var id = await QueueAsync("recover");
@@ -173,6 +192,8 @@ public sealed class SearchJobTests : IDisposable
         Assert.Equal("queued", search.GetProperty("state").GetString());
         return search.GetProperty("id").GetString()!;
     }
+
+    private static TimeSpan ProgressReporterMinInterval() => ProgressReporter.MinInterval + TimeSpan.FromMilliseconds(50);
 
     private SearchJob Job() => factory.Services.GetRequiredService<SearchJob>();
 

@@ -18,16 +18,18 @@ public sealed class ServiceFactory : WebApplicationFactory<Program>
 
     private readonly int workers;
     private readonly bool configureKey;
+    private readonly IReadOnlyDictionary<string, string> settings;
 
     public ServiceFactory()
         : this(workers: 1, configureKey: true)
     {
     }
 
-    internal ServiceFactory(int workers, bool configureKey)
+    internal ServiceFactory(int workers, bool configureKey, IReadOnlyDictionary<string, string>? settings = null)
     {
         this.workers = workers;
         this.configureKey = configureKey;
+        this.settings = settings ?? new Dictionary<string, string>();
         DataFolder = Path.Combine(Path.GetTempPath(), "bitbudget-tests", Guid.NewGuid().ToString("N"));
         Directory.CreateDirectory(DataFolder);
     }
@@ -54,6 +56,11 @@ public sealed class ServiceFactory : WebApplicationFactory<Program>
         if (configureKey)
         {
             builder.UseSetting("Bitbudget:ApiKeys:0", ApiKey);
+        }
+
+        foreach (var (key, value) in settings)
+        {
+            builder.UseSetting(key, value);
         }
 
         builder.ConfigureServices(services =>
