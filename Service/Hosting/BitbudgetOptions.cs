@@ -44,6 +44,10 @@ internal sealed class BitbudgetOptions
     [Range(1, 3_600)]
     public int RequestTimeoutSeconds { get; set; } = 300;
 
+    /// <summary>How often to look for searches whose worker died, in seconds (a live run renews its lease every 15 s; the lease lasts 60 s).</summary>
+    [Range(5, 3_600)]
+    public int RecoveryIntervalSeconds { get; set; } = 60;
+
     /// <summary>Serves the Hangfire dashboard at /jobs, behind the same API keys.</summary>
     public bool Dashboard { get; set; }
 

@@ -61,6 +61,7 @@ internal static class ServiceRegistration
         services.AddTransient<SearchJob>();
         // Before the Hangfire server so the store is migrated when the first job runs.
         services.AddHostedService<StartupTasks>();
+        services.AddHostedService<RecoveryLoop>();
         services.AddBitbudgetJobs(configured.Workers);
         return builder;
     }

@@ -21,6 +21,13 @@ internal sealed class SearchQueue(IBackgroundJobClient client, JobStorage storag
             || state == ProcessingState.StateName || state == AwaitingState.StateName;
     }
 
+    /// <summary>True when Hangfire counts the job as being processed by some worker.</summary>
+    public bool IsProcessing(string jobId)
+    {
+        using var connection = storage.GetConnection();
+        return connection.GetStateData(jobId)?.Name == ProcessingState.StateName;
+    }
+
     /// <summary>Throws when the job storage cannot be read.</summary>
     public void Ping()
     {

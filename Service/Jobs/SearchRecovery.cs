@@ -1,17 +1,27 @@
+using Bitbudget.Service.Searches;
 using Bitbudget.Service.Store;
 
 namespace Bitbudget.Service.Jobs;
 
-/// <summary>At start, re-queues queued or running searches whose Hangfire job is gone (lost queue, expired job, crash between store and queue).</summary>
+/// <summary>
+/// Re-queues searches that nothing will run any more: queued or running searches whose Hangfire job is
+/// gone (lost queue, expired job, crash between store and queue), and running searches whose job is still
+/// marked processing while their lease has lapsed (live runs renew it every few seconds, so the worker died).
+/// </summary>
 internal sealed partial class SearchRecovery(SearchStore searches, SearchQueue queue, ILogger<SearchRecovery> logger)
 {
     /// <returns>How many searches were re-queued.</returns>
     public int Run()
     {
         var requeued = 0;
+        var now = DateTimeOffset.UtcNow;
         foreach (var search in searches.ListUnfinished())
         {
-            if (search.JobId is not null && queue.IsAlive(search.JobId))
+            var orphaned = search.JobId is not null
+                && search.State == SearchStates.Running
+                && search.LeaseUntil is { } until && until < now
+                && queue.IsProcessing(search.JobId);
+            if (search.JobId is not null && queue.IsAlive(search.JobId) && !orphaned)
             {
                 continue;
             }
@@ -25,6 +35,6 @@ internal sealed partial class SearchRecovery(SearchStore searches, SearchQueue q
         return requeued;
     }
 
-    [LoggerMessage(EventId = 3100, Level = LogLevel.Warning, Message = "Search {SearchId} was {State} but its job was gone; queued it again as job {JobId}")]
+    [LoggerMessage(EventId = 3100, Level = LogLevel.Warning, Message = "Search {SearchId} was {State} but nothing was running it; queued it again as job {JobId}")]
     private static partial void LogRequeued(ILogger logger, string searchId, string state, string jobId);
 }

@@ -20,4 +20,5 @@ internal sealed record SearchRecord(
     string RequestHash,
     DateTimeOffset CreatedAt,
     DateTimeOffset? StartedAt,
-    DateTimeOffset? FinishedAt);
+    DateTimeOffset? FinishedAt,
+    DateTimeOffset? LeaseUntil);

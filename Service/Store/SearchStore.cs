@@ -12,7 +12,7 @@ internal sealed class SearchStore(Database database)
 {
     private const string Columns = """
         id, model_id, dataset_id, settings_json, state, stage, progress_done, progress_total, eta_seconds,
-        error_code, error_message, job_id, attempts, idempotency_key, request_hash, created_at, started_at, finished_at
+        error_code, error_message, job_id, attempts, idempotency_key, request_hash, created_at, started_at, finished_at, lease_until
         """;
 
     /// <summary>Adds a queued search, or returns the one already stored under the same idempotency key.</summary>
@@ -318,7 +318,8 @@ internal sealed class SearchStore(Database database)
                 reader.GetString(14),
                 Clock.Parse(reader.GetString(15)),
                 Clock.ParseOrNull(reader.IsDBNull(16) ? null : reader.GetString(16)),
-                Clock.ParseOrNull(reader.IsDBNull(17) ? null : reader.GetString(17))));
+                Clock.ParseOrNull(reader.IsDBNull(17) ? null : reader.GetString(17)),
+                Clock.ParseOrNull(reader.IsDBNull(18) ? null : reader.GetString(18))));
         }
 
         return list;

@@ -160,6 +160,33 @@ public sealed class SearchJobTests : IDisposable
     }
 
     [Fact]
+    public async Task ARunningSearchWhoseWorkerDiedIsQueuedAgainOnceItsLeaseLapses()
+    {
+        var id = await QueueAsync("orphan");
+        var recovery = factory.Services.GetRequiredService<SearchRecovery>();
+        var job = Store().Find(id)!.JobId!;
+        using (var connection = factory.Services.GetRequiredService<JobStorage>().GetConnection())
+        using (var transaction = connection.CreateWriteTransaction())
+        {
+            // As a worker leaves it when its process dies mid-job.
+            transaction.SetJobState(job, new ProcessingMark());
+            transaction.Commit();
+        }
+
+        Store().TryClaim(id, "worker", TimeSpan.FromMinutes(1));
+        Assert.Equal(0, recovery.Run());
+
+        // The same worker's last renewal, now in the past: it stopped renewing because it died.
+        Assert.Equal(ClaimOutcome.Claimed, Store().TryClaim(id, "worker", TimeSpan.FromMilliseconds(-1)));
+        Assert.Equal(1, recovery.Run());
+        Assert.Equal(0, recovery.Run());
+        Assert.NotEqual(job, Store().Find(id)!.JobId);
+
+        await Job().RunAsync(id, CancellationToken.None);
+        Assert.Equal("succeeded", Store().Find(id)!.State);
+    }
+
+    [Fact]
     public async Task JobLogLinesCarryTheSearchId()
     {
         var id = await QueueAsync("logged");
@@ -200,4 +227,17 @@ public sealed class SearchJobTests : IDisposable
     private SearchStore Store() => factory.Services.GetRequiredService<SearchStore>();
 
     private TrialStore Trials(string id) => new(factory.Services.GetRequiredService<Database>(), id);
+
+    private sealed class ProcessingMark : Hangfire.States.IState
+    {
+        public string Name => Hangfire.States.ProcessingState.StateName;
+
+        public string Reason => "Worker died";
+
+        public bool IsFinal => false;
+
+        public bool IgnoreJobLoadException => false;
+
+        public Dictionary<string, string> SerializeData() => new() { ["ServerId"] = "dead-server", ["WorkerId"] = "worker-1" };
+    }
 }
