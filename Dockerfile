@@ -1,0 +1,24 @@
+# Bitbudget service: build with the SDK, run on the ASP.NET runtime as a non-root user.
+# docker build -t bitbudget . && docker run -p 127.0.0.1:5080:8080 -v bitbudget-data:/data bitbudget
+FROM mcr.microsoft.com/dotnet/sdk:10.0 AS build
+WORKDIR /src
+COPY global.json Directory.Build.props Directory.Packages.props Search.sln ./
+COPY Search/Search.csproj Search/
+COPY Service/Service.csproj Service/
+RUN dotnet restore Service/Service.csproj
+COPY Search/ Search/
+COPY Service/ Service/
+RUN dotnet publish Service/Service.csproj -c Release -o /app --no-restore
+
+FROM mcr.microsoft.com/dotnet/aspnet:10.0
+WORKDIR /app
+COPY --from=build /app ./
+RUN mkdir -p /data && chown "$APP_UID" /data
+# Everything the service keeps (store, job queue, blobs, logs, generated API key) lives in /data.
+VOLUME /data
+ENV Bitbudget__DataFolder=/data \
+    Bitbudget__Listen=http://0.0.0.0:8080 \
+    DOTNET_gcServer=0
+EXPOSE 8080
+USER $APP_UID
+ENTRYPOINT ["dotnet", "Bitbudget.Service.dll", "serve"]

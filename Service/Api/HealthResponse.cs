@@ -1,0 +1,3 @@
+namespace Bitbudget.Service.Api;
+
+internal sealed record HealthResponse(string Status, string Store, string Queue);

@@ -1,0 +1,23 @@
+using Bitbudget.Service.Engine;
+using Bitbudget.Service.Store;
+
+namespace Bitbudget.Service.Api;
+
+internal sealed record ModelResponse(
+    string Id,
+    string Sha256,
+    string Name,
+    long Bytes,
+    long Opset,
+    IReadOnlyList<TensorSummary> Inputs,
+    IReadOnlyList<TensorSummary> Outputs,
+    IReadOnlyList<LayerSummary> Layers,
+    IReadOnlyList<string> Notes,
+    DateTimeOffset CreatedAt)
+{
+    public static ModelResponse From(ModelRecord model)
+    {
+        var s = model.Summary;
+        return new(model.Id, s.Sha256, s.Name, s.Bytes, s.Opset, s.Inputs, s.Outputs, s.Layers, s.Notes, model.CreatedAt);
+    }
+}

@@ -1,0 +1,33 @@
+using Bitbudget.Search.Planning;
+
+namespace Bitbudget.Service.Engine;
+
+/// <summary>
+/// The narrow port through which the service reaches the engine. Every method throws
+/// <see cref="Bitbudget.Search.EngineException"/> for input the engine cannot work with; the service maps
+/// its <c>Code</c> straight to a problem type.
+/// </summary>
+internal interface ISearchEngine
+{
+    /// <summary>Reads an uploaded ONNX model and lists what a search can work on.</summary>
+    ModelSummary InspectModel(byte[] bytes, string name);
+
+    /// <summary>Reads an uploaded .npz archive or single .npy array.</summary>
+    DatasetSummary InspectDataset(byte[] bytes);
+
+    /// <summary>Throws <c>dataset-mismatch</c> when the dataset cannot feed the model's inputs.</summary>
+    void CheckCompatible(byte[] model, byte[] dataset);
+
+    /// <summary>
+    /// Runs a whole search. The engine loads what <paramref name="trials"/> already holds, skips those
+    /// trials, and saves each new one as soon as it is measured, so a rerun duplicates nothing.
+    /// </summary>
+    SearchResult RunSearch(
+        byte[] model,
+        string modelName,
+        byte[] dataset,
+        SearchSettings settings,
+        ITrialStore trials,
+        IProgress<SearchProgress> progress,
+        CancellationToken cancellationToken);
+}

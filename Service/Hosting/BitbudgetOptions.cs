@@ -1,0 +1,56 @@
+using System.ComponentModel.DataAnnotations;
+
+namespace Bitbudget.Service.Hosting;
+
+/// <summary>Settings of the service, bound from the "Bitbudget" configuration section.</summary>
+internal sealed class BitbudgetOptions
+{
+    public const string Section = "Bitbudget";
+
+    /// <summary>Address the host listens on when no ASP.NET Core URL setting overrides it.</summary>
+    [Required]
+    public string Listen { get; set; } = "http://127.0.0.1:5080";
+
+    /// <summary>Folder that holds the store, the job queue, blobs, logs and the generated API key.</summary>
+    [Required]
+    public string DataFolder { get; set; } = "./data";
+
+    /// <summary>Hangfire workers in this process; 0 makes the process API-only.</summary>
+    [Range(0, 64)]
+    public int Workers { get; set; } = 1;
+
+    /// <summary>How often idle workers look for queued searches.</summary>
+    [Range(50, 60_000)]
+    public int QueuePollIntervalMs { get; set; } = 500;
+
+    /// <summary>API keys accepted as bearer tokens (in addition to BITBUDGET_API_KEYS).</summary>
+    public List<string> ApiKeys { get; set; } = [];
+
+    [Range(1, long.MaxValue)]
+    public long MaxModelBytes { get; set; } = 512L * 1024 * 1024;
+
+    [Range(1, long.MaxValue)]
+    public long MaxDatasetBytes { get; set; } = 1024L * 1024 * 1024;
+
+    /// <summary>Models with more quantizable layers are refused (each layer costs several trials).</summary>
+    [Range(1, 100_000)]
+    public int MaxLayers { get; set; } = 2_000;
+
+    /// <summary>Calibration sets with more samples are refused (every trial runs all of them).</summary>
+    [Range(1, 10_000_000)]
+    public long MaxDatasetSamples { get; set; } = 100_000;
+
+    /// <summary>Longest a request may take, uploads included.</summary>
+    [Range(1, 3_600)]
+    public int RequestTimeoutSeconds { get; set; } = 300;
+
+    /// <summary>How often to look for searches whose worker died, in seconds (a live run renews its lease every 15 s; the lease lasts 60 s).</summary>
+    [Range(5, 3_600)]
+    public int RecoveryIntervalSeconds { get; set; } = 60;
+
+    /// <summary>Serves the Hangfire dashboard at /jobs, behind the same API keys.</summary>
+    public bool Dashboard { get; set; }
+
+    /// <summary>Absolute path of <see cref="DataFolder"/>.</summary>
+    public string DataPath => Path.GetFullPath(DataFolder);
+}

@@ -1,0 +1,26 @@
+using Bitbudget.Service.Auth;
+using Bitbudget.Service.Jobs;
+using Bitbudget.Service.Store;
+
+namespace Bitbudget.Service.Hosting;
+
+/// <summary>
+/// Runs before the web server and the job workers start: migrates the store, settles the API keys
+/// (creating one on first start) and re-queues searches whose jobs were lost.
+/// </summary>
+internal sealed partial class StartupTasks(Database database, ApiKeyRing keys, SearchRecovery recovery, ILogger<StartupTasks> logger) : IHostedService
+{
+    public Task StartAsync(CancellationToken cancellationToken)
+    {
+        var version = database.Migrate();
+        LogStore(logger, database.Path, version);
+        GC.KeepAlive(keys);
+        recovery.Run();
+        return Task.CompletedTask;
+    }
+
+    public Task StopAsync(CancellationToken cancellationToken) => Task.CompletedTask;
+
+    [LoggerMessage(EventId = 100, Level = LogLevel.Information, Message = "Store {StorePath} at schema version {Version}")]
+    private static partial void LogStore(ILogger logger, string storePath, int version);
+}

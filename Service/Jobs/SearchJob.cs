@@ -1,0 +1,188 @@
+using Bitbudget.Search;
+using Bitbudget.Service.Engine;
+using Bitbudget.Service.Searches;
+using Bitbudget.Service.Store;
+using Hangfire;
+
+namespace Bitbudget.Service.Jobs;
+
+/// <summary>
+/// One search, run as one Hangfire job. Safe to run twice or after a crash: trials are keyed in the store
+/// (the engine skips stored ones), only the holder of the search's lease may finish it, and a second
+/// concurrent run waits for the first and then finds the search finished.
+/// </summary>
+internal sealed partial class SearchJob(
+    SearchStore searches,
+    CatalogStore catalog,
+    BlobStore blobs,
+    Database database,
+    ISearchEngine engine,
+    SearchCancellations cancellations,
+    ILogger<SearchJob> logger)
+{
+    /// <summary>Total runs of one search before an unexpected error fails it (Hangfire's retries plus the first run).</summary>
+    public const int MaxAttempts = 3;
+
+    public static readonly TimeSpan Lease = TimeSpan.FromSeconds(60);
+    private static readonly TimeSpan HeartbeatInterval = TimeSpan.FromSeconds(15);
+    private static readonly TimeSpan ClaimPollInterval = TimeSpan.FromMilliseconds(250);
+
+    [AutomaticRetry(Attempts = MaxAttempts - 1, DelaysInSeconds = [5, 30], OnAttemptsExceeded = AttemptsExceededAction.Fail)]
+    public async Task RunAsync(string searchId, CancellationToken cancellationToken)
+    {
+        using var scope = logger.BeginScope(new Dictionary<string, object> { ["SearchId"] = searchId });
+        var owner = $"{Environment.MachineName}/{Environment.ProcessId}/{Guid.NewGuid():N}";
+        if (!await ClaimAsync(searchId, owner, cancellationToken).ConfigureAwait(false))
+        {
+            return;
+        }
+
+        using var run = CancellationTokenSource.CreateLinkedTokenSource(cancellationToken);
+        using var registration = cancellations.Register(searchId, run);
+        var progress = new ProgressReporter(searches, searchId, owner, Lease, run);
+        await using var heartbeat = new Timer(_ => Beat(progress), null, HeartbeatInterval, HeartbeatInterval);
+        var search = searches.Find(searchId)!;
+        try
+        {
+            LogStarted(logger, searchId, search.Attempts);
+            var model = catalog.FindModel(search.ModelId)!;
+            var dataset = catalog.FindDataset(search.DatasetId)!;
+            var modelBytes = blobs.Read(model.Summary.Sha256);
+            var datasetBytes = blobs.Read(dataset.Summary.Sha256);
+            var settings = SearchVocabulary.ToSettings(search.Spec);
+            var trials = new TrialStore(database, searchId);
+
+            // The engine is synchronous and CPU-bound for minutes: give it a thread of its own rather than a pool thread.
+            var result = await Task.Factory.StartNew(
+                () => engine.RunSearch(modelBytes, model.Summary.Name, datasetBytes, settings, trials, progress, run.Token),
+                CancellationToken.None,
+                TaskCreationOptions.LongRunning,
+                TaskScheduler.Default).ConfigureAwait(false);
+            run.Token.ThrowIfCancellationRequested();
+
+            var record = new ResultRecord(
+                searchId,
+                result.Feasible,
+                result.Message,
+                blobs.Put(result.ManifestJson),
+                result.QuantizedModel is null ? null : blobs.Put(result.QuantizedModel),
+                blobs.Put(System.Text.Encoding.UTF8.GetBytes(result.SensitivityCsv)),
+                blobs.Put(System.Text.Encoding.UTF8.GetBytes(result.FrontierJson)),
+                result.Bytes,
+                result.AverageBits,
+                result.Compression,
+                result.PredictedError,
+                result.MeasuredError,
+                result.TrialCount);
+            if (searches.Complete(owner, record))
+            {
+                LogSucceeded(logger, searchId, result.Feasible, result.Message);
+            }
+            else
+            {
+                LogResultDiscarded(logger, searchId);
+            }
+        }
+        catch (OperationCanceledException) when (run.IsCancellationRequested)
+        {
+            if (searches.Find(searchId)?.State == SearchStates.Canceled)
+            {
+                LogCanceled(logger, searchId);
+                return;
+            }
+
+            // Shutdown: hand the search back at once so the requeued job (here or elsewhere) can go on.
+            searches.Release(searchId, owner);
+            LogInterrupted(logger, searchId);
+            throw;
+        }
+        catch (EngineException e) when (!e.Retryable)
+        {
+            searches.Fail(searchId, owner, e.Code, e.Message);
+            LogEngineRefused(logger, searchId, e.Code, e.Message);
+        }
+        catch (Exception e)
+        {
+            var code = e is EngineException engineError ? engineError.Code : "search-crashed";
+            if (search.Attempts >= MaxAttempts)
+            {
+                searches.Fail(searchId, owner, code, $"The search failed {MaxAttempts} times; the last error was: {e.Message}");
+            }
+            else
+            {
+                searches.Release(searchId, owner, code, $"Attempt {search.Attempts} of {MaxAttempts} failed ({e.Message}); retrying.");
+            }
+
+            LogAttemptFailed(logger, e, searchId, search.Attempts, MaxAttempts);
+            throw;
+        }
+    }
+
+    /// <summary>Takes the search, waiting while another run holds it; false when it is already finished.</summary>
+    private async Task<bool> ClaimAsync(string searchId, string owner, CancellationToken cancellationToken)
+    {
+        var waited = false;
+        while (true)
+        {
+            switch (searches.TryClaim(searchId, owner, Lease))
+            {
+                case ClaimOutcome.Claimed:
+                    return true;
+                case ClaimOutcome.Final:
+                    LogAlreadyFinished(logger, searchId);
+                    return false;
+                default:
+                    if (!waited)
+                    {
+                        LogWaitingForOtherRun(logger, searchId);
+                        waited = true;
+                    }
+
+                    await Task.Delay(ClaimPollInterval, cancellationToken).ConfigureAwait(false);
+                    break;
+            }
+        }
+    }
+
+    private void Beat(ProgressReporter progress)
+    {
+        try
+        {
+            progress.Heartbeat();
+        }
+        catch (Exception e) when (e is Microsoft.Data.Sqlite.SqliteException or ObjectDisposedException)
+        {
+            LogHeartbeatFailed(logger, e);
+        }
+    }
+
+    [LoggerMessage(EventId = 3000, Level = LogLevel.Information, Message = "Search {SearchId} started (attempt {Attempt})")]
+    private static partial void LogStarted(ILogger logger, string searchId, int attempt);
+
+    [LoggerMessage(EventId = 3001, Level = LogLevel.Information, Message = "Search {SearchId} succeeded (feasible: {Feasible}): {Summary}")]
+    private static partial void LogSucceeded(ILogger logger, string searchId, bool feasible, string summary);
+
+    [LoggerMessage(EventId = 3002, Level = LogLevel.Warning, Message = "Search {SearchId} finished, but it was canceled or taken over meanwhile; its result was not stored")]
+    private static partial void LogResultDiscarded(ILogger logger, string searchId);
+
+    [LoggerMessage(EventId = 3003, Level = LogLevel.Information, Message = "Search {SearchId} stopped: it was canceled")]
+    private static partial void LogCanceled(ILogger logger, string searchId);
+
+    [LoggerMessage(EventId = 3004, Level = LogLevel.Warning, Message = "Search {SearchId} interrupted by shutdown; it will resume from its stored trials")]
+    private static partial void LogInterrupted(ILogger logger, string searchId);
+
+    [LoggerMessage(EventId = 3005, Level = LogLevel.Warning, Message = "Search {SearchId} failed: {Code}: {Reason}")]
+    private static partial void LogEngineRefused(ILogger logger, string searchId, string code, string reason);
+
+    [LoggerMessage(EventId = 3006, Level = LogLevel.Error, Message = "Search {SearchId} attempt {Attempt} of {MaxAttempts} failed")]
+    private static partial void LogAttemptFailed(ILogger logger, Exception exception, string searchId, int attempt, int maxAttempts);
+
+    [LoggerMessage(EventId = 3007, Level = LogLevel.Information, Message = "Search {SearchId} is already finished; nothing to do")]
+    private static partial void LogAlreadyFinished(ILogger logger, string searchId);
+
+    [LoggerMessage(EventId = 3008, Level = LogLevel.Information, Message = "Search {SearchId} is held by another run; waiting for it")]
+    private static partial void LogWaitingForOtherRun(ILogger logger, string searchId);
+
+    [LoggerMessage(EventId = 3009, Level = LogLevel.Warning, Message = "Could not renew a search lease")]
+    private static partial void LogHeartbeatFailed(ILogger logger, Exception exception);
+}

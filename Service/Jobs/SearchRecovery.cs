@@ -1,0 +1,40 @@
+using Bitbudget.Service.Searches;
+using Bitbudget.Service.Store;
+
+namespace Bitbudget.Service.Jobs;
+
+/// <summary>
+/// Re-queues searches that nothing will run any more: queued or running searches whose Hangfire job is
+/// gone (lost queue, expired job, crash between store and queue), and running searches whose job is still
+/// marked processing while their lease has lapsed (live runs renew it every few seconds, so the worker died).
+/// </summary>
+internal sealed partial class SearchRecovery(SearchStore searches, SearchQueue queue, ILogger<SearchRecovery> logger)
+{
+    /// <returns>How many searches were re-queued.</returns>
+    public int Run()
+    {
+        var requeued = 0;
+        var now = DateTimeOffset.UtcNow;
+        foreach (var search in searches.ListUnfinished())
+        {
+            var orphaned = search.JobId is not null
+                && search.State == SearchStates.Running
+                && search.LeaseUntil is { } until && until < now
+                && queue.IsProcessing(search.JobId);
+            if (search.JobId is not null && queue.IsAlive(search.JobId) && !orphaned)
+            {
+                continue;
+            }
+
+            var jobId = queue.Enqueue(search.Id);
+            searches.SetJobId(search.Id, jobId);
+            LogRequeued(logger, search.Id, search.State, jobId);
+            requeued++;
+        }
+
+        return requeued;
+    }
+
+    [LoggerMessage(EventId = 3100, Level = LogLevel.Warning, Message = "Search {SearchId} was {State} but nothing was running it; queued it again as job {JobId}")]
+    private static partial void LogRequeued(ILogger logger, string searchId, string state, string jobId);
+}

@@ -1,0 +1,42 @@
+using Bitbudget.Search;
+using Microsoft.AspNetCore.Diagnostics;
+using Microsoft.AspNetCore.Mvc;
+
+namespace Bitbudget.Service.Problems;
+
+/// <summary>
+/// Turns exceptions that escape a handler into problem responses: the engine's and the service's own
+/// refusals keep their codes; anything else is a 500 that names the trace id and never the stack.
+/// </summary>
+internal sealed partial class ProblemExceptionHandler(IProblemDetailsService problems, ILogger<ProblemExceptionHandler> logger) : IExceptionHandler
+{
+    public async ValueTask<bool> TryHandleAsync(HttpContext httpContext, Exception exception, CancellationToken cancellationToken)
+    {
+        var (status, code, detail, errors) = exception switch
+        {
+            ServiceException e => (e.Status, e.Code, e.Message, e.Errors),
+            EngineException e => (StatusCodes.Status422UnprocessableEntity, e.Code, e.Message, null),
+            BadHttpRequestException { StatusCode: StatusCodes.Status413PayloadTooLarge } =>
+                (413, ProblemTypes.PayloadTooLarge, "The request body is larger than this endpoint accepts.", null),
+            BadHttpRequestException e => (e.StatusCode, ProblemTypes.ForStatus(e.StatusCode), "The request could not be read: " + e.Message, null),
+            _ => (500, ProblemTypes.InternalError, $"The service hit an unexpected error; its log has the details under trace id {httpContext.TraceIdentifier}.", (IReadOnlyDictionary<string, string[]>?)null),
+        };
+        if (status >= 500)
+        {
+            LogUnexpected(logger, exception, httpContext.Request.Path);
+        }
+
+        httpContext.Response.StatusCode = status;
+        var problem = new ProblemDetails { Status = status, Type = ProblemTypes.Uri(code), Title = ProblemTypes.Title(code), Detail = detail };
+        if (errors is not null)
+        {
+            problem.Extensions["errors"] = errors;
+        }
+
+        return await problems.TryWriteAsync(new ProblemDetailsContext { HttpContext = httpContext, ProblemDetails = problem, Exception = exception })
+            .ConfigureAwait(false);
+    }
+
+    [LoggerMessage(EventId = 1000, Level = LogLevel.Error, Message = "Unexpected error while serving {Path}")]
+    private static partial void LogUnexpected(ILogger logger, Exception exception, string path);
+}

@@ -1,0 +1,23 @@
+namespace Bitbudget.Service.Searches;
+
+/// <summary>The body of POST /v1/searches; everything but the ids and the budget has a default.</summary>
+/// <param name="Bits">Candidate bit widths: 2..8, 16 (half precision) or 32 (keep FP32). Default 2, 3, 4, 5, 6, 8.</param>
+/// <param name="Method">"knapsack" (default) or "greedy".</param>
+/// <param name="Scheme">"symmetric" (default) or "asymmetric".</param>
+/// <param name="Granularity">"per-channel" (default) or "per-tensor".</param>
+/// <param name="Calibration">"min-max" (default), "percentile", "mse-optimal", "analytic-laplace" or "analytic-gaussian".</param>
+/// <param name="Activations">Also quantize activations to 8 bits (models with opset 13 or later).</param>
+/// <param name="Pin">Layers forced to one bit width.</param>
+/// <param name="Exclude">Layers kept in FP32.</param>
+internal sealed record SearchRequest(
+    string? ModelId,
+    string? DatasetId,
+    BudgetSpec? Budget,
+    IReadOnlyList<int>? Bits = null,
+    string? Method = null,
+    string? Scheme = null,
+    string? Granularity = null,
+    string? Calibration = null,
+    bool? Activations = null,
+    IReadOnlyDictionary<string, int>? Pin = null,
+    IReadOnlyList<string>? Exclude = null);

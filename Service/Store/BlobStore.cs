@@ -1,0 +1,84 @@
+using System.Security.Cryptography;
+
+namespace Bitbudget.Service.Store;
+
+/// <summary>
+/// Content-addressed files under &lt;data&gt;/blobs: a blob's name is the SHA-256 of its bytes, so a write
+/// is idempotent and a reader never sees a half-written file.
+/// </summary>
+internal sealed class BlobStore
+{
+    private readonly string root;
+    private readonly string staging;
+
+    public BlobStore(string root)
+    {
+        this.root = root;
+        staging = System.IO.Path.Combine(root, "tmp");
+        Directory.CreateDirectory(staging);
+    }
+
+    public static string Sha256Hex(ReadOnlySpan<byte> bytes) => Convert.ToHexStringLower(SHA256.HashData(bytes));
+
+    /// <summary>Stores the bytes (temp file, fsync, atomic rename) unless that content is already there.</summary>
+    /// <returns>The lower-case hex SHA-256 that names the blob.</returns>
+    public string Put(ReadOnlySpan<byte> bytes)
+    {
+        var sha = Sha256Hex(bytes);
+        var target = PathOf(sha);
+        if (File.Exists(target))
+        {
+            return sha;
+        }
+
+        Directory.CreateDirectory(System.IO.Path.GetDirectoryName(target)!);
+        var temp = System.IO.Path.Combine(staging, $"{sha}.{Guid.NewGuid():N}.part");
+        try
+        {
+            using (var stream = new FileStream(temp, FileMode.CreateNew, FileAccess.Write, FileShare.None, 1 << 16, FileOptions.None))
+            {
+                stream.Write(bytes);
+                // Data must reach the disk before the rename makes it visible under its final name.
+                stream.Flush(flushToDisk: true);
+            }
+
+            try
+            {
+                File.Move(temp, target, overwrite: false);
+            }
+            catch (IOException) when (File.Exists(target))
+            {
+                // Another writer stored the same content first; its file has the same bytes.
+            }
+        }
+        finally
+        {
+            File.Delete(temp);
+        }
+
+        return sha;
+    }
+
+    public bool Exists(string sha256) => File.Exists(PathOf(sha256));
+
+    public byte[] Read(string sha256)
+    {
+        var path = PathOf(sha256);
+        if (!File.Exists(path))
+        {
+            throw new FileNotFoundException($"Blob {sha256} is missing from the data folder.", path);
+        }
+
+        return File.ReadAllBytes(path);
+    }
+
+    public string PathOf(string sha256)
+    {
+        if (sha256.Length != 64 || !sha256.All(char.IsAsciiHexDigitLower))
+        {
+            throw new ArgumentException("A blob name is 64 lower-case hex digits.", nameof(sha256));
+        }
+
+        return System.IO.Path.Combine(root, sha256[..2], sha256);
+    }
+}

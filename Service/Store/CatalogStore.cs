@@ -1,0 +1,110 @@
+using Bitbudget.Service.Engine;
+using Microsoft.Data.Sqlite;
+
+namespace Bitbudget.Service.Store;
+
+/// <summary>Uploaded models and datasets, one row per distinct content (SHA-256).</summary>
+internal sealed class CatalogStore(Database database)
+{
+    /// <returns>The stored model and whether this call created it (false: the same bytes were uploaded before).</returns>
+    public (ModelRecord Model, bool Created) AddModel(ModelSummary summary)
+    {
+        using var connection = database.Open();
+        using var insert = connection.CreateCommand();
+        insert.CommandText = """
+            INSERT INTO models (id, sha256, name, bytes, summary_json, created_at)
+            VALUES ($id, $sha, $name, $bytes, $json, $at)
+            ON CONFLICT(sha256) DO NOTHING;
+            """;
+        insert.Parameters.AddWithValue("$id", Ids.New("mdl"));
+        insert.Parameters.AddWithValue("$sha", summary.Sha256);
+        insert.Parameters.AddWithValue("$name", summary.Name);
+        insert.Parameters.AddWithValue("$bytes", summary.Bytes);
+        insert.Parameters.AddWithValue("$json", StoreJson.Write(summary));
+        insert.Parameters.AddWithValue("$at", Clock.Format(DateTimeOffset.UtcNow));
+        var created = insert.ExecuteNonQuery() == 1;
+        return (QueryModels(connection, "WHERE sha256 = $p", summary.Sha256).Single(), created);
+    }
+
+    public ModelRecord? FindModel(string id)
+    {
+        using var connection = database.Open();
+        return QueryModels(connection, "WHERE id = $p", id).SingleOrDefault();
+    }
+
+    public ModelRecord? FindModelBySha(string sha256)
+    {
+        using var connection = database.Open();
+        return QueryModels(connection, "WHERE sha256 = $p", sha256).SingleOrDefault();
+    }
+
+    public IReadOnlyList<ModelRecord> ListModels()
+    {
+        using var connection = database.Open();
+        return QueryModels(connection, "ORDER BY created_at DESC, rowid DESC", null);
+    }
+
+    public (DatasetRecord Dataset, bool Created) AddDataset(DatasetSummary summary, long bytes)
+    {
+        using var connection = database.Open();
+        using var insert = connection.CreateCommand();
+        insert.CommandText = """
+            INSERT INTO datasets (id, sha256, bytes, summary_json, created_at)
+            VALUES ($id, $sha, $bytes, $json, $at)
+            ON CONFLICT(sha256) DO NOTHING;
+            """;
+        insert.Parameters.AddWithValue("$id", Ids.New("dst"));
+        insert.Parameters.AddWithValue("$sha", summary.Sha256);
+        insert.Parameters.AddWithValue("$bytes", bytes);
+        insert.Parameters.AddWithValue("$json", StoreJson.Write(summary));
+        insert.Parameters.AddWithValue("$at", Clock.Format(DateTimeOffset.UtcNow));
+        var created = insert.ExecuteNonQuery() == 1;
+        return (QueryDatasets(connection, "WHERE sha256 = $p", summary.Sha256).Single(), created);
+    }
+
+    public DatasetRecord? FindDataset(string id)
+    {
+        using var connection = database.Open();
+        return QueryDatasets(connection, "WHERE id = $p", id).SingleOrDefault();
+    }
+
+    public DatasetRecord? FindDatasetBySha(string sha256)
+    {
+        using var connection = database.Open();
+        return QueryDatasets(connection, "WHERE sha256 = $p", sha256).SingleOrDefault();
+    }
+
+    private static List<ModelRecord> QueryModels(SqliteConnection connection, string where, string? parameter)
+    {
+        using var command = connection.CreateCommand();
+        command.CommandText = $"SELECT id, summary_json, created_at FROM models {where};";
+        if (parameter is not null)
+        {
+            command.Parameters.AddWithValue("$p", parameter);
+        }
+
+        var list = new List<ModelRecord>();
+        using var reader = command.ExecuteReader();
+        while (reader.Read())
+        {
+            list.Add(new ModelRecord(reader.GetString(0), StoreJson.Read<ModelSummary>(reader.GetString(1)), Clock.Parse(reader.GetString(2))));
+        }
+
+        return list;
+    }
+
+    private static List<DatasetRecord> QueryDatasets(SqliteConnection connection, string where, string parameter)
+    {
+        using var command = connection.CreateCommand();
+        command.CommandText = $"SELECT id, bytes, summary_json, created_at FROM datasets {where};";
+        command.Parameters.AddWithValue("$p", parameter);
+        var list = new List<DatasetRecord>();
+        using var reader = command.ExecuteReader();
+        while (reader.Read())
+        {
+            list.Add(new DatasetRecord(reader.GetString(0), reader.GetInt64(1), StoreJson.Read<DatasetSummary>(reader.GetString(2)), Clock.Parse(reader.GetString(3))));
+        }
+
+        return list;
+    }
+}

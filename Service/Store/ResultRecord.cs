@@ -1,0 +1,17 @@
+namespace Bitbudget.Service.Store;
+
+/// <summary>A finished search's totals and the blobs (by SHA-256) of its artifacts.</summary>
+internal sealed record ResultRecord(
+    string SearchId,
+    bool Feasible,
+    string Message,
+    string ManifestSha256,
+    string? ModelSha256,
+    string SensitivitySha256,
+    string FrontierSha256,
+    long Bytes,
+    double AverageBits,
+    double Compression,
+    double Predicted,
+    double Measured,
+    int TrialCount);

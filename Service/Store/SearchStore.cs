@@ -1,0 +1,327 @@
+using Bitbudget.Service.Searches;
+using Microsoft.Data.Sqlite;
+
+namespace Bitbudget.Service.Store;
+
+/// <summary>
+/// Searches and their results. Every state change is one conditional UPDATE, so concurrent runs of the
+/// same search (a job fetched twice, a restart) cannot both finish it: only the lease holder of a
+/// running search can complete or fail it, and a canceled search stays canceled.
+/// </summary>
+internal sealed class SearchStore(Database database)
+{
+    private const string Columns = """
+        id, model_id, dataset_id, settings_json, state, stage, progress_done, progress_total, eta_seconds,
+        error_code, error_message, job_id, attempts, idempotency_key, request_hash, created_at, started_at, finished_at, lease_until
+        """;
+
+    /// <summary>Adds a queued search, or returns the one already stored under the same idempotency key.</summary>
+    /// <returns>The stored search and whether this call created it.</returns>
+    public (SearchRecord Search, bool Created) Create(string modelId, string datasetId, SearchSpec spec, string? idempotencyKey, string requestHash)
+    {
+        using var connection = database.Open();
+        using var transaction = connection.BeginTransaction();
+        if (idempotencyKey is not null && Query(connection, transaction, "WHERE idempotency_key = $p", idempotencyKey).SingleOrDefault() is { } existing)
+        {
+            return (existing, false);
+        }
+
+        var id = Ids.New("srch");
+        using (var insert = connection.CreateCommand())
+        {
+            insert.Transaction = transaction;
+            insert.CommandText = """
+                INSERT INTO searches (id, model_id, dataset_id, settings_json, state, idempotency_key, request_hash, created_at)
+                VALUES ($id, $model, $dataset, $spec, 'queued', $key, $hash, $at);
+                """;
+            insert.Parameters.AddWithValue("$id", id);
+            insert.Parameters.AddWithValue("$model", modelId);
+            insert.Parameters.AddWithValue("$dataset", datasetId);
+            insert.Parameters.AddWithValue("$spec", StoreJson.Write(spec));
+            insert.Parameters.AddWithValue("$key", (object?)idempotencyKey ?? DBNull.Value);
+            insert.Parameters.AddWithValue("$hash", requestHash);
+            insert.Parameters.AddWithValue("$at", Clock.Format(DateTimeOffset.UtcNow));
+            insert.ExecuteNonQuery();
+        }
+
+        var created = Query(connection, transaction, "WHERE id = $p", id).Single();
+        transaction.Commit();
+        return (created, true);
+    }
+
+    public SearchRecord? Find(string id)
+    {
+        using var connection = database.Open();
+        return Query(connection, null, "WHERE id = $p", id).SingleOrDefault();
+    }
+
+    public SearchRecord? FindByIdempotencyKey(string key)
+    {
+        using var connection = database.Open();
+        return Query(connection, null, "WHERE idempotency_key = $p", key).SingleOrDefault();
+    }
+
+    /// <summary>Searches, newest first, optionally for one model.</summary>
+    public IReadOnlyList<SearchRecord> List(string? modelId, int limit)
+    {
+        using var connection = database.Open();
+        var where = modelId is null ? "" : "WHERE model_id = $p";
+        return Query(connection, null, $"{where} ORDER BY created_at DESC, rowid DESC LIMIT {limit}", modelId);
+    }
+
+    /// <summary>Searches that are queued or running, for re-enqueueing at start.</summary>
+    public IReadOnlyList<SearchRecord> ListUnfinished()
+    {
+        using var connection = database.Open();
+        return Query(connection, null, "WHERE state IN ('queued', 'running') ORDER BY created_at", null);
+    }
+
+    public void SetJobId(string id, string jobId) =>
+        Execute("UPDATE searches SET job_id = $job WHERE id = $id;", ("$id", id), ("$job", jobId));
+
+    /// <summary>Takes the search for one run: it must be queued or running, and any other run's lease must have expired.</summary>
+    public ClaimOutcome TryClaim(string id, string owner, TimeSpan lease)
+    {
+        var now = DateTimeOffset.UtcNow;
+        var changed = Execute(
+            """
+            UPDATE searches
+            SET state = 'running', lease_owner = $owner, lease_until = $until, attempts = attempts + 1,
+                started_at = COALESCE(started_at, $now), error_code = NULL, error_message = NULL
+            WHERE id = $id AND state IN ('queued', 'running')
+              AND (lease_owner IS NULL OR lease_owner = $owner OR lease_until IS NULL OR lease_until < $now);
+            """,
+            ("$id", id),
+            ("$owner", owner),
+            ("$until", Clock.Format(now + lease)),
+            ("$now", Clock.Format(now)));
+        if (changed == 1)
+        {
+            return ClaimOutcome.Claimed;
+        }
+
+        var current = Find(id);
+        return current is null || SearchStates.IsFinal(current.State) ? ClaimOutcome.Final : ClaimOutcome.Held;
+    }
+
+    /// <summary>Records progress and extends the lease.</summary>
+    /// <returns>False when this run no longer owns a running search (canceled, or the lease was lost).</returns>
+    public bool Report(string id, string owner, TimeSpan lease, string stage, int done, int total, double? etaSeconds) =>
+        Execute(
+            """
+            UPDATE searches
+            SET stage = $stage, progress_done = $done, progress_total = $total, eta_seconds = $eta, lease_until = $until
+            WHERE id = $id AND state = 'running' AND lease_owner = $owner;
+            """,
+            ("$id", id),
+            ("$owner", owner),
+            ("$stage", stage),
+            ("$done", done),
+            ("$total", total),
+            ("$eta", etaSeconds),
+            ("$until", Clock.Format(DateTimeOffset.UtcNow + lease))) == 1;
+
+    /// <summary>Marks the search succeeded and stores its result, in one transaction, only for the lease holder.</summary>
+    /// <returns>False when this run no longer owns the search; nothing is written then.</returns>
+    public bool Complete(string owner, ResultRecord result)
+    {
+        var now = Clock.Format(DateTimeOffset.UtcNow);
+        using var connection = database.Open();
+        using var transaction = connection.BeginTransaction();
+        using (var update = connection.CreateCommand())
+        {
+            update.Transaction = transaction;
+            update.CommandText = """
+                UPDATE searches
+                SET state = 'succeeded', stage = 'export', progress_done = progress_total, eta_seconds = 0,
+                    finished_at = $now, lease_owner = NULL, lease_until = NULL
+                WHERE id = $id AND state = 'running' AND lease_owner = $owner;
+                """;
+            update.Parameters.AddWithValue("$id", result.SearchId);
+            update.Parameters.AddWithValue("$owner", owner);
+            update.Parameters.AddWithValue("$now", now);
+            if (update.ExecuteNonQuery() != 1)
+            {
+                return false;
+            }
+        }
+
+        using (var insert = connection.CreateCommand())
+        {
+            insert.Transaction = transaction;
+            insert.CommandText = """
+                INSERT INTO results (search_id, feasible, message, manifest_sha256, model_sha256, sensitivity_sha256,
+                    frontier_sha256, bytes, average_bits, compression, predicted, measured, trial_count, created_at)
+                VALUES ($id, $feasible, $message, $manifest, $model, $csv, $frontier, $bytes, $bits, $compression,
+                    $predicted, $measured, $trials, $now)
+                ON CONFLICT(search_id) DO NOTHING;
+                """;
+            insert.Parameters.AddWithValue("$id", result.SearchId);
+            insert.Parameters.AddWithValue("$feasible", result.Feasible ? 1 : 0);
+            insert.Parameters.AddWithValue("$message", result.Message);
+            insert.Parameters.AddWithValue("$manifest", result.ManifestSha256);
+            insert.Parameters.AddWithValue("$model", (object?)result.ModelSha256 ?? DBNull.Value);
+            insert.Parameters.AddWithValue("$csv", result.SensitivitySha256);
+            insert.Parameters.AddWithValue("$frontier", result.FrontierSha256);
+            insert.Parameters.AddWithValue("$bytes", result.Bytes);
+            insert.Parameters.AddWithValue("$bits", result.AverageBits);
+            insert.Parameters.AddWithValue("$compression", result.Compression);
+            insert.Parameters.AddWithValue("$predicted", result.Predicted);
+            insert.Parameters.AddWithValue("$measured", result.Measured);
+            insert.Parameters.AddWithValue("$trials", result.TrialCount);
+            insert.Parameters.AddWithValue("$now", now);
+            insert.ExecuteNonQuery();
+        }
+
+        transaction.Commit();
+        return true;
+    }
+
+    /// <summary>Ends a running search as failed (lease holder only).</summary>
+    public bool Fail(string id, string owner, string code, string message) =>
+        Execute(
+            """
+            UPDATE searches
+            SET state = 'failed', error_code = $code, error_message = $message, finished_at = $now,
+                eta_seconds = NULL, lease_owner = NULL, lease_until = NULL
+            WHERE id = $id AND state = 'running' AND lease_owner = $owner;
+            """,
+            ("$id", id),
+            ("$owner", owner),
+            ("$code", code),
+            ("$message", message),
+            ("$now", Clock.Format(DateTimeOffset.UtcNow))) == 1;
+
+    /// <summary>Gives the lease up so another run can take over at once (shutdown, or a retry after an error).</summary>
+    public void Release(string id, string owner, string? errorCode = null, string? errorMessage = null) =>
+        Execute(
+            """
+            UPDATE searches SET lease_owner = NULL, lease_until = NULL, error_code = $code, error_message = $message
+            WHERE id = $id AND state = 'running' AND lease_owner = $owner;
+            """,
+            ("$id", id),
+            ("$owner", owner),
+            ("$code", errorCode),
+            ("$message", errorMessage));
+
+    /// <summary>Cancels a queued or running search.</summary>
+    /// <returns>False when the search had already finished.</returns>
+    public bool Cancel(string id) =>
+        Execute(
+            """
+            UPDATE searches
+            SET state = 'canceled', finished_at = $now, eta_seconds = NULL, lease_owner = NULL, lease_until = NULL
+            WHERE id = $id AND state IN ('queued', 'running');
+            """,
+            ("$id", id),
+            ("$now", Clock.Format(DateTimeOffset.UtcNow))) == 1;
+
+    public ResultRecord? FindResult(string searchId)
+    {
+        using var connection = database.Open();
+        using var command = connection.CreateCommand();
+        command.CommandText = """
+            SELECT search_id, feasible, message, manifest_sha256, model_sha256, sensitivity_sha256, frontier_sha256,
+                bytes, average_bits, compression, predicted, measured, trial_count
+            FROM results WHERE search_id = $id;
+            """;
+        command.Parameters.AddWithValue("$id", searchId);
+        using var reader = command.ExecuteReader();
+        if (!reader.Read())
+        {
+            return null;
+        }
+
+        return new ResultRecord(
+            reader.GetString(0),
+            reader.GetInt64(1) != 0,
+            reader.GetString(2),
+            reader.GetString(3),
+            reader.IsDBNull(4) ? null : reader.GetString(4),
+            reader.GetString(5),
+            reader.GetString(6),
+            reader.GetInt64(7),
+            reader.GetDouble(8),
+            reader.GetDouble(9),
+            reader.GetDouble(10),
+            reader.GetDouble(11),
+            reader.GetInt32(12));
+    }
+
+    public int CountResults(string searchId)
+    {
+        using var connection = database.Open();
+        using var command = connection.CreateCommand();
+        command.CommandText = "SELECT COUNT(*) FROM results WHERE search_id = $id;";
+        command.Parameters.AddWithValue("$id", searchId);
+        return Convert.ToInt32(command.ExecuteScalar(), System.Globalization.CultureInfo.InvariantCulture);
+    }
+
+    /// <summary>How many searches are in each state (every state listed, zero included).</summary>
+    public IReadOnlyDictionary<string, long> CountByState()
+    {
+        var counts = SearchStates.All.ToDictionary(s => s, _ => 0L, StringComparer.Ordinal);
+        using var connection = database.Open();
+        using var command = connection.CreateCommand();
+        command.CommandText = "SELECT state, COUNT(*) FROM searches GROUP BY state;";
+        using var reader = command.ExecuteReader();
+        while (reader.Read())
+        {
+            counts[reader.GetString(0)] = reader.GetInt64(1);
+        }
+
+        return counts;
+    }
+
+    private int Execute(string sql, params (string Name, object? Value)[] parameters)
+    {
+        using var connection = database.Open();
+        using var command = connection.CreateCommand();
+        command.CommandText = sql;
+        foreach (var (name, value) in parameters)
+        {
+            command.Parameters.AddWithValue(name, value ?? DBNull.Value);
+        }
+
+        return command.ExecuteNonQuery();
+    }
+
+    private static List<SearchRecord> Query(SqliteConnection connection, SqliteTransaction? transaction, string tail, string? parameter)
+    {
+        using var command = connection.CreateCommand();
+        command.Transaction = transaction;
+        command.CommandText = $"SELECT {Columns} FROM searches {tail};";
+        if (parameter is not null)
+        {
+            command.Parameters.AddWithValue("$p", parameter);
+        }
+
+        var list = new List<SearchRecord>();
+        using var reader = command.ExecuteReader();
+        while (reader.Read())
+        {
+            list.Add(new SearchRecord(
+                reader.GetString(0),
+                reader.GetString(1),
+                reader.GetString(2),
+                StoreJson.Read<SearchSpec>(reader.GetString(3)),
+                reader.GetString(4),
+                reader.IsDBNull(5) ? null : reader.GetString(5),
+                reader.GetInt32(6),
+                reader.GetInt32(7),
+                reader.IsDBNull(8) ? null : reader.GetDouble(8),
+                reader.IsDBNull(9) ? null : reader.GetString(9),
+                reader.IsDBNull(10) ? null : reader.GetString(10),
+                reader.IsDBNull(11) ? null : reader.GetString(11),
+                reader.GetInt32(12),
+                reader.IsDBNull(13) ? null : reader.GetString(13),
+                reader.GetString(14),
+                Clock.Parse(reader.GetString(15)),
+                Clock.ParseOrNull(reader.IsDBNull(16) ? null : reader.GetString(16)),
+                Clock.ParseOrNull(reader.IsDBNull(17) ? null : reader.GetString(17)),
+                Clock.ParseOrNull(reader.IsDBNull(18) ? null : reader.GetString(18))));
+        }
+
+        return list;
+    }
+}

@@ -1,0 +1,90 @@
+using Bitbudget.Search.Evaluation;
+using Bitbudget.Search.Planning;
+
+namespace Bitbudget.Service.Store;
+
+/// <summary>
+/// The engine's <see cref="ITrialStore"/> over the trials table, for one search. A key is stored at most
+/// once (UNIQUE(search_id, key) with ON CONFLICT DO NOTHING), so a rerun or a second concurrent run of the
+/// same search cannot duplicate a trial.
+/// </summary>
+internal sealed class TrialStore(Database database, string searchId) : ITrialStore
+{
+    public IReadOnlyDictionary<string, TrialRecord> LoadAll()
+    {
+        using var connection = database.Open();
+        using var command = connection.CreateCommand();
+        command.CommandText = """
+            SELECT key, kind, layer, bits, assignment_hash, metrics_json, duration_ms
+            FROM trials WHERE search_id = $id ORDER BY rowid;
+            """;
+        command.Parameters.AddWithValue("$id", searchId);
+        var trials = new Dictionary<string, TrialRecord>(StringComparer.Ordinal);
+        using var reader = command.ExecuteReader();
+        while (reader.Read())
+        {
+            var trial = ReadTrial(reader);
+            trials[trial.Key] = trial;
+        }
+
+        return trials;
+    }
+
+    public void Save(TrialRecord trial)
+    {
+        ArgumentNullException.ThrowIfNull(trial);
+        using var connection = database.Open();
+        using var command = connection.CreateCommand();
+        command.CommandText = """
+            INSERT INTO trials (search_id, key, kind, layer, bits, assignment_hash, metrics_json, duration_ms, created_at)
+            VALUES ($id, $key, $kind, $layer, $bits, $hash, $metrics, $duration, $at)
+            ON CONFLICT(search_id, key) DO NOTHING;
+            """;
+        command.Parameters.AddWithValue("$id", searchId);
+        command.Parameters.AddWithValue("$key", trial.Key);
+        command.Parameters.AddWithValue("$kind", trial.Kind);
+        command.Parameters.AddWithValue("$layer", (object?)trial.Layer ?? DBNull.Value);
+        command.Parameters.AddWithValue("$bits", (object?)trial.Bits ?? DBNull.Value);
+        command.Parameters.AddWithValue("$hash", (object?)trial.AssignmentHash ?? DBNull.Value);
+        command.Parameters.AddWithValue("$metrics", StoreJson.Write(trial.Metrics));
+        command.Parameters.AddWithValue("$duration", trial.DurationMs);
+        command.Parameters.AddWithValue("$at", Clock.Format(DateTimeOffset.UtcNow));
+        command.ExecuteNonQuery();
+    }
+
+    /// <summary>One page of trials in the order they were stored, and how many there are in all.</summary>
+    public (long Total, IReadOnlyList<TrialRecord> Items) Page(int offset, int limit)
+    {
+        using var connection = database.Open();
+        using var count = connection.CreateCommand();
+        count.CommandText = "SELECT COUNT(*) FROM trials WHERE search_id = $id;";
+        count.Parameters.AddWithValue("$id", searchId);
+        var total = Convert.ToInt64(count.ExecuteScalar(), System.Globalization.CultureInfo.InvariantCulture);
+
+        using var command = connection.CreateCommand();
+        command.CommandText = """
+            SELECT key, kind, layer, bits, assignment_hash, metrics_json, duration_ms
+            FROM trials WHERE search_id = $id ORDER BY rowid LIMIT $limit OFFSET $offset;
+            """;
+        command.Parameters.AddWithValue("$id", searchId);
+        command.Parameters.AddWithValue("$limit", limit);
+        command.Parameters.AddWithValue("$offset", offset);
+        var items = new List<TrialRecord>();
+        using var reader = command.ExecuteReader();
+        while (reader.Read())
+        {
+            items.Add(ReadTrial(reader));
+        }
+
+        return (total, items);
+    }
+
+    private static TrialRecord ReadTrial(Microsoft.Data.Sqlite.SqliteDataReader reader) => new(
+        reader.GetString(0),
+        reader.GetString(1),
+        reader.IsDBNull(2) ? null : reader.GetString(2),
+        reader.IsDBNull(3) ? null : reader.GetInt32(3),
+        reader.IsDBNull(4) ? null : reader.GetString(4),
+        StoreJson.Read<MetricSet>(reader.GetString(5)),
+        reader.GetDouble(6));
+}

@@ -1,0 +1,57 @@
+using System.Globalization;
+using Bitbudget.Search;
+using Bitbudget.Service.Engine;
+using Bitbudget.Service.Hosting;
+using Bitbudget.Service.Store;
+using Microsoft.Extensions.Options;
+
+namespace Bitbudget.Service.Uploads;
+
+/// <summary>
+/// Accepts model and dataset uploads: the same bytes always give the same stored resource, and only
+/// content the engine can read is kept.
+/// </summary>
+internal sealed class UploadService(CatalogStore catalog, BlobStore blobs, ISearchEngine engine, IOptions<BitbudgetOptions> options)
+{
+    public (ModelRecord Model, bool Created) AddModel(byte[] bytes, string? name)
+    {
+        var sha = BlobStore.Sha256Hex(bytes);
+        if (catalog.FindModelBySha(sha) is { } known)
+        {
+            return (known, false);
+        }
+
+        var summary = engine.InspectModel(bytes, string.IsNullOrWhiteSpace(name) ? "model.onnx" : name.Trim());
+        var maxLayers = options.Value.MaxLayers;
+        if (summary.Layers.Count > maxLayers)
+        {
+            throw new EngineException(
+                "model-too-many-layers",
+                $"The model has {summary.Layers.Count.ToString(CultureInfo.InvariantCulture)} quantizable layers and this service accepts at most {maxLayers.ToString(CultureInfo.InvariantCulture)}; exclude part of the model or raise Bitbudget:MaxLayers.");
+        }
+
+        blobs.Put(bytes);
+        return catalog.AddModel(summary with { Sha256 = sha, Bytes = bytes.LongLength });
+    }
+
+    public (DatasetRecord Dataset, bool Created) AddDataset(byte[] bytes)
+    {
+        var sha = BlobStore.Sha256Hex(bytes);
+        if (catalog.FindDatasetBySha(sha) is { } known)
+        {
+            return (known, false);
+        }
+
+        var summary = engine.InspectDataset(bytes);
+        var maxSamples = options.Value.MaxDatasetSamples;
+        if (summary.Samples > maxSamples)
+        {
+            throw new EngineException(
+                "dataset-too-many-samples",
+                $"The dataset has {summary.Samples.ToString(CultureInfo.InvariantCulture)} samples and this service accepts at most {maxSamples.ToString(CultureInfo.InvariantCulture)}; a few hundred samples usually calibrate well (common practice).");
+        }
+
+        blobs.Put(bytes);
+        return catalog.AddDataset(summary with { Sha256 = sha }, bytes.LongLength);
+    }
+}

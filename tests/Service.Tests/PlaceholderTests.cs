@@ -1,1 +1,0 @@
-namespace Bitbudget.Service.Tests; public class PlaceholderTests { [Fact] public void Runs() => Assert.True(true); }
