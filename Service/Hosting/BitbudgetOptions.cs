@@ -44,7 +44,11 @@ internal sealed class BitbudgetOptions
     [Range(1, 3_600)]
     public int RequestTimeoutSeconds { get; set; } = 300;
 
-    /// <summary>How often to look for searches whose worker died, in seconds (a live run renews its lease every 15 s; the lease lasts 60 s).</summary>
+    /// <summary>How long a worker's claim on a running search lasts without renewal, in seconds (renewed four times per lease). After a crash the search is picked up again once it lapses.</summary>
+    [Range(4, 3600)]
+    public int LeaseSeconds { get; set; } = 60;
+
+    /// <summary>How often to look for searches whose worker died, in seconds.</summary>
     [Range(5, 3_600)]
     public int RecoveryIntervalSeconds { get; set; } = 60;
 

@@ -52,7 +52,7 @@ internal static class ServiceRegistration
         services.AddOpenApi();
 
         services.AddBitbudgetStore();
-        services.TryAddSingleton<ISearchEngine, MissingEngine>();
+        services.TryAddSingleton<ISearchEngine, EngineAdapter>();
         services.AddSingleton<UploadService>();
         services.AddSingleton<SearchService>();
         services.AddSingleton<SearchCancellations>();

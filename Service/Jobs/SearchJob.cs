@@ -2,7 +2,9 @@ using Bitbudget.Search;
 using Bitbudget.Service.Engine;
 using Bitbudget.Service.Searches;
 using Bitbudget.Service.Store;
+using Bitbudget.Service.Hosting;
 using Hangfire;
+using Microsoft.Extensions.Options;
 
 namespace Bitbudget.Service.Jobs;
 
@@ -18,13 +20,18 @@ internal sealed partial class SearchJob(
     Database database,
     ISearchEngine engine,
     SearchCancellations cancellations,
+    IOptions<BitbudgetOptions> options,
     ILogger<SearchJob> logger)
 {
     /// <summary>Total runs of one search before an unexpected error fails it (Hangfire's retries plus the first run).</summary>
     public const int MaxAttempts = 3;
 
-    public static readonly TimeSpan Lease = TimeSpan.FromSeconds(60);
-    private static readonly TimeSpan HeartbeatInterval = TimeSpan.FromSeconds(15);
+
+    /// <summary>How long a claim on a search lasts without a heartbeat; a crashed worker's search is free again after it.</summary>
+    private TimeSpan Lease => TimeSpan.FromSeconds(options.Value.LeaseSeconds);
+
+    /// <summary>Renewals come four times per lease, so one late heartbeat never loses a live run its claim.</summary>
+    private TimeSpan HeartbeatInterval => Lease / 4;
     private static readonly TimeSpan ClaimPollInterval = TimeSpan.FromMilliseconds(250);
 
     [AutomaticRetry(Attempts = MaxAttempts - 1, DelaysInSeconds = [5, 30], OnAttemptsExceeded = AttemptsExceededAction.Fail)]
