@@ -62,8 +62,10 @@ internal static class BenchmarkRun
         // A plain forward pass: the original model with constant weights, as a deployment would run it.
         using var plain = new InferenceSession(model.BuildWithWeights(new Dictionary<string, float[]>()));
         var plainMs = Timing.MedianMilliseconds(repeat, () => PlainPass(plain, data));
+        var asInputsMs = Timing.MedianMilliseconds(repeat, () => session.RunFull(new Dictionary<string, float[]>()));
+        Row("forward pass, weights as inputs vs weights as constants", asInputsMs, plainMs);
         var trialMs = Timing.MedianMilliseconds(repeat, () => session.MeasureLayer(layer, setting, allowSuffix: false));
-        Row("one trial (full graph) vs one plain forward pass", trialMs, plainMs);
+        Row("one trial (quantize, full graph, metrics) vs one plain forward pass", trialMs, plainMs);
 
         var rebuildMs = Timing.MedianMilliseconds(Math.Max(3, repeat / 2), () =>
         {
