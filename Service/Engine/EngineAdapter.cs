@@ -2,12 +2,18 @@ using System.Security.Cryptography;
 using Bitbudget.Search.Evaluation;
 using Bitbudget.Search.Onnx;
 using Bitbudget.Search.Planning;
+using Bitbudget.Service.Hosting;
+using Microsoft.Extensions.Options;
 
 namespace Bitbudget.Service.Engine;
 
 /// <summary>The real engine behind the service's port: loads uploads with the engine and runs searches.</summary>
-internal sealed class EngineAdapter : ISearchEngine
+internal sealed class EngineAdapter(IOptions<BitbudgetOptions> options) : ISearchEngine
 {
+    private DatasetLimits Limits => new(
+        MaxTotalBytes: options.Value.MaxDatasetDecodedBytes,
+        MaxArrayBytes: options.Value.MaxDatasetDecodedBytes);
+
     public ModelSummary InspectModel(byte[] bytes, string name)
     {
         var model = OnnxModel.Load(bytes, name);
@@ -24,7 +30,7 @@ internal sealed class EngineAdapter : ISearchEngine
 
     public DatasetSummary InspectDataset(byte[] bytes)
     {
-        var arrays = DatasetReader.Read(bytes);
+        var arrays = DatasetReader.Read(bytes, Limits);
         var samples = arrays.Count == 0 ? 0 : arrays.Max(a => a.SampleCount);
         return new DatasetSummary(
             Convert.ToHexStringLower(SHA256.HashData(bytes)),
@@ -34,7 +40,7 @@ internal sealed class EngineAdapter : ISearchEngine
     }
 
     public void CheckCompatible(byte[] model, byte[] dataset) =>
-        CalibrationSet.Create(DatasetReader.Read(dataset), OnnxModel.Load(model, "model").Inputs);
+        CalibrationSet.Create(DatasetReader.Read(dataset, Limits), OnnxModel.Load(model, "model").Inputs);
 
     public SearchResult RunSearch(
         byte[] model,
@@ -46,7 +52,7 @@ internal sealed class EngineAdapter : ISearchEngine
         CancellationToken cancellationToken)
     {
         var loaded = OnnxModel.Load(model, modelName);
-        var data = CalibrationSet.Create(DatasetReader.Read(dataset), loaded.Inputs);
+        var data = CalibrationSet.Create(DatasetReader.Read(dataset, Limits), loaded.Inputs);
         return SearchRunner.Run(loaded, data, settings, trials, progress, cancellationToken);
     }
 

@@ -32,6 +32,10 @@ internal sealed class BitbudgetOptions
     [Range(1, long.MaxValue)]
     public long MaxDatasetBytes { get; set; } = 1024L * 1024 * 1024;
 
+    /// <summary>Most bytes a dataset may decode to (a compressed .npz can inflate far beyond its upload size).</summary>
+    [Range(1, long.MaxValue)]
+    public long MaxDatasetDecodedBytes { get; set; } = 2048L * 1024 * 1024;
+
     /// <summary>Models with more quantizable layers are refused (each layer costs several trials).</summary>
     [Range(1, 100_000)]
     public int MaxLayers { get; set; } = 2_000;

@@ -21,6 +21,9 @@ public sealed class RealEngineServiceFactory : WebApplicationFactory<Program>
     /// <summary>Four OCR samples of [3, 48, 192] float32 (442 KB) fit.</summary>
     public const long MaxDatasetBytes = 1L << 20;
 
+    /// <summary>What a dataset may decode to here: above the 64 MiB zip bomb, so its ratio is what refuses it.</summary>
+    public const long MaxDatasetDecodedBytes = 96L << 20;
+
     private readonly int workers;
 
     public RealEngineServiceFactory()
@@ -52,6 +55,7 @@ public sealed class RealEngineServiceFactory : WebApplicationFactory<Program>
         builder.UseSetting("Bitbudget:QueuePollIntervalMs", "100");
         builder.UseSetting("Bitbudget:MaxModelBytes", MaxModelBytes.ToString(CultureInfo.InvariantCulture));
         builder.UseSetting("Bitbudget:MaxDatasetBytes", MaxDatasetBytes.ToString(CultureInfo.InvariantCulture));
+        builder.UseSetting("Bitbudget:MaxDatasetDecodedBytes", MaxDatasetDecodedBytes.ToString(CultureInfo.InvariantCulture));
         builder.UseSetting("Bitbudget:ApiKeys:0", ApiKey);
     }
 
