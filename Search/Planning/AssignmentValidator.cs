@@ -33,41 +33,68 @@ internal sealed class AssignmentValidator(
             return new SearchDecision(false, message, null, _rounds, highest.PredictedAdditive);
         }
 
+        // The additive model can be pessimistic (noise from many layers partly cancels) or optimistic
+        // (errors compound), so the additive target is steered by measurement in both directions:
+        // rescale it by how far the measurement landed from the budget, and bisect between the
+        // largest target whose choice met the budget and the smallest whose choice missed.
         var limit = AdditiveError.LimitToAdditive(metric, budget.Limit);
         var target = limit;
+        double met = 0, missed = double.PositiveInfinity;
         AssignmentMeasurement best = highest;
+        var seen = new HashSet<string>(StringComparer.Ordinal) { highest.Hash };
         for (var round = 1; round <= SearchRunner.MaxValidationRounds; round++)
         {
             cancellationToken.ThrowIfCancellationRequested();
             var selection = method == SearchMethod.Knapsack
                 ? KnapsackSolver.MinimumBytes(problem.Layers, target)
                 : GreedySolver.MinimumBytes(problem.Layers, target);
+
             // Greedy answers with its closest assignment even when that misses the target.
             if (selection is null || selection.Error > target)
             {
-                break;
+                // Below what the highest candidates predict: only the highest fits, and it was measured.
+                selection = problem.Highest();
             }
 
-            var measured = Measure(selection, budget);
-            progress?.Report(new SearchProgress(SearchStage.Validate, round, SearchRunner.MaxValidationRounds + 1));
+            var hash = TrialKeys.AssignmentHash(problem.AssignmentOf(selection));
+            AssignmentMeasurement measured;
+            if (seen.Add(hash))
+            {
+                measured = Measure(selection, budget);
+                progress?.Report(new SearchProgress(SearchStage.Validate, round, SearchRunner.MaxValidationRounds + 1));
+            }
+            else
+            {
+                measured = _rounds.First(r => r.Hash == hash);
+            }
+
+            if (measured.MeetsBudget && measured.Bytes < best.Bytes)
+            {
+                best = measured;
+            }
+
+            var measuredAdditive = AdditiveError.ToAdditive(metric, measured.Measured, reference);
+            var rescaled = measuredAdditive > 0 ? Math.Max(selection.Error, target * 0.25) * limit / measuredAdditive : target * 4;
             if (measured.MeetsBudget)
             {
-                if (measured.Bytes < best.Bytes)
-                {
-                    best = measured;
-                }
-
-                break;
+                met = Math.Max(met, target);
+                rescaled = Math.Min(Math.Max(rescaled, target * 1.05), target * 4);
+            }
+            else
+            {
+                missed = Math.Min(missed, target);
+                rescaled = Math.Min(rescaled, target * 0.9);
             }
 
-            // Tighten in proportion to how far the measurement overshot the prediction, and at least by 10 %.
-            var measuredAdditive = AdditiveError.ToAdditive(metric, measured.Measured, reference);
-            var ratio = measuredAdditive > 0 ? measured.PredictedAdditive / measuredAdditive : 0.5;
-            target = Math.Min(target * 0.9, target * ratio);
-            if (target <= 0)
+            var next = rescaled > met && rescaled < missed
+                ? rescaled
+                : double.IsPositiveInfinity(missed) ? met * 2 : met > 0 ? Math.Sqrt(met * missed) : missed / 2;
+            if (next <= 0 || Math.Abs(next - target) <= target * 1e-3)
             {
                 break;
             }
+
+            target = next;
         }
 
         var value = AdditiveError.MetricValue(metric, best.Measured, reference);

@@ -196,7 +196,9 @@ public sealed class SearchRunnerTests
         Assert.True(result.Feasible, result.Message);
         Assert.True(result.MeasuredError >= 30);
         var uniform8 = model.Layers.Sum(l => CostModel.LayerBytes(l.ParameterCount, l.Channels, 8, QuantizationScheme.Symmetric, Granularity.PerChannel));
-        Assert.True(result.Bytes <= uniform8, $"{result.Bytes} bytes vs uniform 8-bit {uniform8}");
+        // Strictly smaller: with 54 layers the additive model is pessimistic (8 bits everywhere is predicted
+        // below 30 dB and measures above it), and the validation loop must steer the target up to use the slack.
+        Assert.True(result.Bytes < uniform8 * 0.95, $"{result.Bytes} bytes vs uniform 8-bit {uniform8}");
 
         // At the size of uniform 4-bit, the mixed assignment loses less than uniform 4-bit.
         var uniform4 = model.Layers.Sum(l => CostModel.LayerBytes(l.ParameterCount, l.Channels, 4, QuantizationScheme.Symmetric, Granularity.PerChannel));
