@@ -1,7 +1,6 @@
 using System.Text.Json;
 using Bitbudget.Service.Demo;
-using Microsoft.ML.OnnxRuntime;
-using Microsoft.ML.OnnxRuntime.Tensors;
+using Bitbudget.Service.Tests.Support;
 using P = global::Onnx;
 
 namespace Bitbudget.Service.Tests.Commands;
@@ -60,22 +59,8 @@ public sealed class PlanCommandTests(PlanDemoFixture fixture) : IClassFixture<Pl
             proto.Graph.Node.Count(n => n.OpType == "DequantizeLinear"));
 
         var calibration = fixture.Demo.Calibration;
-        var reference = Outputs(File.ReadAllBytes(fixture.ModelPath), calibration);
-        var quantized = Outputs(quantizedBytes, calibration);
-        Assert.Equal(reference.Length, quantized.Length);
-        Assert.Equal(HiveMonitorScenario.CalibrationCount * 4, reference.Length);
-
-        // SQNR = 10 log10(signal power / noise power) over every output value of the calibration set.
-        double signal = 0, noise = 0;
-        for (var i = 0; i < reference.Length; i++)
-        {
-            signal += (double)reference[i] * reference[i];
-            var d = (double)quantized[i] - reference[i];
-            noise += d * d;
-        }
-
-        Assert.True(noise > 0, "The quantized model gives exactly the FP32 outputs; nothing was quantized.");
-        var sqnrDb = 10 * Math.Log10(signal / noise);
+        Assert.Equal(HiveMonitorScenario.CalibrationCount * 256, calibration.Spectrograms.Length);
+        var sqnrDb = OutputSqnr.Db(File.ReadAllBytes(fixture.ModelPath), quantizedBytes, HiveNetExporter.InputName, calibration.Spectrograms, calibration.Shape);
         Assert.True(Math.Abs(sqnrDb - claimed) <= 0.01, $"ONNX Runtime gives {sqnrDb:F4} dB; the manifest claims {claimed:F4} dB.");
     }
 
@@ -112,12 +97,4 @@ public sealed class PlanCommandTests(PlanDemoFixture fixture) : IClassFixture<Pl
     }
 
     private JsonDocument ReadJson(string name) => JsonDocument.Parse(File.ReadAllBytes(Path.Combine(fixture.PlanFolder, name)));
-
-    private static float[] Outputs(byte[] model, HiveSoundSet set)
-    {
-        using var session = new InferenceSession(model);
-        var input = new DenseTensor<float>(set.Spectrograms, set.Shape);
-        using var results = session.Run([NamedOnnxValue.CreateFromTensor(HiveNetExporter.InputName, input)]);
-        return results.Single(r => r.Name == HiveNetExporter.OutputName).AsEnumerable<float>().ToArray();
-    }
 }
