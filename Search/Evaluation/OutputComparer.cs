@@ -129,6 +129,8 @@ public static class OutputComparer
     /// <summary>Cosine of two rows; two zero rows are identical (1), one zero row is orthogonal (0).</summary>
     internal static double Cosine(ReadOnlySpan<float> reference, ReadOnlySpan<float> trial)
     {
+        // Identical rows are exactly 1; the float kernel below would give 1 - 1e-8 or so.
+        if (reference.SequenceEqual(trial)) return 1;
         double normR = TensorPrimitives.Norm(reference), normT = TensorPrimitives.Norm(trial);
         if (normR == 0 || normT == 0) return normR == normT ? 1 : 0;
         double cosine = TensorPrimitives.CosineSimilarity(reference, trial);
