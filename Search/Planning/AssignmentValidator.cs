@@ -4,9 +4,9 @@ using Bitbudget.Search.Evaluation;
 namespace Bitbudget.Search.Planning;
 
 /// <summary>
-/// Solves the knapsack (or runs greedy), measures the chosen assignment end to end, and when the
-/// measurement misses the budget tightens the additive budget and solves again. Additivity is only
-/// a model: layer errors interact, so the measurement, not the prediction, decides.
+/// Solves the knapsack (or runs greedy), measures the chosen assignment end to end, and steers the
+/// additive budget by the measurement (tighter when it missed, looser when it had room) before solving
+/// again. Additivity is only a model: layer errors interact, so the measurement, not the prediction, decides.
 /// </summary>
 internal sealed class AssignmentValidator(
     TrialSession session,
@@ -16,6 +16,9 @@ internal sealed class AssignmentValidator(
     CancellationToken cancellationToken)
 {
     private readonly List<AssignmentMeasurement> _rounds = [];
+
+    // Read once: a store may be a database, and this loop only adds validations it saves itself.
+    private readonly Dictionary<string, TrialRecord> _stored = new(store.LoadAll(), StringComparer.Ordinal);
 
     public SearchDecision MeetErrorBudget(ErrorBudget budget, SearchMethod method)
     {
@@ -131,12 +134,13 @@ internal sealed class AssignmentValidator(
         var assignment = problem.AssignmentOf(selection);
         var hash = TrialKeys.AssignmentHash(assignment);
         var key = TrialKeys.Validation(hash, SensitivitySweep.ActivationsFor(problem.Settings));
-        if (!store.LoadAll().TryGetValue(key, out var record))
+        if (!_stored.TryGetValue(key, out var record))
         {
             var clock = Stopwatch.StartNew();
             var metrics = session.MeasureAssignment(assignment);
             record = new TrialRecord(key, "validation", null, null, hash, metrics, clock.Elapsed.TotalMilliseconds);
             store.Save(record);
+            _stored[key] = record;
         }
 
         var meets = budget is ErrorBudget error
