@@ -85,10 +85,6 @@ public sealed class ActivationQdqTests
     private static List<OutputTensor> Run(byte[] bytes, CalibrationSet data, GraphOptimizationLevel level)
     {
         using var options = new SessionOptions { GraphOptimizationLevel = level };
-        using var session = new InferenceSession(bytes, options);
-        var input = data.Inputs[0];
-        using var value = OrtValue.CreateTensorValueFromMemory((float[])input.Data, input.Shape.ToArray());
-        using var results = session.Run(new RunOptions(), [session.InputNames[0]], [value], session.OutputNames);
-        return session.OutputNames.Select((name, i) => new OutputTensor(name, results[i].GetTensorDataAsSpan<float>().ToArray(), results[i].GetTensorTypeAndShape().Shape)).ToList();
+        return ExportedModelRunner.Run(bytes, data, options);
     }
 }

@@ -105,11 +105,7 @@ public sealed class QdqExporterTests
         // What the note warns about, observed: with ONNX Runtime's defaults the fused MatMul quantizes its activations.
         var data = SmallModels.MlpData(model);
         using var session = TrialSession.Open(model, data, new TrialSessionOptions(SuffixRuns: false));
-        using var defaults = new InferenceSession(exported.Bytes);
-        var input = data.Inputs[0];
-        using var value = OrtValue.CreateTensorValueFromMemory((float[])input.Data, input.Shape.ToArray());
-        using var results = defaults.Run(new RunOptions(), [model.Inputs[0].Name], [value], defaults.OutputNames);
-        var outputs = new[] { new OutputTensor(defaults.OutputNames[0], results[0].GetTensorDataAsSpan<float>().ToArray(), results[0].GetTensorTypeAndShape().Shape) };
+        var outputs = ExportedModelRunner.Run(exported.Bytes, data);
         var trial = session.MeasureAssignment(assignment);
         Assert.True(OutputComparer.Compare(session.ReferenceOutputs, outputs, null).SqnrDb < trial.SqnrDb);
     }
@@ -129,11 +125,7 @@ public sealed class QdqExporterTests
         // (accuracy level 1); ORT's default level quantizes that MatMul's activations too (see QdqExporter.MatMulNote).
         using var exportedOptions = new SessionOptions { GraphOptimizationLevel = GraphOptimizationLevel.ORT_ENABLE_ALL };
         exportedOptions.AddSessionConfigEntry(QdqExporter.MatMulAccuracyOption, "1");
-        using var exportedSession = new InferenceSession(exported, exportedOptions);
-        var input = data.Inputs[0];
-        using var value = OrtValue.CreateTensorValueFromMemory((float[])input.Data, input.Shape.ToArray());
-        using var results = exportedSession.Run(new RunOptions(), [model.Inputs[0].Name], [value], exportedSession.OutputNames);
-        var outputs = exportedSession.OutputNames.Select((name, i) => new OutputTensor(name, results[i].GetTensorDataAsSpan<float>().ToArray(), results[i].GetTensorTypeAndShape().Shape)).ToList();
+        var outputs = ExportedModelRunner.Run(exported, data, exportedOptions);
 
         var metrics = OutputComparer.Compare(trial, outputs, null);
         Assert.True(metrics.RelativeMse < 1e-12, $"exported model differs from the trial: relative MSE {metrics.RelativeMse}");
