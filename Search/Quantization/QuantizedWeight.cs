@@ -14,4 +14,16 @@ public sealed record QuantizedWeight(
     int Axis,
     float[] Scales,
     int[] ZeroPoints,
-    int[] Levels);
+    int[] Levels)
+{
+    /// <summary>
+    /// The same dequantized values on the uint8 grid: levels and zero points moved up by 128, so
+    /// s * ((q + 128) - (z + 128)) = s * (q - z). Used where a runtime's int8 kernel is less exact than its
+    /// uint8 one (see <see cref="Onnx.QdqExporter"/>).
+    /// </summary>
+    public QuantizedWeight ShiftedToUnsigned() => this with
+    {
+        ZeroPoints = Array.ConvertAll(ZeroPoints, z => z + 128),
+        Levels = Array.ConvertAll(Levels, q => q + 128),
+    };
+}
