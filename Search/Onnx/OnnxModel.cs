@@ -13,8 +13,10 @@ public sealed class OnnxModel
 {
     private readonly Dictionary<string, P.TensorProto> weightTensors;
 
-    private OnnxModel(string name, string sha256, P.ModelProto proto, IReadOnlyList<WeightLayer> layers, IReadOnlyList<string> notes)
+    private OnnxModel(string name, string sha256, P.ModelProto proto, IReadOnlyList<WeightLayer> layers, IReadOnlyList<string> notes, OpsetRaise? raise, RaisedGraphs? raisedGraphs)
     {
+        Raise = raise;
+        RaisedGraphs = raisedGraphs;
         Name = name;
         Sha256 = sha256;
         Proto = proto;
@@ -35,8 +37,17 @@ public sealed class OnnxModel
     /// <summary>Lower-case hex SHA-256 of the uploaded bytes.</summary>
     public string Sha256 { get; }
 
-    /// <summary>Version of the standard ONNX operator set (domain "" or "ai.onnx").</summary>
+    /// <summary>Version of the standard ONNX operator set (domain "" or "ai.onnx"): the target opset when the model was raised.</summary>
     public long Opset { get; }
+
+    /// <summary>The standard opset the upload imported (equal to <see cref="Opset"/> unless the model was raised).</summary>
+    public long OriginalOpset => Raise?.FromOpset ?? Opset;
+
+    /// <summary>The explicit opset raise applied at load time; null when no target opset was asked for.</summary>
+    public OpsetRaise? Raise { get; }
+
+    /// <summary>The upload and its raised form, both before normalisation, for checking the raise in ONNX Runtime; null when nothing was rewritten.</summary>
+    internal RaisedGraphs? RaisedGraphs { get; }
 
     public long IrVersion { get; }
 
@@ -54,21 +65,37 @@ public sealed class OnnxModel
     /// <summary>The normalised model.</summary>
     internal P.ModelProto Proto { get; }
 
-    /// <summary>Reads, checks and normalises a model; throws <see cref="EngineException"/> for anything the engine cannot quantize.</summary>
-    public static OnnxModel Load(byte[] bytes, string name)
+    /// <summary>
+    /// Reads, checks and normalises a model; throws <see cref="EngineException"/> for anything the engine cannot quantize.
+    /// With <paramref name="targetOpset"/>, the graph is first raised to that standard opset (see <see cref="OpsetRaiser"/>),
+    /// so normalisation, layers, trials and export all see the raised graph; whether the raise kept the outputs is
+    /// checked on the calibration set by <see cref="Evaluation.OpsetRaiseCheck"/>.
+    /// </summary>
+    public static OnnxModel Load(byte[] bytes, string name, long? targetOpset = null)
     {
         ArgumentNullException.ThrowIfNull(bytes);
         var proto = ModelChecks.Parse(bytes, name);
         ModelChecks.DefaultOpset(proto);
         ModelChecks.RefuseExternalData(proto);
         ModelChecks.RefuseQuantizedOps(proto);
+        OpsetRaise? raise = null;
+        RaisedGraphs? raisedGraphs = null;
+        if (targetOpset is { } target)
+        {
+            raise = OpsetRaiser.Raise(proto, target);
+            if (raise.FromOpset != raise.ToOpset)
+            {
+                raisedGraphs = new RaisedGraphs(bytes, proto.ToByteArray());
+            }
+        }
+
         var (layers, notes) = ModelNormaliser.Normalise(proto);
         var sha256 = Convert.ToHexStringLower(SHA256.HashData(bytes));
-        return new OnnxModel(name, sha256, proto, layers, notes);
+        return new OnnxModel(name, sha256, proto, layers, notes, raise, raisedGraphs);
     }
 
     /// <summary>Loads a model file; only that one file is ever read (external data is refused, not followed).</summary>
-    public static OnnxModel LoadFile(string path)
+    public static OnnxModel LoadFile(string path, long? targetOpset = null)
     {
         byte[] bytes;
         try
@@ -84,7 +111,7 @@ public sealed class OnnxModel
             throw new EngineException("model-unreadable", $"The model file '{path}' cannot be read: {ex.Message}", ex);
         }
 
-        return Load(bytes, Path.GetFileNameWithoutExtension(path));
+        return Load(bytes, Path.GetFileNameWithoutExtension(path), targetOpset);
     }
 
     /// <summary>FP32 values of a layer's weight after BatchNormalization folding, in C order.</summary>
