@@ -431,7 +431,7 @@ internal sealed class OpsetRaiser
         var axis = Attribute(node, "axis")?.I ?? 1;
         if (types.Rank(node.Input[0]) is { } rank && (axis == rank - 1 || axis == -1))
         {
-            node.Attribute.Remove(Attribute(node, "axis"));
+            TakeAttribute(node, "axis");
             node.Attribute.Add(IntAttribute("axis", -1));
             emit.Add(node);
             rewritten.Add($"{node.OpType} '{Label(node)}': axis {axis} is the last of rank {rank}, kept as axis -1");
@@ -444,7 +444,7 @@ internal sealed class OpsetRaiser
         var normalised = Fresh(node, "normalised");
         var shape = Fresh(node, "shape");
         emit.Add(new P.NodeProto { OpType = "Flatten", Name = Fresh(node, "Flatten"), Input = { input }, Output = { flat }, Attribute = { IntAttribute("axis", axis) } });
-        node.Attribute.Remove(Attribute(node, "axis"));
+        TakeAttribute(node, "axis");
         node.Attribute.Add(IntAttribute("axis", 1));
         node.Input[0] = flat;
         node.Output[0] = normalised;
