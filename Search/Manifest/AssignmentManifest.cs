@@ -24,7 +24,16 @@ public sealed record AssignmentManifest(
 }
 
 /// <summary>The model searched.</summary>
-public sealed record ManifestModel(string Name, string Sha256, long Opset, long Parameters, IReadOnlyList<string> Notes);
+/// <param name="Opset">The standard opset the search worked at (the target opset when the model was raised).</param>
+/// <param name="OriginalOpset">The standard opset of the upload.</param>
+/// <param name="OpsetRaise">The explicit opset raise and its check in ONNX Runtime; null when no target opset was asked for.</param>
+public sealed record ManifestModel(string Name, string Sha256, long Opset, long Parameters, IReadOnlyList<string> Notes, long OriginalOpset, ManifestOpsetRaise? OpsetRaise);
+
+/// <summary>
+/// An explicit opset raise: what it rewrote and how far ONNX Runtime's FP32 outputs on the calibration set
+/// moved (relative L2 difference, the figure checked against 1e-6, and the largest single element).
+/// </summary>
+public sealed record ManifestOpsetRaise(long From, long To, IReadOnlyList<string> Rewritten, double RelativeDifference, double MaxRelativeDifference, bool BitExact);
 
 /// <summary>The calibration set used.</summary>
 public sealed record ManifestDataset(int Samples, bool HasLabels);

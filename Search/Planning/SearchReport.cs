@@ -18,7 +18,8 @@ internal sealed class SearchReport(
     SearchDecision decision,
     ExportedModel? exported,
     IReadOnlyList<ActivationQuantization> activations,
-    int trialCount)
+    int trialCount,
+    OpsetRaiseComparison? raiseCheck)
 {
     /// <summary>Most frontier points written; a longer frontier is thinned evenly (its ends kept).</summary>
     public const int MaxFrontierPoints = 400;
@@ -59,7 +60,7 @@ internal sealed class SearchReport(
         return new AssignmentManifest(
             AssignmentManifest.CurrentFormatVersion,
             createdAt,
-            new ManifestModel(model.Name, model.Sha256, model.Opset, problem.TotalParameters, model.Notes),
+            new ManifestModel(model.Name, model.Sha256, model.Opset, problem.TotalParameters, model.Notes, model.OriginalOpset, OpsetRaise()),
             new ManifestDataset(data.SampleCount, data.Labels is not null),
             new ManifestSettings(
                 settings.Bits.Distinct().OrderDescending().ToList(),
@@ -78,6 +79,16 @@ internal sealed class SearchReport(
             export,
             trialCount);
     }
+
+    private ManifestOpsetRaise? OpsetRaise() => model.Raise is not { } raise
+        ? null
+        : new ManifestOpsetRaise(
+            raise.FromOpset,
+            raise.ToOpset,
+            raise.Rewritten,
+            raiseCheck?.RelativeDifference ?? 0,
+            raiseCheck?.MaxRelativeDifference ?? 0,
+            raiseCheck?.BitExact ?? true);
 
     /// <summary>One row per (layer, candidate width): its bytes, additive error and measured metrics.</summary>
     public string SensitivityCsv()

@@ -16,7 +16,11 @@ public static class SearchRunner
     /// <summary>Most solve-and-measure rounds before falling back to the highest candidate everywhere.</summary>
     public const int MaxValidationRounds = 6;
 
-    /// <summary>Runs a search; throws <see cref="EngineException"/> for settings that cannot work and <see cref="OperationCanceledException"/> when cancelled.</summary>
+    /// <summary>
+    /// Runs a search; throws <see cref="EngineException"/> for settings that cannot work and <see cref="OperationCanceledException"/> when cancelled.
+    /// With <see cref="SearchSettings.TargetOpset"/>, <paramref name="model"/> must have been loaded with that target; the raise is
+    /// first checked in ONNX Runtime on <paramref name="data"/> (<see cref="OpsetRaiseCheck"/>) and refused when it moved an output.
+    /// </summary>
     public static SearchResult Run(
         OnnxModel model,
         CalibrationSet data,
@@ -29,6 +33,7 @@ public static class SearchRunner
         SearchSettingsValidator.Validate(model, data, settings);
         progress?.Report(new SearchProgress(SearchStage.Reference, 0, 1));
         var options = (sessionOptions ?? new TrialSessionOptions()) with { Activations = SensitivitySweep.ActivationsFor(settings) };
+        var raiseCheck = OpsetRaiseCheck.Verify(model, data, options.MaxBatch);
         using var session = TrialSession.Open(model, data, options);
         store.Save(new TrialRecord(TrialKeys.Reference, "reference", null, null, null, session.ReferenceMetrics, session.ForwardPassMilliseconds));
         progress?.Report(new SearchProgress(SearchStage.Reference, 1, 1));
@@ -53,7 +58,7 @@ public static class SearchRunner
         cancellationToken.ThrowIfCancellationRequested();
         progress?.Report(new SearchProgress(SearchStage.Export, 0, 1));
         var exported = decision.Chosen is { } chosen ? QdqExporter.Export(model, chosen.Assignment, session.Activations) : null;
-        var report = new SearchReport(model, data, settings, session.ReferenceMetrics, problem, frontier, decision, exported, session.Activations, store.LoadAll().Count);
+        var report = new SearchReport(model, data, settings, session.ReferenceMetrics, problem, frontier, decision, exported, session.Activations, store.LoadAll().Count, raiseCheck);
         var result = report.ToResult();
         progress?.Report(new SearchProgress(SearchStage.Export, 1, 1));
         return result;

@@ -8,6 +8,7 @@ namespace Bitbudget.Search.Planning;
 /// <param name="Pins">Layers forced to one bit width, by layer name.</param>
 /// <param name="Excluded">Layers kept in FP32 and left out of the search, by layer name.</param>
 /// <param name="QuantizeActivations">Per-tensor 8-bit activations on the inputs of quantized layers (opset 13 or later).</param>
+/// <param name="TargetOpset">Raise the model to this standard opset before searching (see <see cref="Onnx.OnnxModel.Load(byte[], string, long?)"/>); null keeps the upload's opset.</param>
 public sealed record SearchSettings(
     Budget Budget,
     IReadOnlyList<int> Bits,
@@ -17,7 +18,8 @@ public sealed record SearchSettings(
     ClipMethod Clip = ClipMethod.MinMax,
     bool QuantizeActivations = false,
     IReadOnlyDictionary<string, int>? Pins = null,
-    IReadOnlyList<string>? Excluded = null)
+    IReadOnlyList<string>? Excluded = null,
+    long? TargetOpset = null)
 {
     /// <summary>The candidate widths most teams start from (common practice).</summary>
     public static IReadOnlyList<int> DefaultBits { get; } = [2, 3, 4, 5, 6, 8];

