@@ -15,6 +15,7 @@ internal sealed record PlanArguments(string Model, string Data, SearchSettings S
         var granularity = Granularity.PerChannel;
         var clip = ClipMethod.MinMax;
         var activations = false;
+        long? targetOpset = null;
         var pins = new Dictionary<string, int>(StringComparer.Ordinal);
         var excluded = new List<string>();
         for (var i = 0; i < args.Length; i++)
@@ -34,6 +35,12 @@ internal sealed record PlanArguments(string Model, string Data, SearchSettings S
                 case "--clip": clip = Enum<ClipMethod>(name, Value()); break;
                 case "--exclude": excluded.Add(Value()); break;
                 case "--activations": activations = true; break;
+                case "--target-opset":
+                    var opsetText = Value();
+                    targetOpset = long.TryParse(opsetText, NumberStyles.None, CultureInfo.InvariantCulture, out var opset)
+                        ? opset
+                        : throw new ArgumentException($"--target-opset takes a standard opset number, e.g. 13 or 21; '{opsetText}' is not one.");
+                    break;
                 case "--pin":
                     var pin = Value().Split('=', 2);
                     if (pin.Length != 2 || !int.TryParse(pin[1], CultureInfo.InvariantCulture, out var pinned))
@@ -58,7 +65,7 @@ internal sealed record PlanArguments(string Model, string Data, SearchSettings S
             : bits.Split(',', StringSplitOptions.RemoveEmptyEntries | StringSplitOptions.TrimEntries)
                 .Select(b => int.TryParse(b, CultureInfo.InvariantCulture, out var v) ? v : throw new ArgumentException($"--bits takes a comma-separated list of widths, e.g. 2,3,4,6,8; '{b}' is not a number."))
                 .ToList();
-        var settings = new SearchSettings(BudgetText.Parse(budget), candidates, method, scheme, granularity, clip, activations, pins, excluded);
+        var settings = new SearchSettings(BudgetText.Parse(budget), candidates, method, scheme, granularity, clip, activations, pins, excluded, targetOpset);
         return new PlanArguments(model, data, settings, outDir ?? "plan");
     }
 

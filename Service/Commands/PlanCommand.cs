@@ -12,7 +12,7 @@ namespace Bitbudget.Service.Commands;
 /// <summary>
 /// <c>plan --model M.onnx --data D.npz --budget "sqnr&gt;=30" [--bits 2,3,4,6,8] [--method knapsack|greedy]
 /// [--scheme symmetric|asymmetric] [--granularity per-channel|per-tensor] [--clip min-max|percentile|mse-optimal|analytic-laplace|analytic-gaussian]
-/// [--pin LAYER=BITS]... [--exclude LAYER]... [--activations] [--out DIR]</c>: the whole search locally, writing the
+/// [--pin LAYER=BITS]... [--exclude LAYER]... [--activations] [--target-opset N] [--out DIR]</c>: the whole search locally, writing the
 /// manifest, the quantized model, the sensitivity CSV and the frontier into DIR.
 /// </summary>
 internal static class PlanCommand
@@ -20,7 +20,7 @@ internal static class PlanCommand
     private const string Usage =
         "usage: plan --model M.onnx --data D.npz --budget \"sqnr>=30\" [--bits 2,3,4,6,8] [--method knapsack|greedy] " +
         "[--scheme symmetric|asymmetric] [--granularity per-channel|per-tensor] [--clip min-max|percentile|mse-optimal|analytic-laplace|analytic-gaussian] " +
-        "[--pin LAYER=BITS]... [--exclude LAYER]... [--activations] [--out DIR]";
+        "[--pin LAYER=BITS]... [--exclude LAYER]... [--activations] [--target-opset N] [--out DIR]";
 
     public static Task<int> RunAsync(string[] args)
     {
@@ -54,7 +54,7 @@ internal static class PlanCommand
 
     private static int Run(PlanArguments args)
     {
-        var model = OnnxModel.LoadFile(args.Model);
+        var model = OnnxModel.LoadFile(args.Model, args.Settings.TargetOpset);
         var data = CalibrationSet.Create(DatasetReader.Read(File.ReadAllBytes(args.Data)), model.Inputs);
         var store = new InMemoryTrialStore();
         var clock = System.Diagnostics.Stopwatch.StartNew();
@@ -105,6 +105,12 @@ internal static class PlanCommand
     private static string Summary(AssignmentManifest manifest, SearchResult result)
     {
         var text = new StringBuilder();
+        if (manifest.Model.OpsetRaise is { } raise)
+        {
+            var agreement = raise.BitExact ? "bit for bit equal" : $"within {raise.RelativeDifference:0.##E+0} relative";
+            text.AppendLine(CultureInfo.InvariantCulture, $"opset raised from {raise.From} to {raise.To}: {raise.Rewritten.Count} nodes rewritten; ONNX Runtime outputs on the calibration set {agreement}");
+        }
+
         var width = Math.Max(5, manifest.Layers.Max(l => l.Name.Length));
         text.AppendLine(CultureInfo.InvariantCulture, $"{"layer".PadRight(width)}  {"op",-13} {"params",10} {"bits",5} {"bytes",10}");
         foreach (var layer in manifest.Layers)

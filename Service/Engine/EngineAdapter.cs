@@ -39,8 +39,8 @@ internal sealed class EngineAdapter(IOptions<BitbudgetOptions> options) : ISearc
             arrays.Any(a => a.Name == CalibrationSet.LabelsName));
     }
 
-    public void CheckCompatible(byte[] model, byte[] dataset) =>
-        CalibrationSet.Create(DatasetReader.Read(dataset, Limits), OnnxModel.Load(model, "model").Inputs);
+    public void CheckCompatible(byte[] model, byte[] dataset, long? targetOpset = null) =>
+        CalibrationSet.Create(DatasetReader.Read(dataset, Limits), OnnxModel.Load(model, "model", targetOpset).Inputs);
 
     public SearchResult RunSearch(
         byte[] model,
@@ -51,7 +51,7 @@ internal sealed class EngineAdapter(IOptions<BitbudgetOptions> options) : ISearc
         IProgress<SearchProgress> progress,
         CancellationToken cancellationToken)
     {
-        var loaded = OnnxModel.Load(model, modelName);
+        var loaded = OnnxModel.Load(model, modelName, settings.TargetOpset);
         var data = CalibrationSet.Create(DatasetReader.Read(dataset, Limits), loaded.Inputs);
         return SearchRunner.Run(loaded, data, settings, trials, progress, cancellationToken);
     }

@@ -15,8 +15,11 @@ internal interface ISearchEngine
     /// <summary>Reads an uploaded .npz archive or single .npy array.</summary>
     DatasetSummary InspectDataset(byte[] bytes);
 
-    /// <summary>Throws <c>dataset-mismatch</c> when the dataset cannot feed the model's inputs.</summary>
-    void CheckCompatible(byte[] model, byte[] dataset);
+    /// <summary>
+    /// Throws <c>dataset-mismatch</c> when the dataset cannot feed the model's inputs, and the raise's codes
+    /// (<c>opset-raise-*</c>) when <paramref name="targetOpset"/> is given and the model cannot be raised to it.
+    /// </summary>
+    void CheckCompatible(byte[] model, byte[] dataset, long? targetOpset = null);
 
     /// <summary>
     /// Runs a whole search. The engine loads what <paramref name="trials"/> already holds, skips those

@@ -9,6 +9,7 @@ namespace Bitbudget.Service.Searches;
 /// <param name="Activations">Also quantize activations to 8 bits (models with opset 13 or later).</param>
 /// <param name="Pin">Layers forced to one bit width.</param>
 /// <param name="Exclude">Layers kept in FP32.</param>
+/// <param name="TargetOpset">Raise the model to this standard opset first (from the model's own up to 22); the raise is checked in ONNX Runtime on the dataset.</param>
 internal sealed record SearchRequest(
     string? ModelId,
     string? DatasetId,
@@ -20,4 +21,5 @@ internal sealed record SearchRequest(
     string? Calibration = null,
     bool? Activations = null,
     IReadOnlyDictionary<string, int>? Pin = null,
-    IReadOnlyList<string>? Exclude = null);
+    IReadOnlyList<string>? Exclude = null,
+    long? TargetOpset = null);

@@ -1,4 +1,5 @@
 using System.Globalization;
+using Bitbudget.Search.Onnx;
 using Bitbudget.Search.Quantization;
 using Bitbudget.Service.Problems;
 using Bitbudget.Service.Store;
@@ -59,6 +60,21 @@ internal static class SearchRequestValidator
             }
         }
 
+        var opset = model.Summary.Opset;
+        if (request.TargetOpset is { } target)
+        {
+            if (target < opset || target > OnnxModel.HighestTargetOpset)
+            {
+                Add("targetOpset", target < opset
+                    ? $"targetOpset {target} is below the model's opset {opset}; an opset can only be raised (give {opset} to {OnnxModel.HighestTargetOpset})."
+                    : $"targetOpset {target} is beyond opset {OnnxModel.HighestTargetOpset}, the newest the raise covers; give {opset} to {OnnxModel.HighestTargetOpset}.");
+            }
+            else
+            {
+                opset = target;
+            }
+        }
+
         if (layerNames.Count > 0 && exclude.Count == layerNames.Count)
         {
             Add("exclude", "Every layer is excluded, which leaves nothing to search.");
@@ -80,15 +96,15 @@ internal static class SearchRequestValidator
                 $"An accuracy-drop budget needs labels, and dataset {dataset.Id} has none; add a 'labels' array to the archive or use another metric.");
         }
 
-        if (request.Activations == true && model.Summary.Opset < 13)
+        if (request.Activations == true && opset < 13)
         {
             throw new ServiceException(
                 StatusCodes.Status422UnprocessableEntity,
                 "activations-need-opset-13",
-                $"Quantizing activations needs opset 13 or later (per-axis QuantizeLinear), and this model uses opset {model.Summary.Opset}; leave 'activations' off.");
+                $"Quantizing activations needs opset 13 or later (per-axis QuantizeLinear), and this model uses opset {opset}; leave 'activations' off, or raise the model with \"targetOpset\": 13.");
         }
 
-        return new SearchSpec(budget, bits!, method!, scheme!, granularity!, calibration!, request.Activations ?? false, pin, exclude);
+        return new SearchSpec(budget, bits!, method!, scheme!, granularity!, calibration!, request.Activations ?? false, pin, exclude, request.TargetOpset);
     }
 
     private static BudgetSpec? ValidateBudget(BudgetSpec? budget, Action<string, string> add)

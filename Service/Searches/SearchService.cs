@@ -42,7 +42,7 @@ internal sealed partial class SearchService(
             return (CheckSameRequest(earlier, requestHash), false);
         }
 
-        engine.CheckCompatible(blobs.Read(model.Summary.Sha256), blobs.Read(dataset.Summary.Sha256));
+        engine.CheckCompatible(blobs.Read(model.Summary.Sha256), blobs.Read(dataset.Summary.Sha256), spec.TargetOpset);
 
         var (search, created) = searches.Create(model.Id, dataset.Id, spec, idempotencyKey, requestHash);
         if (!created)

@@ -10,4 +10,5 @@ internal sealed record SearchSpec(
     string Calibration,
     bool Activations,
     IReadOnlyDictionary<string, int> Pin,
-    IReadOnlyList<string> Exclude);
+    IReadOnlyList<string> Exclude,
+    long? TargetOpset = null);

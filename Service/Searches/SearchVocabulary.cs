@@ -66,6 +66,7 @@ internal static class SearchVocabulary
             Calibrations[spec.Calibration],
             spec.Activations,
             spec.Pin,
-            spec.Exclude);
+            spec.Exclude,
+            spec.TargetOpset);
     }
 }

@@ -137,6 +137,18 @@ public sealed class RealEngineBadInputTests : IClassFixture<RealEngineFixture>
     }
 
     [Fact]
+    public async Task TargetOpsetOverAnOperatorTheRaiseCannotConvertIsRefusedNamingTheNode()
+    {
+        var (_, _, datasetId, _) = await fixture.EnsureBaselineAsync(client, demo.Folder);
+        var upload = await client.PostBytesAsync("/v1/models?name=old-scaler.onnx", OldModelWithImageScaler());
+        Assert.True(upload.IsSuccessStatusCode, await upload.Content.ReadAsStringAsync());
+        var modelId = (await upload.JsonAsync()).GetProperty("id").GetString()!;
+
+        await Refused("targetOpset 13 on an opset-9 model with an ImageScaler node", await PostSearch(new { modelId, datasetId, budget = new { metric = "sqnr", atLeast = 30 }, targetOpset = 13 }),
+            HttpStatusCode.UnprocessableEntity, "opset-raise-unsupported", "ImageScaler node 'scaler'");
+    }
+
+    [Fact]
     public async Task NaNInTheDataNamesTheArrayAndTheIndex()
     {
         var (modelId, _, _, _) = await fixture.EnsureBaselineAsync(client, demo.Folder);
@@ -293,6 +305,38 @@ public sealed class RealEngineBadInputTests : IClassFixture<RealEngineFixture>
         var at = haystack.AsSpan().IndexOf(needle);
         Assert.True(at >= 0, "The ZIP has no central directory header.");
         return at;
+    }
+
+    /// <summary>x -> MatMul(W) -> ImageScaler -> y at opset 9: ImageScaler is an experimental operator of opset 1 that later opsets dropped.</summary>
+    private static byte[] OldModelWithImageScaler()
+    {
+        var graph = new P.GraphProto { Name = "old-scaler" };
+        graph.Input.Add(FloatValue("x", 1, 3, 4));
+        graph.Output.Add(FloatValue("y", 1, 3, 3));
+        var weight = new P.TensorProto { Name = "w", DataType = (int)P.TensorProto.Types.DataType.Float };
+        weight.Dims.Add([4, 3]);
+        weight.FloatData.Add(Enumerable.Range(0, 12).Select(i => (i - 6) / 10f));
+        graph.Initializer.Add(weight);
+        graph.Node.Add(new P.NodeProto { Name = "fc", OpType = "MatMul", Input = { "x", "w" }, Output = { "m" } });
+        graph.Node.Add(new P.NodeProto { Name = "scaler", OpType = "ImageScaler", Input = { "m" }, Output = { "y" } });
+        var model = new P.ModelProto { IrVersion = 4, Graph = graph };
+        model.OpsetImport.Add(new P.OperatorSetIdProto { Domain = "", Version = 9 });
+        return model.ToByteArray();
+    }
+
+    private static P.ValueInfoProto FloatValue(string name, params long[] dims)
+    {
+        var shape = new P.TensorShapeProto();
+        foreach (var d in dims)
+        {
+            shape.Dim.Add(new P.TensorShapeProto.Types.Dimension { DimValue = d });
+        }
+
+        return new P.ValueInfoProto
+        {
+            Name = name,
+            Type = new P.TypeProto { TensorType = new P.TypeProto.Types.Tensor { ElemType = (int)P.TensorProto.Types.DataType.Float, Shape = shape } },
+        };
     }
 
     /// <summary>x -> QuantizeLinear -> DequantizeLinear -> MatMul(W) -> y at opset 13, as ONNX defines the two operators.</summary>

@@ -107,6 +107,32 @@ public sealed class SearchValidationTests(ServiceFactory factory) : IClassFixtur
         await SendAsync(body, HttpStatusCode.UnprocessableEntity, "activations-need-opset-13");
     }
 
+    [Theory]
+    [InlineData(9, "below the model's opset 11")]
+    [InlineData(23, "beyond opset 22")]
+    public async Task TargetOpsetOutsideTheRaisableRangeIsAnInvalidRequest(long target, string message)
+    {
+        var (modelId, datasetId) = await client.UploadAsync("opset11-target", FakeSearchEngine.Model("opset11-target", opset: 11), FakeSearchEngine.Dataset("opset11-target"));
+        var body = $$"""{"modelId":"{{modelId}}","datasetId":"{{datasetId}}","budget":{"metric":"sqnr","atLeast":30},"targetOpset":{{target}}}""";
+
+        var problem = await SendAsync(body, HttpStatusCode.BadRequest, "invalid-request");
+
+        Assert.Contains(message, string.Join(" ", problem.GetProperty("errors").GetProperty("targetOpset").EnumerateArray().Select(e => e.GetString())), StringComparison.Ordinal);
+    }
+
+    [Fact]
+    public async Task ActivationsOnAnOldModelAreAcceptedWithATargetOpsetOf13()
+    {
+        var (modelId, datasetId) = await client.UploadAsync("opset11-raised", FakeSearchEngine.Model("opset11-raised", opset: 11), FakeSearchEngine.Dataset("opset11-raised"));
+        var body = $$"""{"modelId":"{{modelId}}","datasetId":"{{datasetId}}","budget":{"metric":"sqnr","atLeast":30},"activations":true,"targetOpset":13}""";
+
+        var response = await client.PostAsync("/v1/searches", new StringContent(body, Encoding.UTF8, "application/json"));
+
+        Assert.True(response.IsSuccessStatusCode, await response.Content.ReadAsStringAsync());
+        var settings = (await response.JsonAsync()).GetProperty("settings");
+        Assert.Equal(13, settings.GetProperty("targetOpset").GetInt64());
+    }
+
     [Fact]
     public async Task RefusedRequestsQueueNothing()
     {

@@ -96,5 +96,18 @@ public sealed class PlanCommandTests(PlanDemoFixture fixture) : IClassFixture<Pl
         Assert.False(File.Exists(Path.Combine(outFolder, "model.quantized.onnx")));
     }
 
+    [Fact]
+    public async Task TargetOpsetBelowTheModelsOpsetExits1AndWritesNothing()
+    {
+        var outFolder = Path.Combine(fixture.Folder, "lower-opset");
+        var run = await CommandRun.RunAsync(
+            "plan", "--model", fixture.ModelPath, "--data", fixture.CalibrationPath, "--budget", "sqnr>=25", "--target-opset", "13", "--out", outFolder);
+
+        Assert.True(run.ExitCode == 1, run.ToString());
+        var line = Assert.Single(run.ErrorLinesStartingWithError);
+        Assert.Contains($"below the model's opset {HiveNetExporter.Opset}", line, StringComparison.Ordinal);
+        Assert.False(Directory.Exists(outFolder), "A refused raise must write nothing.");
+    }
+
     private JsonDocument ReadJson(string name) => JsonDocument.Parse(File.ReadAllBytes(Path.Combine(fixture.PlanFolder, name)));
 }

@@ -103,7 +103,7 @@ internal sealed class FakeSearchEngine : ISearchEngine
         return new DatasetSummary(Convert.ToHexStringLower(SHA256.HashData(bytes)), arrays, samples, hasLabels);
     }
 
-    public void CheckCompatible(byte[] model, byte[] dataset)
+    public void CheckCompatible(byte[] model, byte[] dataset, long? targetOpset = null)
     {
         var modelInput = Value(Lines(model, ModelMagic, "model-not-onnx", "Not a model."), "input");
         var datasetInput = Value(Lines(dataset, DatasetMagic, "dataset-invalid", "Not a dataset."), "input");
