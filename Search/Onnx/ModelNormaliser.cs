@@ -10,10 +10,9 @@ namespace Bitbudget.Search.Onnx;
 /// </summary>
 internal sealed class ModelNormaliser
 {
-    private static readonly HashSet<string> LayerOps = new(StringComparer.Ordinal) { "Conv", "ConvTranspose", "Gemm", "MatMul" };
-
     private readonly P.ModelProto model;
     private readonly List<string> notes = [];
+    private readonly List<SkippedWeight> skipped = [];
     private readonly List<(P.NodeProto Node, GraphScope Scope)> nodes = [];
     private readonly HashSet<string> usedNames = new(StringComparer.Ordinal);
     private readonly HashSet<string> deadCandidates = new(StringComparer.Ordinal);
@@ -21,11 +20,17 @@ internal sealed class ModelNormaliser
 
     private ModelNormaliser(P.ModelProto model) => this.model = model;
 
-    public static (IReadOnlyList<WeightLayer> Layers, IReadOnlyList<string> Notes) Normalise(P.ModelProto model)
+    /// <summary>
+    /// Constants smaller than this (in values) that no layer reads are not listed as skipped weights: they are
+    /// scales, shifts and lookup vectors, not weight matrices (our own threshold, 4 KiB at FP32).
+    /// </summary>
+    public const long SkippedListingMinimum = 1024;
+
+    public static (IReadOnlyList<WeightLayer> Layers, IReadOnlyList<string> Notes, IReadOnlyList<SkippedWeight> Skipped) Normalise(P.ModelProto model)
     {
         var normaliser = new ModelNormaliser(model);
         var layers = normaliser.Run();
-        return (layers, normaliser.notes);
+        return (layers, normaliser.notes, normaliser.skipped);
     }
 
     private List<WeightLayer> Run()
@@ -40,56 +45,65 @@ internal sealed class ModelNormaliser
         var byConstant = new Dictionary<(GraphScope, string), LayerGroup>();
         foreach (var (node, scope) in nodes)
         {
-            if (!IsLayerCandidate(node))
+            foreach (var (index, role) in WeightInputs.Of(node))
             {
-                continue;
-            }
+                var label = scope.Prefix + node.Name;
+                var resolution = Resolve(node.Input[index], scope);
+                if (resolution.Source is null)
+                {
+                    // A Gather of a computed tensor is ordinary data movement, not a weight left behind.
+                    if (node.OpType != "Gather")
+                    {
+                        NotLayer(node, label, node.Input[index], node.OpType == "MatMul"
+                            ? "it multiplies two activations, so it has no constant weight"
+                            : $"its input '{node.Input[index]}' is {resolution.Reason}");
+                    }
 
-            var label = scope.Prefix + node.Name;
-            var resolution = Resolve(node.Input[1], scope);
-            if (resolution.Source is null)
-            {
-                notes.Add(node.OpType == "MatMul"
-                    ? $"MatMul '{label}' multiplies two activations; not a weight layer."
-                    : $"{node.OpType} '{label}' is not a weight layer: its input '{node.Input[1]}' is {resolution.Reason}.");
-                continue;
-            }
+                    continue;
+                }
 
-            var source = resolution.Source;
-            CheckWeightType(source, node, label);
-            var key = (source.Scope, source.ConstantName);
-            if (!byConstant.TryGetValue(key, out var group))
-            {
-                group = new LayerGroup(source);
-                byConstant[key] = group;
-                groups.Add(group);
-            }
+                var source = resolution.Source;
+                if (node.OpType == "Gather" && !WeightInputs.IsTable(source))
+                {
+                    continue;
+                }
 
-            group.Consumers.Add((node, scope, source));
+                CheckWeightType(source, node, label);
+                var key = (source.Scope, source.ConstantName);
+                if (!byConstant.TryGetValue(key, out var group))
+                {
+                    group = new LayerGroup(source);
+                    byConstant[key] = group;
+                    groups.Add(group);
+                }
+
+                group.Consumers.Add(new LayerConsumer(node, scope, source, index, role));
+            }
         }
 
         if (groups.Count == 0)
         {
             throw new EngineException(
                 "model-no-layers",
-                "The model has no quantizable layer: no Conv, ConvTranspose, Gemm or MatMul reads a constant FP32 weight.");
+                "The model has no quantizable layer: no Conv, ConvTranspose, Gemm, MatMul, LSTM, GRU, RNN or Gather reads a constant FP32 weight.");
         }
 
+        ListSkippedConstants(byConstant.Keys.ToHashSet());
         var layers = new List<WeightLayer>(groups.Count);
         foreach (var group in groups)
         {
-            var (first, firstScope, firstSource) = group.Consumers[0];
-            var values = firstSource.ReadFloats();
-            var shape = firstSource.Tensor.Dims.ToArray();
+            var first = group.Consumers[0];
+            var values = first.Source.ReadFloats();
+            var shape = first.Source.Tensor.Dims.ToArray();
             var folded = TryFoldBatchNorm(group, values, shape, readers);
             var weightName = Hoist(group, values, shape);
             layers.Add(new WeightLayer(
-                firstScope.Prefix + first.Name,
-                first.OpType,
+                WeightInputs.LayerName(first.Scope.Prefix + first.Node.Name, first.Role),
+                first.Node.OpType,
                 weightName,
                 shape,
                 TensorCodec.ElementCount(shape),
-                ChannelAxis(first, shape.Length),
+                ChannelAxis(group, shape.Length),
                 folded,
                 group.Consumers.Select(c => c.Scope.Prefix + c.Node.Name).ToArray()));
         }
@@ -98,19 +112,69 @@ internal sealed class ModelNormaliser
         return layers;
     }
 
-    private static bool IsLayerCandidate(P.NodeProto node) =>
-        node.Domain is "" or "ai.onnx" && LayerOps.Contains(node.OpType) && node.Input.Count >= 2 && node.Input[1].Length > 0;
-
-    /// <summary>Output-channel axis of the weight (input 1) for each operator, as the ONNX operator definitions lay it out.</summary>
-    private static int ChannelAxis(P.NodeProto node, int rank) => node.OpType switch
+    /// <summary>A layer op whose weight is not a constant: a note (as before) and an entry in the skipped list.</summary>
+    private void NotLayer(P.NodeProto node, string label, string input, string reason)
     {
-        // Conv W is [M, C/group, k...]; ConvTranspose W is [C, M/group, k...] (ONNX operator docs).
-        "Conv" => 0,
-        "ConvTranspose" => 1,
-        // Gemm B is [K, N], or [N, K] when transB = 1.
-        "Gemm" => Attribute(node, "transB")?.I == 1 ? 0 : 1,
-        _ => Math.Max(rank - 1, 0),
-    };
+        notes.Add(node.OpType == "MatMul" && reason.StartsWith("it multiplies", StringComparison.Ordinal)
+            ? $"MatMul '{label}' multiplies two activations; not a weight layer."
+            : $"{node.OpType} '{label}' is not a weight layer: {reason}.");
+        skipped.Add(new SkippedWeight(label, node.OpType, input, 0, $"{node.OpType} '{label}' is not quantized: {reason}."));
+    }
+
+    /// <summary>
+    /// The axis a layer is quantized along. A table read by a Gather is quantized per row (axis 0) even when a
+    /// MatMul or Gemm also reads it (a tied output layer): the Gather needs one scale per looked-up row, and the
+    /// output layer still reads exactly the dequantized table (see README, "Embedding tables").
+    /// </summary>
+    private static int ChannelAxis(LayerGroup group, int rank)
+    {
+        var chosen = group.Consumers.FirstOrDefault(c => c.Node.OpType == "Gather") ?? group.Consumers[0];
+        return WeightInputs.ChannelAxis(chosen.Node, chosen.Index, rank);
+    }
+
+    /// <summary>
+    /// Lists FP32 constants that no layer reads and that stay FP32: read by an operator the engine does not
+    /// quantize, at least <see cref="SkippedListingMinimum"/> values, and with two or more dimensions above 1
+    /// (biases and per-channel vectors are not weights worth listing).
+    /// </summary>
+    private void ListSkippedConstants(HashSet<(GraphScope, string)> layerConstants)
+    {
+        var listed = new HashSet<(GraphScope, string)>();
+        foreach (var (node, scope) in nodes)
+        {
+            if (node.Domain is "" or "ai.onnx" && node.OpType is "Constant" or "Identity" or "Cast")
+            {
+                continue;
+            }
+
+            for (var i = 0; i < node.Input.Count; i++)
+            {
+                if (node.Input[i].Length == 0 || WeightInputs.IsAuxiliary(node, i))
+                {
+                    continue;
+                }
+
+                var source = Resolve(node.Input[i], scope).Source;
+                if (source is null || !TensorCodec.IsCastableFloat(source.Tensor.DataType))
+                {
+                    continue;
+                }
+
+                var key = (source.Scope, source.ConstantName);
+                var count = TensorCodec.ElementCount(source.Tensor.Dims);
+                if (layerConstants.Contains(key) || count < SkippedListingMinimum || source.Tensor.Dims.Count(d => d > 1) < 2 || !listed.Add(key))
+                {
+                    continue;
+                }
+
+                var label = scope.Prefix + node.Name;
+                var reason = node.OpType == "Gather"
+                    ? $"Gather '{label}' reads a constant of {count} values that is not an FP32 table looked up by row (axis 0), the only Gather the engine quantizes."
+                    : $"{node.OpType} '{label}' reads a constant of {count} values; {node.OpType} has no quantized form here (only Conv, ConvTranspose, Gemm, MatMul, LSTM, GRU, RNN and Gather weights are quantized).";
+                skipped.Add(new SkippedWeight(label, node.OpType, node.Input[i], count, reason));
+            }
+        }
+    }
 
     private static P.AttributeProto? Attribute(P.NodeProto node, string name) =>
         node.Attribute.FirstOrDefault(a => a.Name == name);
@@ -225,7 +289,7 @@ internal sealed class ModelNormaliser
             return false;
         }
 
-        var (conv, scope, source) = group.Consumers[0];
+        var (conv, scope, source) = (group.Consumers[0].Node, group.Consumers[0].Scope, group.Consumers[0].Source);
         if (conv.OpType != "Conv" || conv.Output.Count == 0 || shape.Length < 1)
         {
             return false;
@@ -333,9 +397,9 @@ internal sealed class ModelNormaliser
     /// <summary>Makes the weight one FP32 initializer of the main graph, named as the first consumer reads it.</summary>
     private string Hoist(LayerGroup group, float[] values, long[] shape)
     {
-        var (first, firstScope, _) = group.Consumers[0];
-        var weightName = first.Input[1];
-        var owner = firstScope.Find(weightName)!;
+        var first = group.Consumers[0];
+        var weightName = first.Node.Input[first.Index];
+        var owner = first.Scope.Find(weightName)!;
         RemoveDefinition(owner, weightName);
         if (owner != main && main.Defines(weightName))
         {
@@ -345,10 +409,10 @@ internal sealed class ModelNormaliser
 
         main.Graph.Initializer.Add(TensorCodec.FromFloats(weightName, shape, values));
         main.Initializers[weightName] = main.Graph.Initializer[^1];
-        foreach (var (node, _, source) in group.Consumers)
+        foreach (var consumer in group.Consumers)
         {
-            node.Input[1] = weightName;
-            foreach (var name in source.Chain)
+            consumer.Node.Input[consumer.Index] = weightName;
+            foreach (var name in consumer.Source.Chain)
             {
                 deadCandidates.Add(name);
             }
@@ -556,6 +620,9 @@ internal sealed class ModelNormaliser
     {
         public WeightSource Source { get; } = source;
 
-        public List<(P.NodeProto Node, GraphScope Scope, WeightSource Source)> Consumers { get; } = [];
+        public List<LayerConsumer> Consumers { get; } = [];
     }
+
+    /// <summary>One node input that reads a layer's weight: the weight sits at input <see cref="Index"/>, in role <see cref="Role"/> ("W", "R", or null).</summary>
+    private sealed record LayerConsumer(P.NodeProto Node, GraphScope Scope, WeightSource Source, int Index, string? Role);
 }

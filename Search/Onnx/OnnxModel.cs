@@ -19,8 +19,9 @@ public sealed class OnnxModel
 
     private readonly Dictionary<string, P.TensorProto> weightTensors;
 
-    private OnnxModel(string name, string sha256, P.ModelProto proto, IReadOnlyList<WeightLayer> layers, IReadOnlyList<string> notes, OpsetRaise? raise, RaisedGraphs? raisedGraphs)
+    private OnnxModel(string name, string sha256, P.ModelProto proto, IReadOnlyList<WeightLayer> layers, IReadOnlyList<string> notes, IReadOnlyList<SkippedWeight> skipped, OpsetRaise? raise, RaisedGraphs? raisedGraphs)
     {
+        Skipped = skipped;
         Raise = raise;
         RaisedGraphs = raisedGraphs;
         Name = name;
@@ -68,6 +69,9 @@ public sealed class OnnxModel
     /// <summary>What normalisation did and skipped, one sentence each (folded BatchNormalization, activation MatMuls...).</summary>
     public IReadOnlyList<string> Notes { get; }
 
+    /// <summary>Weights that stay FP32 because the engine does not quantize them, each with its reason.</summary>
+    public IReadOnlyList<SkippedWeight> Skipped { get; }
+
     /// <summary>The normalised model.</summary>
     internal P.ModelProto Proto { get; }
 
@@ -95,9 +99,9 @@ public sealed class OnnxModel
             }
         }
 
-        var (layers, notes) = ModelNormaliser.Normalise(proto);
+        var (layers, notes, skipped) = ModelNormaliser.Normalise(proto);
         var sha256 = Convert.ToHexStringLower(SHA256.HashData(bytes));
-        return new OnnxModel(name, sha256, proto, layers, notes, raise, raisedGraphs);
+        return new OnnxModel(name, sha256, proto, layers, notes, skipped, raise, raisedGraphs);
     }
 
     /// <summary>Loads a model file; only that one file is ever read (external data is refused, not followed).</summary>

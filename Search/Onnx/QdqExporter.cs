@@ -135,7 +135,9 @@ public static class QdqExporter
             graph.Node.Insert(0, dequantizers[i]);
         }
 
-        var quantizedMatMul = model.Layers.Any(l => l.Op == "MatMul" && assignment.TryGetValue(l.Name, out var s) && BitWidths.IsInteger(s.Bits));
+        // A table tied to an output MatMul is a Gather layer that a MatMul also reads: look at the readers, not the op.
+        var integerWeights = model.Layers.Where(l => assignment.TryGetValue(l.Name, out var s) && BitWidths.IsInteger(s.Bits)).Select(l => l.WeightName).ToHashSet(StringComparer.Ordinal);
+        var quantizedMatMul = ModelChecks.AllGraphs(graph).SelectMany(g => g.Node).Any(n => n.OpType == "MatMul" && n.Input.Any(integerWeights.Contains));
         return new ExportedModel(proto.ToByteArray(), "qdq", model.Opset, quantizedMatMul ? MatMulNote : null);
     }
 

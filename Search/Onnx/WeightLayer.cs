@@ -1,10 +1,11 @@
 namespace Bitbudget.Search.Onnx;
 
 /// <summary>
-/// One quantizable weight: a constant weight tensor of a Conv, ConvTranspose, Gemm or MatMul. A weight
+/// One quantizable weight: a constant weight tensor of a Conv, ConvTranspose, Gemm or MatMul, the W or R
+/// of an LSTM, GRU or RNN, or the table of a Gather (see <see cref="WeightInputs"/>). A weight
 /// shared by several nodes (tied weights) is one layer with several <see cref="Consumers"/>.
 /// </summary>
-/// <param name="Name">Stable layer name: the first consumer's node name, or a name derived from the weight when nodes are unnamed.</param>
+/// <param name="Name">Stable layer name: the first consumer's node name (unnamed nodes get one from their op and position), with ".W"/".R" appended for recurrent weights.</param>
 /// <param name="Op">Operator type of the first consumer.</param>
 /// <param name="WeightName">Name of the weight tensor as the consumer reads it (the graph input name in a weights-as-inputs model).</param>
 /// <param name="Shape">Weight shape.</param>

@@ -9,13 +9,14 @@ internal static class OrtRunner
     /// Graph optimisations are off by default so ONNX Runtime computes the graph as written (it would
     /// otherwise fuse BatchNormalization into Conv itself and hide what a test compares).
     /// </summary>
-    public static Dictionary<string, float[]> Run(byte[] model, IReadOnlyDictionary<string, Func<OrtValue>> feeds, bool optimise = false)
+    public static Dictionary<string, float[]> Run(byte[] model, IReadOnlyDictionary<string, Func<OrtValue>> feeds, bool optimise = false, Action<SessionOptions>? configure = null)
     {
         using var options = new SessionOptions
         {
             GraphOptimizationLevel = optimise ? GraphOptimizationLevel.ORT_ENABLE_ALL : GraphOptimizationLevel.ORT_DISABLE_ALL,
             IntraOpNumThreads = 1,
         };
+        configure?.Invoke(options);
         using var session = new InferenceSession(model, options);
         var names = feeds.Keys.ToArray();
         var values = names.Select(n => feeds[n]()).ToArray();
