@@ -10,10 +10,12 @@ namespace Bitbudget.Search.Evaluation;
 /// <param name="KlDivergence">Mean KL(reference || trial) of softmax over the last axis, in nats.</param>
 /// <param name="CosineSimilarity">Mean cosine similarity of output rows.</param>
 /// <param name="Accuracy">Fraction (0..1) of samples whose argmax matches the label; null without labels.</param>
+/// <param name="SamplesChanged">Calibration samples with any output bit changed (<see cref="SampleChanges"/>); set on sensitivity trials, null elsewhere and on trials stored before it existed.</param>
 public sealed record MetricSet(
     double RelativeMse,
     double SqnrDb,
     double Top1Agreement,
     double KlDivergence,
     double CosineSimilarity,
-    double? Accuracy);
+    double? Accuracy,
+    int? SamplesChanged = null);

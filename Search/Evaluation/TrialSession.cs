@@ -171,7 +171,10 @@ public sealed class TrialSession : IDisposable
         var outputs = allowSuffix && PrefersSuffix(layer, trialsForLayer)
             ? RunSuffix(layer, weight, activation)
             : RunFull(new Dictionary<string, float[]>(StringComparer.Ordinal) { [layer.Name] = weight }, activation ? [layer.Name] : null);
-        return OutputComparer.Compare(ReferenceOutputs, outputs, _data.Labels);
+        return OutputComparer.Compare(ReferenceOutputs, outputs, _data.Labels) with
+        {
+            SamplesChanged = SampleChanges.Count(ReferenceOutputs, outputs, _data.SampleCount),
+        };
     }
 
     /// <summary>

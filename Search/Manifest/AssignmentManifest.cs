@@ -4,6 +4,7 @@ namespace Bitbudget.Search.Manifest;
 /// The assignment manifest: what was searched, under which budget, what each layer got and why,
 /// and the totals predicted and measured. Serialised by <see cref="ManifestJson"/>; the schema is
 /// docs/manifest.schema.json. <see cref="FormatVersion"/> changes when a field changes meaning.
+/// <see cref="Warnings"/> repeats the search summary's warnings; <see cref="Skipped"/> lists the weights that stay FP32.
 /// </summary>
 public sealed record AssignmentManifest(
     int FormatVersion,
@@ -17,7 +18,9 @@ public sealed record AssignmentManifest(
     ManifestMetrics Reference,
     IReadOnlyList<ManifestLayer> Layers,
     ManifestExport? Export,
-    int Trials)
+    int Trials,
+    IReadOnlyList<string>? Warnings = null,
+    IReadOnlyList<ManifestSkipped>? Skipped = null)
 {
     /// <summary>The version this code writes.</summary>
     public const int CurrentFormatVersion = 1;
@@ -77,6 +80,7 @@ public sealed record ManifestMetrics(
 
 /// <summary>One layer: what it is, what it got, and how sensitive it was at each candidate.</summary>
 /// <param name="Activations">The 8-bit quantization of the layer's input activation, one per consumer node; null when activations stay FP32.</param>
+/// <param name="Coverage">Whether the calibration set reaches the layer; null for excluded layers.</param>
 public sealed record ManifestLayer(
     string Name,
     string Op,
@@ -92,7 +96,18 @@ public sealed record ManifestLayer(
     bool Excluded,
     bool Pinned,
     IReadOnlyList<ManifestSensitivity> Sensitivity,
-    IReadOnlyList<ManifestActivation>? Activations = null);
+    IReadOnlyList<ManifestActivation>? Activations = null,
+    ManifestCoverage? Coverage = null);
+
+/// <summary>Whether the calibration set reaches a layer, judged from its sensitivity trials.</summary>
+/// <param name="Status">"exercised", "barely-exercised" (fewer than 1% of samples changed at every width) or "not-exercised" (no output bit changed at any width).</param>
+/// <param name="SamplesChanged">Most samples with any output bit changed by one of the layer's trials; null when unknown.</param>
+/// <param name="Samples">Calibration samples.</param>
+/// <param name="Reason">Why the layer is flagged and what was done (it keeps its highest candidate width or pin); null when exercised.</param>
+public sealed record ManifestCoverage(string Status, int? SamplesChanged, int Samples, string? Reason);
+
+/// <summary>A weight that stays FP32 because the engine does not quantize it.</summary>
+public sealed record ManifestSkipped(string Node, string Op, string Input, long Parameters, string Reason);
 
 /// <summary>Per-tensor uint8 quantization of the activation <see cref="Tensor"/> that node <see cref="Consumer"/> reads.</summary>
 public sealed record ManifestActivation(string Consumer, string Tensor, float Scale, int ZeroPoint);

@@ -7,7 +7,8 @@ namespace Bitbudget.Search.Planning;
 /// <summary>
 /// The search as a multiple-choice knapsack: for each searched layer, its candidate settings with
 /// their bytes (cost model) and additive error (from its sensitivity trial). Excluded layers stay
-/// FP32 and only add bytes.
+/// FP32 and only add bytes. A layer the calibration set does not reach (<see cref="LayerCoverage"/>) is
+/// planned with its highest candidate only, while its other measured candidates stay in the report.
 /// </summary>
 internal sealed class PlanningProblem
 {
@@ -15,10 +16,17 @@ internal sealed class PlanningProblem
         SearchSettings settings,
         BudgetMetric metric,
         IReadOnlyList<WeightLayer> searched,
-        IReadOnlyList<PlanningLayer> layers,
+        IReadOnlyList<PlanningLayer> candidates,
+        IReadOnlyList<LayerCoverage> coverage,
         IReadOnlyList<WeightLayer> excluded,
         IReadOnlyDictionary<string, MetricSet> sensitivity)
     {
+        Candidates = candidates;
+        Coverage = coverage;
+        var flagged = coverage.Where(c => c.Flagged).ToDictionary(c => c.Layer, c => c.KeptBits, StringComparer.Ordinal);
+        var layers = candidates.Select(l => flagged.TryGetValue(l.Name, out var kept)
+            ? l with { Choices = l.Choices.Where(c => c.Bits == kept).ToList() }
+            : l).ToList();
         Settings = settings;
         Metric = metric;
         Searched = searched;
@@ -37,7 +45,14 @@ internal sealed class PlanningProblem
     /// <summary>Searched layers, in the same order as <see cref="Layers"/>.</summary>
     public IReadOnlyList<WeightLayer> Searched { get; }
 
+    /// <summary>What the solvers choose from: <see cref="Candidates"/> with each flagged layer down to its kept width.</summary>
     public IReadOnlyList<PlanningLayer> Layers { get; }
+
+    /// <summary>Every measured candidate of every searched layer, in the order of <see cref="Searched"/>.</summary>
+    public IReadOnlyList<PlanningLayer> Candidates { get; }
+
+    /// <summary>Coverage of each searched layer, in the order of <see cref="Searched"/>; empty when not judged.</summary>
+    public IReadOnlyList<LayerCoverage> Coverage { get; }
 
     public IReadOnlyList<WeightLayer> Excluded { get; }
 
@@ -54,7 +69,8 @@ internal sealed class PlanningProblem
         OnnxModel model,
         SearchSettings settings,
         MetricSet reference,
-        IReadOnlyDictionary<string, TrialRecord> sweep)
+        IReadOnlyDictionary<string, TrialRecord> sweep,
+        int? samples = null)
     {
         var metric = settings.Budget switch
         {
@@ -77,7 +93,16 @@ internal sealed class PlanningProblem
                     : AdditiveError.ToAdditive(metric, sensitivity[TrialKeys.Sensitivity(layer.Name, setting, SensitivitySweep.ActivationsFor(settings))], reference);
                 return new PlanningChoice(bits, bytes, error);
             }).ToList())).ToList();
-        return new PlanningProblem(settings, metric, searched, layers, excluded, sensitivity);
+        var activations = SensitivitySweep.ActivationsFor(settings);
+        var coverage = samples is not { } count ? [] : searched.Select(layer =>
+        {
+            var widths = SensitivitySweep.CandidateBits(layer, settings);
+            var changed = widths.Where(b => b != BitWidths.Float32)
+                .Select(b => sweep[TrialKeys.Sensitivity(layer.Name, SensitivitySweep.SettingFor(b, settings), activations)].Metrics.SamplesChanged)
+                .ToList();
+            return LayerCoverage.Judge(layer.Name, changed, count, widths.Max());
+        }).ToList();
+        return new PlanningProblem(settings, metric, searched, layers, coverage, excluded, sensitivity);
     }
 
     /// <summary>The assignment a selection stands for, by layer name.</summary>

@@ -41,7 +41,8 @@ internal sealed class SearchReport(
             manifest.Totals?.Compression ?? 0,
             chosen is null ? double.NaN : AdditiveError.FromAdditive(metric, chosen.PredictedAdditive, reference),
             chosen is null ? double.NaN : AdditiveError.MetricValue(metric, chosen.Measured, reference),
-            trialCount);
+            trialCount,
+            Warnings());
     }
 
     public AssignmentManifest BuildManifest(DateTimeOffset createdAt)
@@ -77,7 +78,9 @@ internal sealed class SearchReport(
             Metrics(reference),
             layers,
             export,
-            trialCount);
+            trialCount,
+            Warnings(),
+            model.Skipped.Select(s => new ManifestSkipped(s.Node, s.Op, s.Input, s.Parameters, s.Reason)).ToList());
     }
 
     private ManifestOpsetRaise? OpsetRaise() => model.Raise is not { } raise
@@ -97,7 +100,7 @@ internal sealed class SearchReport(
         for (var i = 0; i < problem.Layers.Count; i++)
         {
             var layer = problem.Searched[i];
-            foreach (var choice in problem.Layers[i].Choices)
+            foreach (var choice in problem.Candidates[i].Choices)
             {
                 var m = SensitivityOf(layer, choice.Bits);
                 csv.Append(Csv(layer.Name)).Append(',').Append(layer.Op).Append(',')
@@ -153,7 +156,7 @@ internal sealed class SearchReport(
         var bits = setting?.Bits;
         var sensitivity = excluded
             ? []
-            : problem.Layers[index].Choices.Select(c => new ManifestSensitivity(
+            : problem.Candidates[index].Choices.Select(c => new ManifestSensitivity(
                 c.Bits,
                 c.Bytes,
                 c.Error,
@@ -176,8 +179,18 @@ internal sealed class SearchReport(
             sensitivity,
             settings.QuantizeActivations && bits is { } integer && BitWidths.IsInteger(integer)
                 ? activations.Where(a => a.Layer == layer.Name).Select(a => new ManifestActivation(a.Consumer, a.Tensor, a.Scale, a.ZeroPoint)).ToList()
-                : null);
+                : null,
+            excluded ? null : Coverage(problem.Coverage.ElementAtOrDefault(index)));
     }
+
+    private static ManifestCoverage? Coverage(LayerCoverage? coverage) => coverage is null ? null : new ManifestCoverage(
+        LayerCoverage.Wire(coverage.Status),
+        coverage.SamplesChanged,
+        coverage.Samples,
+        coverage.Flagged ? coverage.Reason : null);
+
+    /// <summary>One sentence per layer the calibration set does not (or barely) reach: the search summary's warnings.</summary>
+    private IReadOnlyList<string> Warnings() => problem.Coverage.Where(c => c.Flagged).Select(c => c.Reason).ToList();
 
     private MetricSet? SensitivityOf(WeightLayer layer, int bits) =>
         bits == BitWidths.Float32

@@ -15,6 +15,7 @@ namespace Bitbudget.Search.Planning;
 /// <param name="Compression">FP32 bytes over chosen bytes.</param>
 /// <param name="PredictedError">The budget metric as the additive model predicts it.</param>
 /// <param name="MeasuredError">The budget metric as measured end to end.</param>
+/// <param name="Warnings">Sentences the user should read before trusting the result, e.g. each layer the calibration set does not exercise (kept at its highest candidate width).</param>
 public sealed record SearchResult(
     bool Feasible,
     string Message,
@@ -27,4 +28,5 @@ public sealed record SearchResult(
     double Compression,
     double PredictedError,
     double MeasuredError,
-    int TrialCount);
+    int TrialCount,
+    IReadOnlyList<string>? Warnings = null);

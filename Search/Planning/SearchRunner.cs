@@ -43,7 +43,7 @@ public static class SearchRunner
 
         cancellationToken.ThrowIfCancellationRequested();
         progress?.Report(new SearchProgress(SearchStage.Search, 0, 1));
-        var problem = PlanningProblem.Build(model, settings, session.ReferenceMetrics, sweep);
+        var problem = PlanningProblem.Build(model, settings, session.ReferenceMetrics, sweep, data.SampleCount);
         var frontier = KnapsackSolver.Frontier(problem.Layers);
         progress?.Report(new SearchProgress(SearchStage.Search, 1, 1));
 

@@ -78,6 +78,8 @@ internal static class InspectCommand
                 l.Consumers,
             }),
             Totals = new { Layers = model.Layers.Count, Parameters = model.Layers.Sum(l => l.ParameterCount) },
+            model.Skipped,
+            Coverage = CoverageNote,
             model.Notes,
         };
         return JsonSerializer.Serialize(document, Json) + Environment.NewLine;
@@ -121,6 +123,19 @@ internal static class InspectCommand
 
         text.AppendLine();
         text.AppendLine(c, $"total   {model.Layers.Count} layers, {model.Layers.Sum(l => l.ParameterCount).ToString("N0", c)} parameters");
+        if (model.Skipped.Count > 0)
+        {
+            text.AppendLine();
+            text.AppendLine(c, $"skipped {model.Skipped.Count} weights stay FP32 ({model.Skipped.Sum(s => s.Parameters).ToString("N0", c)} parameters):");
+            foreach (var skipped in model.Skipped)
+            {
+                text.AppendLine(c, $"  {skipped.Node} ({skipped.Op}, {skipped.Parameters.ToString("N0", c)} parameters): {skipped.Reason}");
+            }
+
+            text.AppendLine();
+        }
+
+        text.AppendLine(c, $"coverage {CoverageNote}");
         foreach (var note in model.Notes)
         {
             text.AppendLine(c, $"note    {note}");
@@ -128,6 +143,13 @@ internal static class InspectCommand
 
         return text.ToString();
     }
+
+    /// <summary>
+    /// Whether the calibration data reaches a layer is only known from its trials (does quantizing it change any
+    /// output?), so inspect, which runs nothing, says where to find it.
+    /// </summary>
+    private const string CoverageNote =
+        "judged at search time: plan and the search summary name every layer the calibration set does not exercise (see README, \"Not exercised\").";
 
     private static string Row(string[] cells, int[] widths) =>
         string.Join("  ", cells.Select((cell, i) => i == 4 ? cell.PadLeft(widths[i]) : cell.PadRight(widths[i]))).TrimEnd();

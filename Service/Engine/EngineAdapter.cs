@@ -25,7 +25,8 @@ internal sealed class EngineAdapter(IOptions<BitbudgetOptions> options) : ISearc
             model.Inputs.Select(Tensor).ToList(),
             model.Outputs.Select(Tensor).ToList(),
             model.Layers.Select(l => new LayerSummary(l.Name, l.Op, l.WeightName, l.Shape, l.ParameterCount, l.ChannelAxis, l.FollowedByBatchNorm)).ToList(),
-            model.Notes);
+            model.Notes,
+            model.Skipped);
     }
 
     public DatasetSummary InspectDataset(byte[] bytes)

@@ -158,6 +158,10 @@ public sealed class ManifestSchemaTests
     [InlineData("totals.measured.accuracy")]
     [InlineData("layers.0.bits")]
     [InlineData("layers.2.sensitivity.1.additiveError")]
+    [InlineData("layers.1.coverage")]
+    [InlineData("layers.1.coverage.samplesChanged")]
+    [InlineData("warnings")]
+    [InlineData("skipped")]
     public void ManifestWithAFieldRemovedFailsTheSchema(string path)
     {
         var manifest = Parse(ErrorBudgetResult.Value.ManifestJson);
@@ -176,6 +180,8 @@ public sealed class ManifestSchemaTests
     [InlineData("budget.metric", "Sqnr")]
     [InlineData("export.format", "QDQ")]
     [InlineData("layers.0.op", "Linear")]
+    [InlineData("layers.0.coverage.status", "NotExercised")]
+    [InlineData("layers.0.coverage.status", "unexercised")]
     public void ManifestWithAWrongEnumSpellingFailsTheSchema(string path, string value)
     {
         var manifest = Parse(ErrorBudgetResult.Value.ManifestJson);
