@@ -116,6 +116,9 @@ internal static class PlanCommand
         foreach (var layer in manifest.Layers)
         {
             var bits = layer.Excluded ? "fp32*" : layer.Bits?.ToString(CultureInfo.InvariantCulture) ?? "-";
+
+            // "!" marks a layer kept at its highest width because the calibration set does not (or barely) reach it.
+            bits += layer.Coverage?.Reason is null ? string.Empty : "!";
             text.AppendLine(CultureInfo.InvariantCulture, $"{layer.Name.PadRight(width)}  {layer.Op,-13} {layer.Parameters,10} {bits,5} {layer.Bytes,10}");
         }
 
@@ -126,6 +129,16 @@ internal static class PlanCommand
         }
 
         text.AppendLine(result.Message);
+        foreach (var warning in result.Warnings ?? [])
+        {
+            text.AppendLine(CultureInfo.InvariantCulture, $"warning: {warning}");
+        }
+
+        if (manifest.Skipped is { Count: > 0 } skipped)
+        {
+            text.AppendLine(CultureInfo.InvariantCulture, $"skipped: {skipped.Count} weights stay FP32 ({skipped.Sum(s => s.Parameters)} parameters), e.g. {skipped[0].Reason} (all in manifest.json, \"skipped\")");
+        }
+
         return text.ToString();
     }
 

@@ -80,7 +80,8 @@ internal sealed partial class SearchJob(
                 result.Compression,
                 result.PredictedError,
                 result.MeasuredError,
-                result.TrialCount);
+                result.TrialCount,
+                result.Warnings ?? []);
             if (searches.Complete(owner, record))
             {
                 LogSucceeded(logger, searchId, result.Feasible, result.Message);

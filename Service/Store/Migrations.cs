@@ -69,5 +69,8 @@ internal static class Migrations
                 trial_count INTEGER NOT NULL,
                 created_at TEXT NOT NULL);
             """),
+        (2, """
+            ALTER TABLE results ADD COLUMN warnings_json TEXT;
+            """),
     ];
 }

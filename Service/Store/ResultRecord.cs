@@ -1,6 +1,7 @@
 namespace Bitbudget.Service.Store;
 
 /// <summary>A finished search's totals and the blobs (by SHA-256) of its artifacts.</summary>
+/// <param name="Warnings">The engine's warnings (e.g. layers the calibration set does not exercise); null for results stored before warnings existed.</param>
 internal sealed record ResultRecord(
     string SearchId,
     bool Feasible,
@@ -14,4 +15,5 @@ internal sealed record ResultRecord(
     double Compression,
     double Predicted,
     double Measured,
-    int TrialCount);
+    int TrialCount,
+    IReadOnlyList<string>? Warnings = null);

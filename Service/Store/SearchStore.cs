@@ -151,9 +151,9 @@ internal sealed class SearchStore(Database database)
             insert.Transaction = transaction;
             insert.CommandText = """
                 INSERT INTO results (search_id, feasible, message, manifest_sha256, model_sha256, sensitivity_sha256,
-                    frontier_sha256, bytes, average_bits, compression, predicted, measured, trial_count, created_at)
+                    frontier_sha256, bytes, average_bits, compression, predicted, measured, trial_count, warnings_json, created_at)
                 VALUES ($id, $feasible, $message, $manifest, $model, $csv, $frontier, $bytes, $bits, $compression,
-                    $predicted, $measured, $trials, $now)
+                    $predicted, $measured, $trials, $warnings, $now)
                 ON CONFLICT(search_id) DO NOTHING;
                 """;
             insert.Parameters.AddWithValue("$id", result.SearchId);
@@ -169,6 +169,7 @@ internal sealed class SearchStore(Database database)
             insert.Parameters.AddWithValue("$predicted", result.Predicted);
             insert.Parameters.AddWithValue("$measured", result.Measured);
             insert.Parameters.AddWithValue("$trials", result.TrialCount);
+            insert.Parameters.AddWithValue("$warnings", result.Warnings is null ? DBNull.Value : StoreJson.Write(result.Warnings));
             insert.Parameters.AddWithValue("$now", now);
             insert.ExecuteNonQuery();
         }
@@ -222,7 +223,7 @@ internal sealed class SearchStore(Database database)
         using var command = connection.CreateCommand();
         command.CommandText = """
             SELECT search_id, feasible, message, manifest_sha256, model_sha256, sensitivity_sha256, frontier_sha256,
-                bytes, average_bits, compression, predicted, measured, trial_count
+                bytes, average_bits, compression, predicted, measured, trial_count, warnings_json
             FROM results WHERE search_id = $id;
             """;
         command.Parameters.AddWithValue("$id", searchId);
@@ -245,7 +246,8 @@ internal sealed class SearchStore(Database database)
             reader.GetDouble(9),
             reader.GetDouble(10),
             reader.GetDouble(11),
-            reader.GetInt32(12));
+            reader.GetInt32(12),
+            reader.IsDBNull(13) ? null : StoreJson.Read<List<string>>(reader.GetString(13)));
     }
 
     public int CountResults(string searchId)

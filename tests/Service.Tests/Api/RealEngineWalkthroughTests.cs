@@ -82,6 +82,19 @@ public sealed class RealEngineWalkthroughTests : IClassFixture<RealEngineFixture
             $"ocr classifier ({layerCount} layers): model {modelBytes.Length} B -> quantized {quantized.Model.Length} B, weights {quantized.WeightBytes} B of {quantized.Float32Bytes} B FP32, manifest {quantized.ClaimedSqnrDb:F4} dB, ONNX Runtime {sqnrDb:F4} dB, {quantized.Trials} trials"));
     }
 
+    [Fact]
+    public async Task SearchSummaryWarnsAboutALayerNoCalibrationSampleReaches()
+    {
+        var (modelId, datasetId) = await client.UploadAsync("uncovered.onnx", UncoveredModel.Bytes(), UncoveredModel.Dataset());
+
+        var started = await client.StartSearchAsync(new { modelId, datasetId, budget = new { metric = "sqnr", atLeast = 20 }, bits = new[] { 2, 4, 8 } });
+        var search = await WaitForEndAsync(client, started.GetProperty("id").GetString()!);
+
+        Assert.True(search.GetProperty("state").GetString() == "succeeded", search.ToString());
+        var warning = Assert.Single(search.GetProperty("summary").GetProperty("warnings").EnumerateArray());
+        Assert.StartsWith($"Layer '{UncoveredModel.UntakenLayer}' is not exercised", warning.GetString(), StringComparison.Ordinal);
+    }
+
     /// <summary>Starts the search, waits for it, checks every artifact and returns the quantized model with what the manifest claims.</summary>
     private async Task<Downloaded> WalkAsync(string modelId, string datasetId, int[] bits, double atLeastDb, int layers, string downloadName)
     {

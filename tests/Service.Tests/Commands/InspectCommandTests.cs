@@ -51,6 +51,23 @@ public sealed class InspectCommandTests : IDisposable
     }
 
     [Fact]
+    public async Task InspectListsTheRecognisersActivationMatMulsAsSkippedAndSaysWhenCoverageIsJudged()
+    {
+        // The recogniser's attention blocks multiply two activations in 4 MatMuls (count from the Search tests' OCR checks).
+        var run = await CommandRun.RunAsync("inspect", OcrModels.PathOf(OcrModels.RecogniserFile));
+
+        Assert.True(run.ExitCode == 0, run.ToString());
+        Assert.Contains("skipped 4 weights stay FP32 (0 parameters):", run.Out, StringComparison.Ordinal);
+        Assert.Equal(4, run.Out.Split('\n').Count(l => l.StartsWith("  ", StringComparison.Ordinal) && l.Contains("(MatMul, 0 parameters): MatMul", StringComparison.Ordinal)));
+        Assert.Contains("coverage judged at search time", run.Out, StringComparison.Ordinal);
+
+        var json = await CommandRun.RunAsync("inspect", OcrModels.PathOf(OcrModels.RecogniserFile), "--json");
+        using var document = JsonDocument.Parse(json.Out);
+        Assert.Equal(4, document.RootElement.GetProperty("skipped").GetArrayLength());
+        Assert.All(document.RootElement.GetProperty("skipped").EnumerateArray(), s => Assert.Equal("MatMul", s.GetProperty("op").GetString()));
+    }
+
+    [Fact]
     public async Task TruncatedModelPrintsOneErrorLineAndExits1()
     {
         var bytes = File.ReadAllBytes(OcrModels.Classifier);

@@ -109,5 +109,25 @@ public sealed class PlanCommandTests(PlanDemoFixture fixture) : IClassFixture<Pl
         Assert.False(Directory.Exists(outFolder), "A refused raise must write nothing.");
     }
 
+    [Fact]
+    public async Task LayerNoSampleReachesIsWarnedAboutMarkedAndKeptAtTheHighestWidth()
+    {
+        var folder = Path.Combine(fixture.Folder, "uncovered");
+        Directory.CreateDirectory(folder);
+        File.WriteAllBytes(Path.Combine(folder, "model.onnx"), UncoveredModel.Bytes());
+        File.WriteAllBytes(Path.Combine(folder, "data.npz"), UncoveredModel.Dataset());
+
+        var run = await CommandRun.RunAsync(
+            "plan", "--model", Path.Combine(folder, "model.onnx"), "--data", Path.Combine(folder, "data.npz"), "--budget", "sqnr>=20", "--bits", "2,4,8", "--out", Path.Combine(folder, "out"));
+
+        Assert.True(run.ExitCode == 0, run.ToString());
+        Assert.Contains($"warning: Layer '{UncoveredModel.UntakenLayer}' is not exercised", run.Out, StringComparison.Ordinal);
+        Assert.Matches(@"branch/else_branch/fc_else\s+MatMul\s+12\s+8!", run.Out);
+        using var manifest = JsonDocument.Parse(File.ReadAllBytes(Path.Combine(folder, "out", "manifest.json")));
+        var layer = manifest.RootElement.GetProperty("layers").EnumerateArray().Single(l => l.GetProperty("name").GetString() == UncoveredModel.UntakenLayer);
+        Assert.Equal("not-exercised", layer.GetProperty("coverage").GetProperty("status").GetString());
+        Assert.Equal(8, layer.GetProperty("bits").GetInt32());
+    }
+
     private JsonDocument ReadJson(string name) => JsonDocument.Parse(File.ReadAllBytes(Path.Combine(fixture.PlanFolder, name)));
 }
