@@ -13,11 +13,12 @@ internal sealed record ModelResponse(
     IReadOnlyList<TensorSummary> Outputs,
     IReadOnlyList<LayerSummary> Layers,
     IReadOnlyList<string> Notes,
+    IReadOnlyList<Bitbudget.Search.Onnx.SkippedWeight> Skipped,
     DateTimeOffset CreatedAt)
 {
     public static ModelResponse From(ModelRecord model)
     {
         var s = model.Summary;
-        return new(model.Id, s.Sha256, s.Name, s.Bytes, s.Opset, s.Inputs, s.Outputs, s.Layers, s.Notes, model.CreatedAt);
+        return new(model.Id, s.Sha256, s.Name, s.Bytes, s.Opset, s.Inputs, s.Outputs, s.Layers, s.Notes, s.Skipped ?? [], model.CreatedAt);
     }
 }
