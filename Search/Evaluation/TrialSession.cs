@@ -150,7 +150,7 @@ public sealed class TrialSession : IDisposable
                 weights[name] = Quantized(Layer(name), setting);
             }
 
-            if (QuantizesActivation(setting))
+            if (QuantizesActivation(setting) && HasActivation(name))
             {
                 activations.Add(name);
             }
@@ -167,7 +167,7 @@ public sealed class TrialSession : IDisposable
     public MetricSet MeasureLayer(WeightLayer layer, LayerSetting setting, int trialsForLayer = 1, bool allowSuffix = true)
     {
         var weight = Quantized(layer, setting);
-        var activation = QuantizesActivation(setting);
+        var activation = QuantizesActivation(setting) && HasActivation(layer.Name);
         var outputs = allowSuffix && PrefersSuffix(layer, trialsForLayer)
             ? RunSuffix(layer, weight, activation)
             : RunFull(new Dictionary<string, float[]>(StringComparer.Ordinal) { [layer.Name] = weight }, activation ? [layer.Name] : null);
@@ -291,6 +291,15 @@ public sealed class TrialSession : IDisposable
 
     private bool QuantizesActivation(LayerSetting setting) =>
         _options.Activations is not null && BitWidths.IsInteger(setting.Bits);
+
+    /// <summary>
+    /// Whether a layer has an input activation to quantize: a Gather table's input is integer indices and a
+    /// recurrent R multiplies the op's internal state, so those layers stay weight-only under --activations.
+    /// </summary>
+    private bool HasActivation(string layerName) => _switchedLayers.Contains(layerName) || !IsWeightOnlyLayer(layerName);
+
+    private bool IsWeightOnlyLayer(string layerName) =>
+        Layer(layerName) is { Op: "Gather" } || layerName.EndsWith(".R", StringComparison.Ordinal) && Layer(layerName).Op is "LSTM" or "GRU" or "RNN";
 
     private bool IsSwitch(string name) => _switchNames.Contains(name);
 

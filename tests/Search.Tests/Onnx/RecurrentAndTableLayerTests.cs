@@ -142,7 +142,39 @@ public sealed class RecurrentAndTableLayerTests
     [Fact]
     public void SearchSweepsRecurrentAndTableLayersAndTheManifestListsThem()
     {
-        // ids -> Gather(table) -> [n, steps, 4] -> Transpose -> LSTM -> Y_h [1, n, 3] -> Transpose -> [n, 1, 3].
+        var (model, data) = Tagger();
+
+        var result = SearchRunner.Run(model, data, new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 25), [2, 4, 8]), new InMemoryTrialStore(), null, CancellationToken.None);
+
+        Assert.True(result.Feasible, result.Message);
+        var manifest = ManifestJson.Deserialize(result.ManifestJson);
+        Assert.Equal(["embed", "lstm.W", "lstm.R"], manifest.Layers.Select(l => l.Name));
+        Assert.All(manifest.Layers, l => Assert.Equal(3, l.Sensitivity.Count));
+
+        // Each sensitivity trial moved the outputs: the layers are really swept, not measured as untouched.
+        Assert.All(manifest.Layers, l => Assert.All(l.Sensitivity, s => Assert.NotNull(s.Metrics.SqnrDb)));
+        Assert.All(manifest.Layers, l => Assert.Equal("exercised", l.Coverage!.Status));
+        Assert.Equal([0, 1, 1], manifest.Layers.Select(l => l.Axis));
+    }
+
+    [Fact]
+    public void WithActivationsOnOnlyTheRecurrentInputIsQuantizedAndTheTableAndRStayWeightOnly()
+    {
+        var (model, data) = Tagger();
+        var settings = new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 15), [4, 8], QuantizeActivations: true);
+
+        var result = SearchRunner.Run(model, data, settings, new InMemoryTrialStore(), null, CancellationToken.None);
+
+        Assert.True(result.Feasible, result.Message);
+        var layers = ManifestJson.Deserialize(result.ManifestJson).Layers.ToDictionary(l => l.Name);
+        Assert.Equal("et", Assert.Single(layers["lstm.W"].Activations!).Tensor);
+        Assert.Empty(layers["lstm.R"].Activations!);
+        Assert.Empty(layers["embed"].Activations!);
+    }
+
+    /// <summary>ids -> Gather(table) -> [n, steps, 4] -> Transpose -> LSTM -> Y_h [1, n, 3] -> Transpose -> [n, 1, 3], with 24 samples of ids.</summary>
+    private static (OnnxModel Model, CalibrationSet Data) Tagger()
+    {
         var bytes = new GraphBuilder()
             .Input("ids", P.TensorProto.Types.DataType.Int64, -1, Steps)
             .Initializer("table", [12, InputSize], GraphBuilder.RandomValues(51, 12 * InputSize))
@@ -158,17 +190,7 @@ public sealed class RecurrentAndTableLayerTests
         var random = new Random(7);
         var ids = Enumerable.Range(0, 24 * Steps).Select(_ => (long)random.Next(12)).ToArray();
         var data = CalibrationSet.Create([new NpyArray("ids", ElementType.Int64, [24, Steps], ids)], model.Inputs);
-
-        var result = SearchRunner.Run(model, data, new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 25), [2, 4, 8]), new InMemoryTrialStore(), null, CancellationToken.None);
-
-        Assert.True(result.Feasible, result.Message);
-        var manifest = ManifestJson.Deserialize(result.ManifestJson);
-        Assert.Equal(["embed", "lstm.W", "lstm.R"], manifest.Layers.Select(l => l.Name));
-        Assert.All(manifest.Layers, l => Assert.Equal(3, l.Sensitivity.Count));
-
-        // Each sensitivity trial moved the outputs: the layers are really swept, not measured as untouched.
-        Assert.All(manifest.Layers, l => Assert.All(l.Sensitivity, s => Assert.NotNull(s.Metrics.SqnrDb)));
-        Assert.Equal([0, 1, 1], manifest.Layers.Select(l => l.Axis));
+        return (model, data);
     }
 
     /// <summary>
