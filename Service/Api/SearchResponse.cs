@@ -32,7 +32,7 @@ internal sealed record SearchResponse(
         search.StartedAt,
         search.FinishedAt,
         search.EtaSeconds,
-        result is null ? null : new SummaryResponse(result.Bytes, result.AverageBits, result.Compression, result.Predicted, result.Measured, result.Feasible, result.Message, result.TrialCount, result.Warnings ?? []),
+        result is null ? null : new SummaryResponse(result.Bytes, result.AverageBits, result.Compression, result.Predicted, result.Measured, result.Feasible, result.Message, result.TrialCount, result.Warnings()),
         search.ErrorCode is null ? null : new ErrorResponse(search.ErrorCode, search.ErrorMessage ?? ""),
         search.Spec);
 }

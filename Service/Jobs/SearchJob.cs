@@ -81,7 +81,7 @@ internal sealed partial class SearchJob(
                 result.PredictedError,
                 result.MeasuredError,
                 result.TrialCount,
-                result.Warnings ?? []);
+                StoreJson.Write(result.Warnings ?? []));
             if (searches.Complete(owner, record))
             {
                 LogSucceeded(logger, searchId, result.Feasible, result.Message);

@@ -1,7 +1,8 @@
 namespace Bitbudget.Service.Store;
 
 /// <summary>A finished search's totals and the blobs (by SHA-256) of its artifacts.</summary>
-/// <param name="Warnings">The engine's warnings (e.g. layers the calibration set does not exercise); null for results stored before warnings existed.</param>
+/// <param name="WarningsJson">The engine's warnings (e.g. layers the calibration set does not exercise) as a JSON array of strings, kept as
+/// stored so the record compares by value; null for results stored before warnings existed.</param>
 internal sealed record ResultRecord(
     string SearchId,
     bool Feasible,
@@ -16,4 +17,8 @@ internal sealed record ResultRecord(
     double Predicted,
     double Measured,
     int TrialCount,
-    IReadOnlyList<string>? Warnings = null);
+    string? WarningsJson = null)
+{
+    /// <summary>The warnings, one sentence each; empty when there are none (or none were stored).</summary>
+    public IReadOnlyList<string> Warnings() => WarningsJson is null ? [] : StoreJson.Read<List<string>>(WarningsJson);
+}

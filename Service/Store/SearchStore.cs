@@ -169,7 +169,7 @@ internal sealed class SearchStore(Database database)
             insert.Parameters.AddWithValue("$predicted", result.Predicted);
             insert.Parameters.AddWithValue("$measured", result.Measured);
             insert.Parameters.AddWithValue("$trials", result.TrialCount);
-            insert.Parameters.AddWithValue("$warnings", result.Warnings is null ? DBNull.Value : StoreJson.Write(result.Warnings));
+            insert.Parameters.AddWithValue("$warnings", (object?)result.WarningsJson ?? DBNull.Value);
             insert.Parameters.AddWithValue("$now", now);
             insert.ExecuteNonQuery();
         }
@@ -247,7 +247,7 @@ internal sealed class SearchStore(Database database)
             reader.GetDouble(10),
             reader.GetDouble(11),
             reader.GetInt32(12),
-            reader.IsDBNull(13) ? null : StoreJson.Read<List<string>>(reader.GetString(13)));
+            reader.IsDBNull(13) ? null : reader.GetString(13));
     }
 
     public int CountResults(string searchId)
