@@ -67,6 +67,14 @@ internal static class BenchmarkRun
         var trialMs = Timing.MedianMilliseconds(repeat, () => session.MeasureLayer(layer, setting, allowSuffix: false));
         Row("one trial (quantize, full graph, metrics) vs one plain forward pass", trialMs, plainMs);
 
+        // Coverage: counting the samples a trial changed is part of every sensitivity trial. Worst case: nothing
+        // changed, so every output row is compared to its end.
+        var trialOutputs = session.RunFull(new Dictionary<string, float[]> { [layer.Name] = session.Quantized(layer, setting) });
+        var countMs = Timing.MedianMilliseconds(repeat, () => SampleChanges.Count(session.ReferenceOutputs, trialOutputs, data.SampleCount));
+        SmallRow("counting changed samples (coverage), a changed trial vs one trial", countMs, trialMs);
+        var unchangedMs = Timing.MedianMilliseconds(repeat, () => SampleChanges.Count(session.ReferenceOutputs, session.ReferenceOutputs, data.SampleCount));
+        SmallRow("counting changed samples, nothing changed (worst case) vs one trial", unchangedMs, trialMs);
+
         var rebuildMs = Timing.MedianMilliseconds(Math.Max(3, repeat / 2), () =>
         {
             var weight = session.Quantized(layer, setting);
@@ -155,6 +163,10 @@ internal static class BenchmarkRun
 
     private static void Row(string what, double ours, double baseline) =>
         Console.WriteLine($"{what,-70} {ours,9:0.00} ms vs {baseline,9:0.00} ms  ratio {ours / baseline:0.00}");
+
+    /// <summary>A row whose first figure is too small for milliseconds: microseconds, and the ratio to four places.</summary>
+    private static void SmallRow(string what, double ours, double baseline) =>
+        Console.WriteLine($"{what,-70} {ours * 1000,9:0.0} us vs {baseline,9:0.00} ms  ratio {ours / baseline:0.0000}");
 
     private static string? Option(string[] args, string name)
     {
