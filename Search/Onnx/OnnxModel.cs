@@ -14,9 +14,6 @@ public sealed class OnnxModel
     /// <summary>The newest standard opset a model can be raised to (see <see cref="Load(byte[], string, long?)"/>).</summary>
     public const long HighestTargetOpset = OperatorHistory.HighestTarget;
 
-    /// <summary>The oldest standard opset a raise starts from.</summary>
-    public const long LowestRaisableOpset = OperatorHistory.LowestSource;
-
     private readonly Dictionary<string, P.TensorProto> weightTensors;
 
     private OnnxModel(string name, string sha256, P.ModelProto proto, IReadOnlyList<WeightLayer> layers, IReadOnlyList<string> notes, IReadOnlyList<SkippedWeight> skipped, OpsetRaise? raise, RaisedGraphs? raisedGraphs)
