@@ -179,10 +179,12 @@ public sealed class SearchesApiTests(ServiceFactory factory) : IClassFixture<Ser
             calibration = "mse-optimal",
             pin = new Dictionary<string, int> { ["fc"] = 8 },
             exclude = new[] { "conv1" },
+            targetOpset = 21,
         })).GetProperty("id").GetString()!;
         await client.WaitForStateAsync(id, "succeeded");
 
         var settings = factory.Engine.Settings["settings"];
+        Assert.Equal(21, settings.TargetOpset);
         Assert.Equal(new SizeBudget(null, 4.5, BudgetMetric.Sqnr), settings.Budget);
         Assert.Equal([4, 8], settings.Bits);
         Assert.Equal(SearchMethod.Greedy, settings.Method);
