@@ -429,7 +429,8 @@ internal sealed class OpsetRaiser
     {
         var before = node.Clone();
         var axis = Attribute(node, "axis")?.I ?? 1;
-        if (types.Rank(node.Input[0]) is { } rank && (axis == rank - 1 || axis == -1))
+        // The output has the input's shape, so a declared output (often the graph's own output) gives the rank too.
+        if ((types.Rank(node.Input[0]) ?? types.Rank(node.Output[0])) is { } rank && (axis == rank - 1 || axis == -1))
         {
             TakeAttribute(node, "axis");
             node.Attribute.Add(IntAttribute("axis", -1));
