@@ -110,7 +110,7 @@ internal static class ModelChecks
             {
                 if (QuantizedOps.Contains(node.OpType) || node.OpType.StartsWith("QLinear", StringComparison.Ordinal))
                 {
-                    var label = node.Name.Length > 0 ? node.Name : node.Output.FirstOrDefault() ?? node.OpType;
+                    var label = Label(node);
                     throw new EngineException(
                         "model-already-quantized",
                         $"The model is already quantized: node '{label}' is {node.OpType}. Upload the FP32 model instead.");
@@ -145,6 +145,10 @@ internal static class ModelChecks
             }
         }
     }
+
+    /// <summary>How error messages name a node: its name, else its first output, else its operator.</summary>
+    public static string Label(P.NodeProto node) =>
+        node.Name.Length > 0 ? node.Name : node.Output.FirstOrDefault(o => o.Length > 0) ?? node.OpType;
 
     private static EngineException NotOnnx(string message, Exception? inner = null) => new("model-not-onnx", message, inner);
 }

@@ -202,10 +202,19 @@ internal sealed class ModelNormaliser
     {
         var chain = new List<string>();
         var casts = new List<int>();
+        var seen = new HashSet<(GraphScope, string)>();
         while (true)
         {
             chain.Add(name);
             var owner = scope.Find(name)!;
+            if (!seen.Add((owner, name)))
+            {
+                // GraphCycles refuses loops before normalising; this keeps the walk finite whatever reaches it.
+                throw new EngineException(
+                    "model-invalid",
+                    $"The model is invalid: value '{owner.Prefix}{name}' is computed from itself through {string.Join(" <- ", chain.Select(c => $"'{c}'"))}; re-export the model.");
+            }
+
             if (owner.Initializers.TryGetValue(name, out var tensor))
             {
                 casts.Reverse();

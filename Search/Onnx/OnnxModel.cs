@@ -84,6 +84,8 @@ public sealed class OnnxModel
         var proto = ModelChecks.Parse(bytes, name);
         ModelChecks.DefaultOpset(proto);
         ModelChecks.RefuseExternalData(proto);
+        TensorValidation.Check(proto);
+        GraphCycles.Check(proto);
         ModelChecks.RefuseQuantizedOps(proto);
         OpsetRaise? raise = null;
         RaisedGraphs? raisedGraphs = null;

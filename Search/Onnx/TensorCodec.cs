@@ -15,7 +15,8 @@ internal static class TensorCodec
         long count = 1;
         foreach (var d in dims)
         {
-            count *= d;
+            // TensorValidation has refused negative and overflowing shapes; checked keeps any other caller honest.
+            count = checked(count * d);
         }
 
         return count;
@@ -80,6 +81,7 @@ internal static class TensorCodec
 
                 break;
             case P.TensorProto.Types.DataType.Bfloat16:
+                CheckLength(tensor, raw.IsEmpty ? tensor.Int32Data.Count : raw.Length, raw.IsEmpty ? count : count * 2L);
                 for (var i = 0; i < count; i++)
                 {
                     uint bits = raw.IsEmpty ? (ushort)tensor.Int32Data[i] : MemoryMarshal.Cast<byte, ushort>(raw)[i];
