@@ -10,29 +10,67 @@ public static class DatasetReader
     /// <summary>Name given to the array of a single .npy file.</summary>
     public const string SingleArrayName = "input";
 
+    /// <summary>
+    /// Describes every array a dataset file holds (name, type, shape, decoded size) in bounded memory: headers
+    /// first, so the decoded size is checked against <paramref name="limits"/> before any data inflates, then the
+    /// data streamed through a small buffer to check it is complete. What an upload needs; nothing is decoded.
+    /// </summary>
+    /// <param name="verifyData">False reads the headers alone (a file already checked at upload).</param>
+    public static IReadOnlyList<NpyArrayInfo> Inspect(Stream stream, DatasetLimits? limits = null, bool verifyData = true)
+    {
+        ArgumentNullException.ThrowIfNull(stream);
+        Span<byte> start = stackalloc byte[6];
+        long origin = stream.Position;
+        int got = stream.ReadAtLeast(start, start.Length, throwOnEndOfStream: false);
+        stream.Position = origin;
+        start = start[..got];
+        if (start.StartsWith("PK\x03\x04"u8) || start.StartsWith("PK\x05\x06"u8))
+            return NpzReader.Inspect(stream, limits, verifyData);
+        if (start.StartsWith(NpyReader.Magic))
+        {
+            if (!verifyData)
+                return [NpyReader.ReadInfo(stream, SingleArrayName, limits)];
+            var info = NpyReader.Skim(stream, SingleArrayName, limits);
+            if (stream.Position != stream.Length)
+                throw DatasetErrors.Invalid(
+                    $"The .npy file has {stream.Length - stream.Position} bytes after its array; send several arrays as an .npz (np.savez).");
+            return [info];
+        }
+        throw NotADataset(got == 0);
+    }
+
+    /// <summary>Reads every array of a seekable dataset file (a <see cref="FileStream"/>), within <paramref name="limits"/>.</summary>
+    public static IReadOnlyList<NpyArray> Read(Stream stream, DatasetLimits? limits = null)
+    {
+        ArgumentNullException.ThrowIfNull(stream);
+        Span<byte> start = stackalloc byte[6];
+        long origin = stream.Position;
+        int got = stream.ReadAtLeast(start, start.Length, throwOnEndOfStream: false);
+        stream.Position = origin;
+        start = start[..got];
+        if (start.StartsWith("PK\x03\x04"u8) || start.StartsWith("PK\x05\x06"u8))
+            return NpzReader.Read(stream, limits);
+        if (start.StartsWith(NpyReader.Magic))
+        {
+            var array = NpyReader.Read(stream, SingleArrayName, limits);
+            if (stream.Position != stream.Length)
+                throw DatasetErrors.Invalid(
+                    $"The .npy file has {stream.Length - stream.Position} bytes after its array; send several arrays as an .npz (np.savez).");
+            return [array];
+        }
+        throw NotADataset(got == 0);
+    }
+
+    private static EngineException NotADataset(bool empty) => DatasetErrors.Invalid(
+        empty
+            ? "The dataset file is empty."
+            : "The dataset file is neither .npy (which starts with \\x93NUMPY) nor .npz (a zip archive); save it with np.save or np.savez.");
+
     /// <summary>Reads every array the file holds, within <paramref name="limits"/>.</summary>
     public static IReadOnlyList<NpyArray> Read(byte[] bytes, DatasetLimits? limits = null)
     {
         ArgumentNullException.ThrowIfNull(bytes);
-        var span = bytes.AsSpan();
-        // Local file header, or the end-of-directory record alone for an empty archive.
-        if (span.StartsWith("PK\x03\x04"u8) || span.StartsWith("PK\x05\x06"u8))
-        {
-            using var zip = new MemoryStream(bytes, writable: false);
-            return NpzReader.Read(zip, limits);
-        }
-        if (span.StartsWith(NpyReader.Magic))
-        {
-            using var npy = new MemoryStream(bytes, writable: false);
-            var array = NpyReader.Read(npy, SingleArrayName, limits);
-            if (npy.Position != npy.Length)
-                throw DatasetErrors.Invalid(
-                    $"The .npy file has {npy.Length - npy.Position} bytes after its array; send several arrays as an .npz (np.savez).");
-            return [array];
-        }
-        throw DatasetErrors.Invalid(
-            bytes.Length == 0
-                ? "The dataset file is empty."
-                : "The dataset file is neither .npy (which starts with \\x93NUMPY) nor .npz (a zip archive); save it with np.save or np.savez.");
+        using var stream = new MemoryStream(bytes, writable: false);
+        return Read(stream, limits);
     }
 }

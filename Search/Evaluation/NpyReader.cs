@@ -30,6 +30,51 @@ public static class NpyReader
     /// <param name="limits">Caps on its data size; both MaxArrayBytes and MaxTotalBytes apply.</param>
     public static NpyArray Read(Stream stream, string name, DatasetLimits? limits = null)
     {
+        var (header, count) = ReadHeader(stream, name, limits);
+        Array data = header.ElementType switch
+        {
+            ElementType.Float32 => ReadElements<float>(stream, count, header, name),
+            ElementType.Float16 => ReadElements<Half>(stream, count, header, name),
+            ElementType.Float64 => ReadElements<double>(stream, count, header, name),
+            ElementType.Int64 => ReadElements<long>(stream, count, header, name),
+            ElementType.Int32 => ReadElements<int>(stream, count, header, name),
+            ElementType.Int8 => ReadElements<sbyte>(stream, count, header, name),
+            ElementType.UInt8 => ReadElements<byte>(stream, count, header, name),
+            ElementType.Bool => ReadBools(stream, count, header, name),
+            _ => throw new InvalidOperationException("NpyHeader returned an unsupported type."),
+        };
+        return new NpyArray(name, header.ElementType, header.Shape, data);
+    }
+
+    /// <summary>
+    /// Reads one .npy array's header and then streams past its data through a small buffer, checking the
+    /// data is all there without holding it: what an upload needs to describe an array in bounded memory.
+    /// </summary>
+    public static NpyArrayInfo Skim(Stream stream, string name, DatasetLimits? limits = null)
+    {
+        var (header, count) = ReadHeader(stream, name, limits);
+        long bytes = count * header.ItemSize;
+        var scratch = new byte[(int)Math.Min(Math.Max(bytes, 1), 1 << 16)];
+        long left = bytes;
+        while (left > 0)
+        {
+            int n = ReadAtMost(stream, scratch.AsSpan(0, (int)Math.Min(left, scratch.Length)));
+            if (n == 0)
+                throw TruncatedData(name, header, bytes, bytes - left);
+            left -= n;
+        }
+        return new NpyArrayInfo(name, header.ElementType, header.Shape, bytes);
+    }
+
+    /// <summary>Reads only the header: enough to know an array's type, shape and decoded size before inflating its data.</summary>
+    public static NpyArrayInfo ReadInfo(Stream stream, string name, DatasetLimits? limits = null)
+    {
+        var (header, count) = ReadHeader(stream, name, limits);
+        return new NpyArrayInfo(name, header.ElementType, header.Shape, count * header.ItemSize);
+    }
+
+    private static (NpyHeader Header, long Count) ReadHeader(Stream stream, string name, DatasetLimits? limits)
+    {
         ArgumentNullException.ThrowIfNull(stream);
         ArgumentNullException.ThrowIfNull(name);
         limits ??= DatasetLimits.Default;
@@ -76,20 +121,7 @@ public static class NpyReader
             throw DatasetErrors.TooLarge(
                 $"Array '{name}' holds {DatasetErrors.FormatBytes(bytes)} ({DatasetErrors.TypeName(header.ElementType)}, shape {DatasetErrors.FormatShape(header.Shape)}); " +
                 $"the limit is {DatasetErrors.FormatBytes(cap)}. Send fewer samples.");
-
-        Array data = header.ElementType switch
-        {
-            ElementType.Float32 => ReadElements<float>(stream, count, header, name),
-            ElementType.Float16 => ReadElements<Half>(stream, count, header, name),
-            ElementType.Float64 => ReadElements<double>(stream, count, header, name),
-            ElementType.Int64 => ReadElements<long>(stream, count, header, name),
-            ElementType.Int32 => ReadElements<int>(stream, count, header, name),
-            ElementType.Int8 => ReadElements<sbyte>(stream, count, header, name),
-            ElementType.UInt8 => ReadElements<byte>(stream, count, header, name),
-            ElementType.Bool => ReadBools(stream, count, header, name),
-            _ => throw new InvalidOperationException("NpyHeader returned an unsupported type."),
-        };
-        return new NpyArray(name, header.ElementType, header.Shape, data);
+        return (header, count);
     }
 
     private static long CountElements(NpyHeader header, string name)

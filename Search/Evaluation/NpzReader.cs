@@ -20,21 +20,13 @@ public static class NpzReader
         limits ??= DatasetLimits.Default;
         try
         {
+            RefuseManyMembers(stream, limits);
             using var archive = new ZipArchive(stream, ZipArchiveMode.Read, leaveOpen: true);
-            var entries = archive.Entries;
-            if (entries.Count > limits.MaxArrays)
-                throw DatasetErrors.TooLarge($"The .npz holds {entries.Count} members; at most {limits.MaxArrays} arrays are read.");
-            if (entries.Count == 0)
-                throw DatasetErrors.Invalid("The .npz holds no arrays.");
-
-            var arrays = new List<NpyArray>(entries.Count);
-            var seen = new HashSet<string>(StringComparer.Ordinal);
+            var members = Members(archive, limits);
+            var arrays = new List<NpyArray>(members.Count);
             long total = 0;
-            foreach (var entry in entries)
+            foreach (var (entry, name) in members)
             {
-                string name = ArrayName(entry.FullName);
-                if (!seen.Add(name))
-                    throw DatasetErrors.Invalid($"The .npz holds two members for array '{name}'.");
                 var array = ReadMember(entry, name, limits, limits.MaxTotalBytes - total);
                 total += array.ByteCount;
                 arrays.Add(array);
@@ -47,10 +39,115 @@ public static class NpzReader
         }
     }
 
+    /// <summary>
+    /// Describes every array of the archive in bounded memory: first every member's .npy header alone (a few
+    /// KiB inflated each), so the decoded size is known and checked against <see cref="DatasetLimits.MaxTotalBytes"/>
+    /// before any data inflates; then each member's data is streamed through a small buffer to check it is all
+    /// there, with the same ratio and size caps as <see cref="Read"/>.
+    /// </summary>
+    /// <param name="verifyData">False stops after the headers (a file already checked at upload).</param>
+    public static IReadOnlyList<NpyArrayInfo> Inspect(Stream stream, DatasetLimits? limits = null, bool verifyData = true)
+    {
+        ArgumentNullException.ThrowIfNull(stream);
+        limits ??= DatasetLimits.Default;
+        RefuseManyMembers(stream, limits);
+        try
+        {
+            using var archive = new ZipArchive(stream, ZipArchiveMode.Read, leaveOpen: true);
+            var members = Members(archive, limits);
+            var headerLimits = limits with { MaxTotalBytes = limits.MaxArrayBytes };
+            var infos = new List<NpyArrayInfo>(members.Count);
+            foreach (var (entry, name) in members)
+            {
+                CheckClaims(entry, limits, limits.MaxArrayBytes);
+                using var header = Open(entry, limits, limits.MaxArrayBytes);
+                infos.Add(NpyReader.ReadInfo(header, name, headerLimits));
+            }
+
+            var total = infos.Sum(i => i.ByteCount);
+            if (total > limits.MaxTotalBytes)
+            {
+                var samples = infos.Max(i => i.SampleCount);
+                var perSample = samples > 0 ? Math.Max(1, total / samples) : total;
+                throw DatasetErrors.TooLarge(
+                    $"The dataset's arrays decode to {DatasetErrors.FormatBytes(total)} by their .npy headers, more than the {DatasetErrors.FormatBytes(limits.MaxTotalBytes)} " +
+                    $"a decoded dataset may take here; at {DatasetErrors.FormatBytes(perSample)} per sample, at most {limits.MaxTotalBytes / perSample} of its {samples} samples would fit.");
+            }
+
+            foreach (var (entry, name) in verifyData ? members : [])
+            {
+                using var data = Open(entry, limits, limits.MaxArrayBytes);
+                NpyReader.Skim(data, name, headerLimits);
+                if (data.ReadByte() != -1)
+                    throw DatasetErrors.Invalid($"The .npz member '{entry.FullName}' has bytes after its array; each member holds exactly one .npy array.");
+            }
+            return infos;
+        }
+        catch (InvalidDataException e)
+        {
+            throw DatasetErrors.Invalid($"The .npz is not a readable zip archive: {e.Message}", e);
+        }
+    }
+
+    /// <summary>
+    /// Reads the entry count of the end-of-central-directory record (PKWARE APPNOTE.TXT 4.3.16) before
+    /// ZipArchive builds an object per entry: a small file can list millions of entries.
+    /// </summary>
+    private static void RefuseManyMembers(Stream stream, DatasetLimits limits)
+    {
+        if (!stream.CanSeek || stream.Length < 22)
+            return;
+        int tail = (int)Math.Min(stream.Length, 22 + 0xFFFF);
+        var buffer = new byte[tail];
+        long start = stream.Position;
+        stream.Seek(-tail, SeekOrigin.End);
+        stream.ReadExactly(buffer);
+        stream.Position = start;
+        for (int at = tail - 22; at >= 0; at--)
+        {
+            if (buffer[at] == 0x50 && buffer[at + 1] == 0x4B && buffer[at + 2] == 0x05 && buffer[at + 3] == 0x06)
+            {
+                int entries = buffer[at + 10] | (buffer[at + 11] << 8);
+                if (entries > limits.MaxArrays)
+                    throw DatasetErrors.TooLarge($"The .npz lists {entries} members; at most {limits.MaxArrays} arrays are read.");
+                return;
+            }
+        }
+    }
+
+    private static List<(ZipArchiveEntry Entry, string Name)> Members(ZipArchive archive, DatasetLimits limits)
+    {
+        var entries = archive.Entries;
+        if (entries.Count > limits.MaxArrays)
+            throw DatasetErrors.TooLarge($"The .npz holds {entries.Count} members; at most {limits.MaxArrays} arrays are read.");
+        if (entries.Count == 0)
+            throw DatasetErrors.Invalid("The .npz holds no arrays.");
+        var seen = new HashSet<string>(StringComparer.Ordinal);
+        var members = new List<(ZipArchiveEntry, string)>(entries.Count);
+        foreach (var entry in entries)
+        {
+            string name = ArrayName(entry.FullName);
+            if (!seen.Add(name))
+                throw DatasetErrors.Invalid($"The .npz holds two members for array '{name}'.");
+            members.Add((entry, name));
+        }
+        return members;
+    }
+
     private static NpyArray ReadMember(ZipArchiveEntry entry, string name, DatasetLimits limits, long remainingTotal)
     {
         long cap = Math.Min(limits.MaxArrayBytes, remainingTotal);
-        // The sizes in the zip headers are claims; refuse early on a claim, but count real bytes below.
+        CheckClaims(entry, limits, cap);
+        using var stream = Open(entry, limits, cap);
+        var array = NpyReader.Read(stream, name, limits with { MaxTotalBytes = remainingTotal });
+        if (stream.ReadByte() != -1)
+            throw DatasetErrors.Invalid($"The .npz member '{entry.FullName}' has bytes after its array; each member holds exactly one .npy array.");
+        return array;
+    }
+
+    private static void CheckClaims(ZipArchiveEntry entry, DatasetLimits limits, long cap)
+    {
+        // The sizes in the zip headers are claims; refuse early on a claim, but count real bytes as they inflate.
         if (entry.Length > cap + HeaderAllowanceBytes)
             throw DatasetErrors.TooLarge(
                 $"The .npz member '{entry.FullName}' is {DatasetErrors.FormatBytes(entry.Length)} uncompressed; " +
@@ -59,13 +156,10 @@ public static class NpzReader
             throw DatasetErrors.TooLarge(
                 $"The .npz member '{entry.FullName}' claims to inflate {entry.Length / (double)Math.Max(1, entry.CompressedLength):0} times its compressed size, " +
                 $"more than the {limits.MaxCompressionRatio:0.#} a dataset plausibly reaches; it looks like a zip bomb.");
-
-        using var stream = new LimitedReadStream(entry.Open(), entry.FullName, cap + HeaderAllowanceBytes, entry.CompressedLength, limits.MaxCompressionRatio);
-        var array = NpyReader.Read(stream, name, limits with { MaxTotalBytes = remainingTotal });
-        if (stream.ReadByte() != -1)
-            throw DatasetErrors.Invalid($"The .npz member '{entry.FullName}' has bytes after its array; each member holds exactly one .npy array.");
-        return array;
     }
+
+    private static LimitedReadStream Open(ZipArchiveEntry entry, DatasetLimits limits, long cap) =>
+        new(entry.Open(), entry.FullName, cap + HeaderAllowanceBytes, entry.CompressedLength, limits.MaxCompressionRatio);
 
     /// <summary>Checks a member name and strips its .npy suffix, as NumPy's loader does.</summary>
     internal static string ArrayName(string memberName)

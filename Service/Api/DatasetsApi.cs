@@ -27,11 +27,12 @@ internal static class DatasetsApi
     public static async Task<Results<Created<DatasetResponse>, Ok<DatasetResponse>>> Upload(
         HttpRequest request,
         UploadService uploads,
+        BlobStore blobs,
         IOptions<BitbudgetOptions> options,
         CancellationToken cancellationToken)
     {
-        var bytes = await BodyReader.ReadAsync(request, options.Value.MaxDatasetBytes, "dataset", cancellationToken).ConfigureAwait(false);
-        var (dataset, created) = uploads.AddDataset(bytes);
+        using var upload = await BodyReader.StageAsync(request, blobs, options.Value.MaxDatasetBytes, "dataset", cancellationToken).ConfigureAwait(false);
+        var (dataset, created) = uploads.AddDataset(upload);
         var response = DatasetResponse.From(dataset);
         return created ? TypedResults.Created($"/v1/datasets/{dataset.Id}", response) : TypedResults.Ok(response);
     }

@@ -29,11 +29,12 @@ internal static class ModelsApi
         HttpRequest request,
         string? name,
         UploadService uploads,
+        BlobStore blobs,
         IOptions<BitbudgetOptions> options,
         CancellationToken cancellationToken)
     {
-        var bytes = await BodyReader.ReadAsync(request, options.Value.MaxModelBytes, "model", cancellationToken).ConfigureAwait(false);
-        var (model, created) = uploads.AddModel(bytes, name);
+        using var upload = await BodyReader.StageAsync(request, blobs, options.Value.MaxModelBytes, "model", cancellationToken).ConfigureAwait(false);
+        var (model, created) = uploads.AddModel(upload, name);
         var response = ModelResponse.From(model);
         return created ? TypedResults.Created($"/v1/models/{model.Id}", response) : TypedResults.Ok(response);
     }

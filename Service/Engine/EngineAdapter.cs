@@ -1,4 +1,3 @@
-using System.Security.Cryptography;
 using Bitbudget.Search.Evaluation;
 using Bitbudget.Search.Onnx;
 using Bitbudget.Search.Planning;
@@ -17,6 +16,7 @@ internal sealed class EngineAdapter(IOptions<BitbudgetOptions> options) : ISearc
     public ModelSummary InspectModel(byte[] bytes, string name)
     {
         var model = OnnxModel.Load(bytes, name);
+        RuntimeModelCheck.Check(bytes, TimeSpan.FromSeconds(options.Value.ModelCheckSeconds));
         return new ModelSummary(
             model.Sha256,
             model.Name,
@@ -29,19 +29,27 @@ internal sealed class EngineAdapter(IOptions<BitbudgetOptions> options) : ISearc
             model.Skipped);
     }
 
-    public DatasetSummary InspectDataset(byte[] bytes)
+    public DatasetSummary InspectDataset(Stream dataset)
     {
-        var arrays = DatasetReader.Read(bytes, Limits);
+        var arrays = DatasetReader.Inspect(dataset, Limits);
         var samples = arrays.Count == 0 ? 0 : arrays.Max(a => a.SampleCount);
         return new DatasetSummary(
-            Convert.ToHexStringLower(SHA256.HashData(bytes)),
+            "",
             arrays.Select(a => new ArraySummary(a.Name, a.ElementType.ToString().ToLowerInvariant(), a.Shape)).ToList(),
             samples,
             arrays.Any(a => a.Name == CalibrationSet.LabelsName));
     }
 
-    public void CheckCompatible(byte[] model, byte[] dataset, long? targetOpset = null) =>
-        CalibrationSet.Create(DatasetReader.Read(dataset, Limits), OnnxModel.Load(model, "model", targetOpset).Inputs);
+    public void CheckCompatible(byte[] model, Stream dataset, long? targetOpset = null)
+    {
+        var loaded = OnnxModel.Load(model, "model", targetOpset);
+        var headers = DatasetReader.Inspect(dataset, Limits, verifyData: false);
+        // The job reads the dataset file whole before decoding it, so its size counts beside the estimate.
+        SearchMemoryEstimate.Of(loaded, headers, new TrialSessionOptions().MaxCachedActivationBytes, heldBytes: dataset.Length)
+            .Check(options.Value.MaxSearchMemoryBytes, "Bitbudget:MaxSearchMemoryBytes");
+        dataset.Position = 0;
+        CalibrationSet.Create(DatasetReader.Read(dataset, Limits), loaded.Inputs);
+    }
 
     public SearchResult RunSearch(
         byte[] model,

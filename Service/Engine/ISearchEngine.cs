@@ -9,17 +9,18 @@ namespace Bitbudget.Service.Engine;
 /// </summary>
 internal interface ISearchEngine
 {
-    /// <summary>Reads an uploaded ONNX model and lists what a search can work on.</summary>
+    /// <summary>Reads an uploaded ONNX model, checks that ONNX Runtime can load it, and lists what a search can work on.</summary>
     ModelSummary InspectModel(byte[] bytes, string name);
 
-    /// <summary>Reads an uploaded .npz archive or single .npy array.</summary>
-    DatasetSummary InspectDataset(byte[] bytes);
+    /// <summary>Describes an uploaded .npz archive or single .npy array (a seekable stream) without holding its data.</summary>
+    DatasetSummary InspectDataset(Stream dataset);
 
     /// <summary>
-    /// Throws <c>dataset-mismatch</c> when the dataset cannot feed the model's inputs, and the raise's codes
+    /// Throws <c>search-too-large</c> when a search would need more memory than the service allows,
+    /// <c>dataset-mismatch</c> when the dataset cannot feed the model's inputs, and the raise's codes
     /// (<c>opset-raise-*</c>) when <paramref name="targetOpset"/> is given and the model cannot be raised to it.
     /// </summary>
-    void CheckCompatible(byte[] model, byte[] dataset, long? targetOpset = null);
+    void CheckCompatible(byte[] model, Stream dataset, long? targetOpset = null);
 
     /// <summary>
     /// Runs a whole search. The engine loads what <paramref name="trials"/> already holds, skips those

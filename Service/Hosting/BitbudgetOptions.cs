@@ -36,6 +36,17 @@ internal sealed class BitbudgetOptions
     [Range(1, long.MaxValue)]
     public long MaxDatasetDecodedBytes { get; set; } = 2048L * 1024 * 1024;
 
+    /// <summary>
+    /// Most memory one search may be estimated to hold (decoded calibration set, reference and trial outputs,
+    /// activation cache at its cap, weights); a search over it is refused at submission with how many samples fit.
+    /// </summary>
+    [Range(1, long.MaxValue)]
+    public long MaxSearchMemoryBytes { get; set; } = 2048L * 1024 * 1024;
+
+    /// <summary>Longest an uploaded model may take to load in ONNX Runtime, the check every model passes at upload.</summary>
+    [Range(1, 600)]
+    public int ModelCheckSeconds { get; set; } = 30;
+
     /// <summary>Models with more quantizable layers are refused (each layer costs several trials).</summary>
     [Range(1, 100_000)]
     public int MaxLayers { get; set; } = 2_000;

@@ -42,7 +42,10 @@ internal sealed partial class SearchService(
             return (CheckSameRequest(earlier, requestHash), false);
         }
 
-        engine.CheckCompatible(blobs.Read(model.Summary.Sha256), blobs.Read(dataset.Summary.Sha256), spec.TargetOpset);
+        using (var datasetFile = File.OpenRead(blobs.PathOf(dataset.Summary.Sha256)))
+        {
+            engine.CheckCompatible(blobs.Read(model.Summary.Sha256), datasetFile, spec.TargetOpset);
+        }
 
         var (search, created) = searches.Create(model.Id, dataset.Id, spec, idempotencyKey, requestHash);
         if (!created)

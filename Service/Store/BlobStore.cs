@@ -59,6 +59,36 @@ internal sealed class BlobStore
         return sha;
     }
 
+    /// <summary>A fresh path in the staging folder for an upload being received (a <c>.part</c> file until stored).</summary>
+    public string NewStagingPath() => System.IO.Path.Combine(staging, $"upload.{Guid.NewGuid():N}.part");
+
+    /// <summary>
+    /// Stores a staged file (already on disk, fsynced by its writer, named by <paramref name="sha256"/>) by moving it
+    /// into place, so a large upload is written once and never read back into memory to be stored.
+    /// </summary>
+    public string PutStaged(string stagedPath, string sha256)
+    {
+        var target = PathOf(sha256);
+        if (File.Exists(target))
+        {
+            File.Delete(stagedPath);
+            return sha256;
+        }
+
+        Directory.CreateDirectory(System.IO.Path.GetDirectoryName(target)!);
+        try
+        {
+            File.Move(stagedPath, target, overwrite: false);
+        }
+        catch (IOException) when (File.Exists(target))
+        {
+            // Another writer stored the same content first; its file has the same bytes.
+            File.Delete(stagedPath);
+        }
+
+        return sha256;
+    }
+
     public bool Exists(string sha256) => File.Exists(PathOf(sha256));
 
     public byte[] Read(string sha256)

@@ -1,13 +1,21 @@
 using System.Globalization;
+using System.Security.Cryptography;
 using Bitbudget.Service.Problems;
+using Bitbudget.Service.Store;
 using Microsoft.AspNetCore.Http.Features;
 
 namespace Bitbudget.Service.Uploads;
 
-/// <summary>Reads a raw upload body into memory, refusing (413) anything over the endpoint's limit before and while reading.</summary>
+/// <summary>
+/// Streams a raw upload body to a staging file through one small buffer, hashing it on the way, and refuses
+/// (413) anything over the endpoint's limit before reading (Content-Length) or as soon as the bytes read cross
+/// it (chunked), so no body is ever held in memory, let alone twice.
+/// </summary>
 internal static class BodyReader
 {
-    public static async Task<byte[]> ReadAsync(HttpRequest request, long limitBytes, string what, CancellationToken cancellationToken)
+    private const int BufferBytes = 1 << 16;
+
+    public static async Task<StagedUpload> StageAsync(HttpRequest request, BlobStore blobs, long limitBytes, string what, CancellationToken cancellationToken)
     {
         if (request.ContentLength > limitBytes)
         {
@@ -20,25 +28,44 @@ internal static class BodyReader
             sizeFeature.MaxRequestBodySize = limitBytes + 1;
         }
 
-        using var buffer = new MemoryStream(request.ContentLength is { } length ? (int)Math.Min(length, int.MaxValue) : 1 << 16);
-        var chunk = new byte[1 << 16];
-        int read;
-        while ((read = await request.Body.ReadAsync(chunk, cancellationToken).ConfigureAwait(false)) > 0)
+        var path = blobs.NewStagingPath();
+        var staged = new StagedUpload(path, 0, "");
+        try
         {
-            if (buffer.Length + read > limitBytes)
+            using var hash = IncrementalHash.CreateHash(HashAlgorithmName.SHA256);
+            long length = 0;
+            await using (var file = new FileStream(path, FileMode.CreateNew, FileAccess.Write, FileShare.None, 1, FileOptions.Asynchronous))
             {
-                throw TooLarge(what, limitBytes);
+                var chunk = new byte[BufferBytes];
+                int read;
+                while ((read = await request.Body.ReadAsync(chunk, cancellationToken).ConfigureAwait(false)) > 0)
+                {
+                    length += read;
+                    if (length > limitBytes)
+                    {
+                        throw TooLarge(what, limitBytes);
+                    }
+
+                    hash.AppendData(chunk, 0, read);
+                    await file.WriteAsync(chunk.AsMemory(0, read), cancellationToken).ConfigureAwait(false);
+                }
+
+                // The blob store moves this file into place; its bytes must be on disk before the rename makes them visible.
+                file.Flush(flushToDisk: true);
             }
 
-            buffer.Write(chunk, 0, read);
-        }
+            if (length == 0)
+            {
+                throw ServiceException.Invalid("body", $"The request body is empty; send the {what}'s bytes as application/octet-stream.");
+            }
 
-        if (buffer.Length == 0)
+            return new StagedUpload(path, length, Convert.ToHexStringLower(hash.GetHashAndReset()));
+        }
+        catch
         {
-            throw ServiceException.Invalid("body", $"The request body is empty; send the {what}'s bytes as application/octet-stream.");
+            staged.Dispose();
+            throw;
         }
-
-        return buffer.ToArray();
     }
 
     private static ServiceException TooLarge(string what, long limitBytes) => new(

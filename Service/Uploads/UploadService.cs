@@ -13,15 +13,16 @@ namespace Bitbudget.Service.Uploads;
 /// </summary>
 internal sealed class UploadService(CatalogStore catalog, BlobStore blobs, ISearchEngine engine, IOptions<BitbudgetOptions> options)
 {
-    public (ModelRecord Model, bool Created) AddModel(byte[] bytes, string? name)
+    public (ModelRecord Model, bool Created) AddModel(StagedUpload upload, string? name)
     {
-        var sha = BlobStore.Sha256Hex(bytes);
+        var sha = upload.Sha256;
         if (catalog.FindModelBySha(sha) is { } known)
         {
             return (known, false);
         }
 
-        var summary = engine.InspectModel(bytes, string.IsNullOrWhiteSpace(name) ? "model.onnx" : name.Trim());
+        // The ONNX parser needs the whole file; this is the one in-memory copy, dropped as soon as the model is checked.
+        var summary = engine.InspectModel(upload.ReadAllBytes(), string.IsNullOrWhiteSpace(name) ? "model.onnx" : name.Trim());
         var maxLayers = options.Value.MaxLayers;
         if (summary.Layers.Count > maxLayers)
         {
@@ -30,19 +31,24 @@ internal sealed class UploadService(CatalogStore catalog, BlobStore blobs, ISear
                 $"The model has {summary.Layers.Count.ToString(CultureInfo.InvariantCulture)} quantizable layers and this service accepts at most {maxLayers.ToString(CultureInfo.InvariantCulture)}; exclude part of the model or raise Bitbudget:MaxLayers.");
         }
 
-        blobs.Put(bytes);
-        return catalog.AddModel(summary with { Sha256 = sha, Bytes = bytes.LongLength });
+        blobs.PutStaged(upload.Path, sha);
+        return catalog.AddModel(summary with { Sha256 = sha, Bytes = upload.Length });
     }
 
-    public (DatasetRecord Dataset, bool Created) AddDataset(byte[] bytes)
+    public (DatasetRecord Dataset, bool Created) AddDataset(StagedUpload upload)
     {
-        var sha = BlobStore.Sha256Hex(bytes);
+        var sha = upload.Sha256;
         if (catalog.FindDatasetBySha(sha) is { } known)
         {
             return (known, false);
         }
 
-        var summary = engine.InspectDataset(bytes);
+        DatasetSummary summary;
+        using (var stream = upload.Open())
+        {
+            summary = engine.InspectDataset(stream);
+        }
+
         var maxSamples = options.Value.MaxDatasetSamples;
         if (summary.Samples > maxSamples)
         {
@@ -51,7 +57,7 @@ internal sealed class UploadService(CatalogStore catalog, BlobStore blobs, ISear
                 $"The dataset has {summary.Samples.ToString(CultureInfo.InvariantCulture)} samples and this service accepts at most {maxSamples.ToString(CultureInfo.InvariantCulture)}; a few hundred samples usually calibrate well (common practice).");
         }
 
-        blobs.Put(bytes);
-        return catalog.AddDataset(summary with { Sha256 = sha }, bytes.LongLength);
+        blobs.PutStaged(upload.Path, sha);
+        return catalog.AddDataset(summary with { Sha256 = sha }, upload.Length);
     }
 }

@@ -25,10 +25,10 @@ public sealed class EngineAdapterTests
         var zip = Npz(new NpyArray("x", ElementType.Float32, [values.Length / 256, 256], values));
         var adapter = new EngineAdapter(Options.Create(new BitbudgetOptions { MaxDatasetDecodedBytes = 4L << 20 }));
 
-        var error = Assert.Throws<EngineException>(() => adapter.InspectDataset(zip));
+        var error = Assert.Throws<EngineException>(() => adapter.InspectDataset(new MemoryStream(zip)));
 
         Assert.Equal("dataset-too-large", error.Code);
-        Assert.Equal(2, new EngineAdapter(Options.Create(new BitbudgetOptions { MaxDatasetDecodedBytes = 8L << 20 })).InspectDataset(zip).Arrays[0].Shape.Count);
+        Assert.Equal(2, new EngineAdapter(Options.Create(new BitbudgetOptions { MaxDatasetDecodedBytes = 8L << 20 })).InspectDataset(new MemoryStream(zip)).Arrays[0].Shape.Count);
     }
 
     [Fact]

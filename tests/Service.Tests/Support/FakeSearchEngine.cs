@@ -89,8 +89,9 @@ internal sealed class FakeSearchEngine : ISearchEngine
             []);
     }
 
-    public DatasetSummary InspectDataset(byte[] bytes)
+    public DatasetSummary InspectDataset(Stream dataset)
     {
+        var bytes = ReadAll(dataset);
         var lines = Lines(bytes, DatasetMagic, "dataset-invalid", "The upload is neither a .npz archive nor a .npy array.");
         var samples = long.Parse(Value(lines, "samples"), CultureInfo.InvariantCulture);
         var hasLabels = lines.Contains("labels");
@@ -103,10 +104,10 @@ internal sealed class FakeSearchEngine : ISearchEngine
         return new DatasetSummary(Convert.ToHexStringLower(SHA256.HashData(bytes)), arrays, samples, hasLabels);
     }
 
-    public void CheckCompatible(byte[] model, byte[] dataset, long? targetOpset = null)
+    public void CheckCompatible(byte[] model, Stream dataset, long? targetOpset = null)
     {
         var modelInput = Value(Lines(model, ModelMagic, "model-not-onnx", "Not a model."), "input");
-        var datasetInput = Value(Lines(dataset, DatasetMagic, "dataset-invalid", "Not a dataset."), "input");
+        var datasetInput = Value(Lines(ReadAll(dataset), DatasetMagic, "dataset-invalid", "Not a dataset."), "input");
         if (modelInput != datasetInput)
         {
             throw new EngineException("dataset-mismatch", $"The model's input '{modelInput}' has no array in the dataset (it holds '{datasetInput}').");
@@ -247,5 +248,12 @@ internal sealed class FakeSearchEngine : ISearchEngine
         public TaskCompletionSource Canceled { get; } = new(TaskCreationOptions.RunContinuationsAsynchronously);
 
         public void Release() => Gate.Set();
+    }
+
+    private static byte[] ReadAll(Stream stream)
+    {
+        using var copy = new MemoryStream();
+        stream.CopyTo(copy);
+        return copy.ToArray();
     }
 }

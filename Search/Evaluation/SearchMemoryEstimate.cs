@@ -1,0 +1,68 @@
+using Bitbudget.Search.Onnx;
+
+namespace Bitbudget.Search.Evaluation;
+
+/// <summary>
+/// What a search on a dataset will hold in memory at its peak, from the model's shapes and the dataset's .npy
+/// headers alone (nothing decoded): the decoded arrays, an FP32 copy of any input array of another float type,
+/// the reference outputs and one trial's outputs for every sample, the activation cache at its cap (the cache
+/// grows with the calibration set until that cap, see <see cref="TrialSessionOptions.MaxCachedActivationBytes"/>),
+/// and the weights three times over (the loaded model, its FP32 weights and the weights fed to the session).
+/// Output dimensions the model leaves dynamic count as 1, so the figure is a lower bound where they are.
+/// </summary>
+/// <param name="Bytes">The estimate: <see cref="FixedBytes"/> + <see cref="PerSampleBytes"/> x <see cref="Samples"/>.</param>
+/// <param name="PerSampleBytes">Bytes each calibration sample adds.</param>
+/// <param name="FixedBytes">Bytes the search takes whatever the sample count (weights, activation cache cap).</param>
+public sealed record SearchMemoryEstimate(long Bytes, long PerSampleBytes, long FixedBytes, long Samples)
+{
+    /// <param name="heldBytes">Bytes the caller holds for the whole search besides (e.g. the dataset file read whole).</param>
+    public static SearchMemoryEstimate Of(OnnxModel model, IReadOnlyList<NpyArrayInfo> arrays, long activationCacheBytes, long heldBytes = 0)
+    {
+        ArgumentNullException.ThrowIfNull(model);
+        ArgumentNullException.ThrowIfNull(arrays);
+        long samples = arrays.Count == 0 ? 0 : arrays.Max(a => a.SampleCount);
+        double perSample = 0;
+        foreach (var array in arrays)
+        {
+            var perArraySample = array.SampleCount > 0 ? array.ByteCount / (double)array.SampleCount : 0;
+            perSample += perArraySample;
+            var input = model.Inputs.FirstOrDefault(i => i.Name == array.Name) ?? (model.Inputs.Count == 1 && array.Name == DatasetReader.SingleArrayName ? model.Inputs[0] : null);
+            if (input is { ElementType: ElementType.Float32 } && array.ElementType is ElementType.Float16 or ElementType.Float64)
+            {
+                var elements = array.Shape.Skip(1).Aggregate(1.0, (p, d) => p * d);
+                perSample += elements * sizeof(float);
+            }
+        }
+
+        foreach (var output in model.Outputs)
+        {
+            // Reference outputs plus the outputs of the trial being compared with them, FP32.
+            var elements = output.Shape.Skip(1).Aggregate(1.0, (p, d) => p * (d is > 0 ? d.Value : 1));
+            perSample += 2 * elements * sizeof(float);
+        }
+
+        var weights = model.Layers.Sum(l => (double)l.ParameterCount) * sizeof(float) * 3;
+        var fixedBytes = weights + activationCacheBytes + heldBytes;
+        var total = fixedBytes + (perSample * samples);
+        return new SearchMemoryEstimate(Clamp(total), Clamp(Math.Ceiling(perSample)), Clamp(fixedBytes), samples);
+    }
+
+    /// <summary>Refuses with <c>search-too-large</c> when the estimate passes <paramref name="limitBytes"/>, saying how many samples would fit.</summary>
+    /// <param name="limitName">How the caller names the limit, so the message says which setting to raise.</param>
+    public void Check(long limitBytes, string limitName)
+    {
+        if (Bytes <= limitBytes)
+            return;
+        var fit = PerSampleBytes > 0 ? Math.Max(0, (limitBytes - FixedBytes) / PerSampleBytes) : 0;
+        var advice = fit > 0
+            ? $"at most {fit} of its {Samples} samples would fit, so send a smaller calibration set or raise {limitName}"
+            : $"even one sample does not fit beside the weights, the activation cache and the dataset file, so raise {limitName}";
+        throw new EngineException(
+            "search-too-large",
+            $"A search on this model and dataset would hold about {DatasetErrors.FormatBytes(Bytes)} in memory " +
+            $"({DatasetErrors.FormatBytes(PerSampleBytes)} per sample for {Samples} samples, plus {DatasetErrors.FormatBytes(FixedBytes)} for weights, the activation cache and the dataset file), " +
+            $"more than the {DatasetErrors.FormatBytes(limitBytes)} of {limitName}; {advice}.");
+    }
+
+    private static long Clamp(double bytes) => bytes >= long.MaxValue ? long.MaxValue : (long)bytes;
+}
