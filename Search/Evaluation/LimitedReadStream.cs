@@ -4,8 +4,10 @@ namespace Bitbudget.Search.Evaluation;
 /// A read-only view of one inflating .npz member that counts the bytes it actually yields and stops
 /// the read once they pass a cap or an absurd compression ratio, whatever the zip headers claimed.
 /// </summary>
-internal sealed class LimitedReadStream(Stream inner, string memberName, long maxBytes, long compressedBytes, double maxRatio) : Stream
+internal sealed class LimitedReadStream(Stream inner, string memberName, long maxBytes, long compressedBytes, double maxRatio, uint? expectedCrc = null) : Stream
 {
+    private uint crc;
+
     /// <summary>Below this many inflated bytes the ratio is not judged; tiny members compress wildly.</summary>
     internal const long RatioFloorBytes = 1L << 20;
 
@@ -30,6 +32,13 @@ internal sealed class LimitedReadStream(Stream inner, string memberName, long ma
     public override int Read(Span<byte> buffer)
     {
         int n = inner.Read(buffer);
+        if (expectedCrc is { } expected)
+        {
+            crc = Crc32.Append(crc, buffer[..n]);
+            if (n == 0 && buffer.Length > 0 && crc != expected)
+                throw DatasetErrors.Invalid(
+                    $"The .npz member '{memberName}' fails its CRC-32 check (stored {expected:x8}, computed {crc:x8}): the archive is damaged; save it again with np.savez.");
+        }
         BytesRead += n;
         if (BytesRead > maxBytes)
             throw DatasetErrors.TooLarge(

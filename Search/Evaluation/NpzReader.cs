@@ -159,7 +159,7 @@ public static class NpzReader
     }
 
     private static LimitedReadStream Open(ZipArchiveEntry entry, DatasetLimits limits, long cap) =>
-        new(entry.Open(), entry.FullName, cap + HeaderAllowanceBytes, entry.CompressedLength, limits.MaxCompressionRatio);
+        new(entry.Open(), entry.FullName, cap + HeaderAllowanceBytes, entry.CompressedLength, limits.MaxCompressionRatio, entry.Crc32);
 
     /// <summary>Checks a member name and strips its .npy suffix, as NumPy's loader does.</summary>
     internal static string ArrayName(string memberName)
