@@ -32,13 +32,8 @@ internal sealed class LimitedReadStream(Stream inner, string memberName, long ma
     public override int Read(Span<byte> buffer)
     {
         int n = inner.Read(buffer);
-        if (expectedCrc is { } expected)
-        {
+        if (expectedCrc is not null)
             crc = Crc32.Append(crc, buffer[..n]);
-            if (n == 0 && buffer.Length > 0 && crc != expected)
-                throw DatasetErrors.Invalid(
-                    $"The .npz member '{memberName}' fails its CRC-32 check (stored {expected:x8}, computed {crc:x8}): the archive is damaged; save it again with np.savez.");
-        }
         BytesRead += n;
         if (BytesRead > maxBytes)
             throw DatasetErrors.TooLarge(
@@ -48,6 +43,17 @@ internal sealed class LimitedReadStream(Stream inner, string memberName, long ma
                 $"The .npz member '{memberName}' inflates more than {maxRatio:0.#} times its compressed size " +
                 $"({DatasetErrors.FormatBytes(BytesRead)} so far from {DatasetErrors.FormatBytes(compressedBytes)}), which is how a zip bomb looks, not a dataset.");
         return n;
+    }
+
+    /// <summary>
+    /// Compares the CRC-32 of every byte read with the one the zip directory stores; call once the member has been
+    /// read to its end, after the array's own checks, so a truncated or overlong array is reported as such first.
+    /// </summary>
+    public void CheckCrc()
+    {
+        if (expectedCrc is { } expected && crc != expected)
+            throw DatasetErrors.Invalid(
+                $"The .npz member '{memberName}' fails its CRC-32 check (stored {expected:x8}, computed {crc:x8}): the archive is damaged; save it again with np.savez.");
     }
 
     public override void Flush()

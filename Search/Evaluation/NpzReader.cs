@@ -80,6 +80,7 @@ public static class NpzReader
                 NpyReader.Skim(data, name, headerLimits);
                 if (data.ReadByte() != -1)
                     throw DatasetErrors.Invalid($"The .npz member '{entry.FullName}' has bytes after its array; each member holds exactly one .npy array.");
+                data.CheckCrc();
             }
             return infos;
         }
@@ -142,6 +143,7 @@ public static class NpzReader
         var array = NpyReader.Read(stream, name, limits with { MaxTotalBytes = remainingTotal });
         if (stream.ReadByte() != -1)
             throw DatasetErrors.Invalid($"The .npz member '{entry.FullName}' has bytes after its array; each member holds exactly one .npy array.");
+        stream.CheckCrc();
         return array;
     }
 

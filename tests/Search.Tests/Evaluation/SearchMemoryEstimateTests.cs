@@ -1,0 +1,47 @@
+using Bitbudget.Search.Evaluation;
+using Bitbudget.Search.Tests.Support;
+
+namespace Bitbudget.Search.Tests.Evaluation;
+
+public sealed class SearchMemoryEstimateTests
+{
+    private const long Cache = 512L << 20;
+
+    [Fact]
+    public void EstimateAddsDecodedDataOutputsCacheAndWeights()
+    {
+        // Mlp: input x [n,16] float32, output logits [n,10], weights 16x24 + 24x24 + 24x10 = 1200 parameters in layers.
+        var model = SmallModels.Mlp();
+        var estimate = SearchMemoryEstimate.Of(model, [new NpyArrayInfo("x", ElementType.Float32, [1000, 16], 1000 * 16 * 4)], Cache);
+
+        // Per sample: 64 bytes of input, 2 x 10 float32 outputs (reference and trial) = 80 bytes.
+        Assert.Equal(64 + 80, estimate.PerSampleBytes);
+        Assert.Equal(Cache + (1200 * 4 * 3), estimate.FixedBytes);
+        Assert.Equal(estimate.FixedBytes + (1000 * 144), estimate.Bytes);
+    }
+
+    [Fact]
+    public void Float64DataCountsItsFloat32Copy()
+    {
+        var model = SmallModels.Mlp();
+        var estimate = SearchMemoryEstimate.Of(model, [new NpyArrayInfo("x", ElementType.Float64, [10, 16], 10 * 16 * 8)], Cache);
+
+        Assert.Equal(128 + 64 + 80, estimate.PerSampleBytes);
+    }
+
+    [Fact]
+    public void RefusalSaysHowManySamplesFitAndThatManyDo()
+    {
+        var model = SmallModels.Mlp();
+        var limit = Cache + (100L << 20);
+        NpyArrayInfo Samples(long n) => new("x", ElementType.Float32, [n, 16], n * 64);
+
+        var refusal = Assert.Throws<EngineException>(() => SearchMemoryEstimate.Of(model, [Samples(2_000_000)], Cache).Check(limit, "Bitbudget:MaxSearchMemoryBytes"));
+
+        Assert.Equal("search-too-large", refusal.Code);
+        Assert.Contains("Bitbudget:MaxSearchMemoryBytes", refusal.Message, StringComparison.Ordinal);
+        var fit = long.Parse(System.Text.RegularExpressions.Regex.Match(refusal.Message, @"at most (\d+) of its 2000000 samples").Groups[1].Value, System.Globalization.CultureInfo.InvariantCulture);
+        SearchMemoryEstimate.Of(model, [Samples(fit)], Cache).Check(limit, "limit");
+        Assert.Throws<EngineException>(() => SearchMemoryEstimate.Of(model, [Samples(fit + 1)], Cache).Check(limit, "limit"));
+    }
+}
