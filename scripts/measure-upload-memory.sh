@@ -1,11 +1,12 @@
 #!/usr/bin/env bash
-# Measures the service's peak resident memory (VmHWM, reset before each case through /proc/PID/clear_refs)
-# while it refuses or accepts large uploads, and its resident memory (VmRSS) 5 s after each case:
+# Measures the service's resident memory just started (VmRSS), its peak while it refuses or accepts a large
+# upload (VmHWM), and its resident memory 5 s after, each case in a freshly started process:
 #   1. a 1 GiB - 1 byte body of zeros sent as a dataset (under the 1 GiB limit, refused as not a dataset)
-#   2. a 2 GiB chunked body (no Content-Length) sent as a dataset, refused with 413
-#   3. a ~12 MB .npz whose one float32 array [1835008, 1, 16, 16] inflates to 1.88 GB (compression ratio
-#      about 150, under the 200 zip-bomb limit); the sample limit is raised so the upload itself is accepted
-#   4. POST /v1/searches with the demo model on that dataset (API-only process: no worker runs the job)
+#   2. 500 MiB of random bytes sent as a model (under the 512 MiB limit, refused as not ONNX)
+#   3. a 2 GiB chunked body (no Content-Length) sent as a dataset, refused with 413
+#   4. a 14 MB .npz whose one float32 array [1835008, 1, 16, 16] inflates to 1.88 GB (compression ratio
+#      about 130, under the 200 zip-bomb limit); the sample limit is raised so the upload itself is accepted
+#   5. POST /v1/searches with the demo model on that dataset (API-only process: no worker runs the job)
 # Not a test: numbers depend on the machine. Prints one line per case.
 #
 # Usage: scripts/measure-upload-memory.sh [SOURCE_ROOT]   (default: this checkout; give another checkout
@@ -40,6 +41,7 @@ echo "generating the demo and the inputs..."
 dotnet "$dll" demo --out "$work/demo" >"$work/demo.log" 2>&1 || { cat "$work/demo.log" >&2; exit 1; }
 truncate -s $(((1 << 30) - 1)) "$work/zeros.bin"
 truncate -s $((2 << 30)) "$work/two-gib.bin"
+head -c $((500 << 20)) /dev/urandom >"$work/noise.onnx"
 /usr/bin/python3 - "$work/inflating.npz" <<'PY'
 import sys
 import zipfile
@@ -59,28 +61,41 @@ info = zipfile.ZipFile(sys.argv[1]).infolist()[0]
 print(f"inflating.npz: {info.compress_size} bytes inflating to {info.file_size} (ratio {info.file_size / info.compress_size:.0f})")
 PY
 
-echo "starting the service on $base (API only, data folder $data)..."
-BITBUDGET_API_KEYS="$key" dotnet "$dll" serve --urls "$base" --Bitbudget:DataFolder="$data" --Bitbudget:Workers=0 \
-  --Bitbudget:MaxDatasetSamples=10000000 >"$work/service.log" 2>&1 &
-service_pid=$!
-for _ in $(seq 1 120); do
-  if curl -fsS "$base/healthz" >/dev/null 2>&1; then break; fi
-  kill -0 "$service_pid" 2>/dev/null || { cat "$work/service.log" >&2; echo "error: the service exited" >&2; exit 1; }
-  sleep 0.5
-done
+# Each case runs in a freshly started process (the data folder persists), so no case inherits another's memory.
+start_service() {
+  BITBUDGET_API_KEYS="$key" dotnet "$dll" serve --urls "$base" --Bitbudget:DataFolder="$data" --Bitbudget:Workers=0 \
+    --Bitbudget:MaxDatasetSamples=10000000 >>"$work/service.log" 2>&1 &
+  service_pid=$!
+  for _ in $(seq 1 120); do
+    if curl -fsS "$base/healthz" >/dev/null 2>&1; then return 0; fi
+    kill -0 "$service_pid" 2>/dev/null || { cat "$work/service.log" >&2; echo "error: the service exited" >&2; exit 1; }
+    sleep 0.5
+  done
+  echo "error: /healthz never answered" >&2
+  exit 1
+}
+stop_service() {
+  kill "$service_pid" 2>/dev/null || true
+  wait "$service_pid" 2>/dev/null || true
+  service_pid=""
+}
 
+echo "starting the service on $base (API only, data folder $data)..."
+start_service
 status_kib() { grep "^$1:" "/proc/$service_pid/status" | awk '{print $2}'; }
 model_id="$(curl -fsS "${auth[@]}" -H 'Content-Type: application/octet-stream' --data-binary "@$work/demo/hive-monitor.onnx" \
   "$base/v1/models?name=hive-monitor.onnx" | /usr/bin/python3 -c 'import json, sys; print(json.load(sys.stdin)["id"])')"
 sleep 2
-printf '%-58s %7s %-26s %10s %12s\n' "case" "status" "problem type / id" "peak MiB" "after 5s MiB"
-printf '%-58s %7s %-26s %10s %12s\n' "idle, after the demo model upload" "" "" "$(($(status_kib VmHWM) / 1024))" "$(($(status_kib VmRSS) / 1024))"
+printf '%-58s %7s %-26s %10s %10s %12s\n' "case" "status" "problem type / id" "start MiB" "peak MiB" "after 5s MiB"
 
 # Runs curl with the given arguments as one case and prints its line.
 measure() {
   local label="$1" code answer
   shift
-  echo 5 >"/proc/$service_pid/clear_refs"
+  stop_service
+  start_service
+  sleep 1
+  local idle; idle=$(($(status_kib VmRSS) / 1024))
   code="$(curl -sS -o "$work/answer.json" -w '%{http_code}' "${auth[@]}" "$@" || true)"
   answer="$(/usr/bin/python3 -c 'import json, sys
 try:
@@ -89,13 +104,14 @@ except Exception:
     print("-")' "$work/answer.json")"
   local peak; peak=$(($(status_kib VmHWM) / 1024))
   sleep 5
-  printf '%-58s %7s %-26s %10s %12s\n' "$label" "$code" "$answer" "$peak" "$(($(status_kib VmRSS) / 1024))"
+  printf '%-58s %7s %-26s %10s %10s %12s\n' "$label" "$code" "$answer" "$idle" "$peak" "$(($(status_kib VmRSS) / 1024))"
   cp "$work/answer.json" "$work/last.json"
 }
 
 octet=(-H 'Content-Type: application/octet-stream')
 # -T streams the file (--data-binary @file would load it into curl's memory first).
 measure "1 GiB - 1 byte of zeros as a dataset (Content-Length)" "${octet[@]}" -X POST -T "$work/zeros.bin" "$base/v1/datasets"
+measure "500 MiB of random bytes as a model (limit 512 MiB)" "${octet[@]}" -X POST -T "$work/noise.onnx" "$base/v1/models?name=noise.onnx"
 measure "2 GiB chunked body as a dataset" "${octet[@]}" -H 'Transfer-Encoding: chunked' -X POST -T "$work/two-gib.bin" "$base/v1/datasets"
 measure "12 MB .npz inflating to 1.88 GB as a dataset" "${octet[@]}" -X POST -T "$work/inflating.npz" "$base/v1/datasets"
 dataset_id="$(/usr/bin/python3 -c 'import json, sys; print(json.load(open(sys.argv[1])).get("id", ""))' "$work/last.json")"

@@ -84,6 +84,12 @@ internal static class TensorValidation
 
     private static void CheckSparse(P.SparseTensorProto sparse, string what)
     {
+        // Found by the fuzz run: a sparse initializer without values made the normaliser dereference null.
+        if (sparse.Values is null || sparse.Indices is null)
+        {
+            throw Invalid($"{what} has no {(sparse.Values is null ? "values" : "indices")} tensor, which ONNX requires of a sparse tensor");
+        }
+
         CheckedElementCount(sparse.Dims, what);
         if (sparse.Values is { } values)
         {

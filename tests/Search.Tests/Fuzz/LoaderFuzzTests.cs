@@ -45,7 +45,7 @@ public sealed class LoaderFuzzTests(ITestOutputHelper output)
             }
 
             model.BuildWeightsAsInputs();
-        }).Run(Executions(30_000), seed: 20261202);
+        }).Run(Executions(20_000), seed: 20261202);
 
         Report(result);
     }
@@ -93,7 +93,7 @@ public sealed class LoaderFuzzTests(ITestOutputHelper output)
             }
 
             Assert.Equal(decoded.Select(a => (a.Name, a.ElementType, string.Join(",", a.Shape), a.ByteCount)), described!.Select(a => (a.Name, a.ElementType, string.Join(",", a.Shape), a.ByteCount)));
-        }).Run(Executions(30_000), seed: 1202);
+        }).Run(Executions(40_000), seed: 1202);
 
         Report(result);
     }

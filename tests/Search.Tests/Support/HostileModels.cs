@@ -83,6 +83,7 @@ internal static class HostileModels
                 .Constant("w_then", Raw("w_then", [4, 3], 1, 20)).Node("MatMul", ["x", "w_then"], ["then_out"], "inner_fc").Output("then_out", 2, 3).BuildGraph()),
                 "model-invalid", "'w_then'"),
             new("sparse initializer whose values disagree with their dims", SparseModel(), "model-invalid", "sparse initializer"),
+            new("sparse initializer without values (found by the fuzz run)", SparseWithoutValues(), "model-invalid", "has no values"),
 
             // External data: an upload must be one self-contained file (paths are refused, never followed).
             new("external data pointing at /etc/passwd", ExternalModel("/etc/passwd"), "model-external-data", "'w'"),
@@ -164,6 +165,15 @@ internal static class HostileModels
         var indices = Typed("sparse_indices", [3], 7, t => t.Int64Data.Add([0, 1, 2]));
         var sparse = new P.SparseTensorProto { Values = values, Indices = indices };
         sparse.Dims.AddRange([4, 3]);
+        model.Graph.SparseInitializer.Add(sparse);
+        return model.ToByteArray();
+    }
+
+    private static byte[] SparseWithoutValues()
+    {
+        var model = MatMul().Build();
+        var sparse = new P.SparseTensorProto { Indices = Typed("sparse_indices", [1], 7, t => t.Int64Data.Add(0)) };
+        sparse.Dims.Add(4);
         model.Graph.SparseInitializer.Add(sparse);
         return model.ToByteArray();
     }

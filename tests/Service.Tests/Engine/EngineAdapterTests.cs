@@ -55,6 +55,34 @@ public sealed class EngineAdapterTests
         Assert.Equal(13, manifest.Export!.Opset);
     }
 
+    [Fact]
+    public void SearchOverTheMemoryLimitIsRefusedFromTheDatasetHeadersAlone()
+    {
+        // A .npy header promising 100,000,000 samples of [4] float32 (1.6 GB) with no data behind it: decoding would
+        // call it truncated, so a search-too-large answer shows that only the header was read.
+        var header = "{'descr': '<f4', 'fortran_order': False, 'shape': (100000000, 4), }".PadRight(117) + "\n";
+        byte[] npy = [0x93, (byte)'N', (byte)'U', (byte)'M', (byte)'P', (byte)'Y', 1, 0, (byte)header.Length, 0, .. System.Text.Encoding.ASCII.GetBytes(header)];
+        var model = Bitbudget.Search.Tests.Support.HostileModels.MatMul().ToBytes();
+        var adapter = new EngineAdapter(Options.Create(new BitbudgetOptions { MaxSearchMemoryBytes = 1L << 30, MaxDatasetDecodedBytes = 4L << 30 }));
+
+        var error = Assert.Throws<EngineException>(() => adapter.CheckCompatible(model, new MemoryStream(npy)));
+
+        Assert.Equal("search-too-large", error.Code);
+        Assert.Contains("of its 100000000 samples would fit", error.Message, StringComparison.Ordinal);
+        Assert.Contains("Bitbudget:MaxSearchMemoryBytes", error.Message, StringComparison.Ordinal);
+    }
+
+    [Fact]
+    public void ModelThatOnnxRuntimeCannotLoadIsRefusedAtInspection()
+    {
+        var model = Bitbudget.Search.Tests.Support.HostileModels.MatMul().Node("Frobnicate", ["y"], ["z"], "mystery").Output("z", 2, 3).ToBytes();
+
+        var error = Assert.Throws<EngineException>(() => new EngineAdapter(Options.Create(new BitbudgetOptions())).InspectModel(model, "m"));
+
+        Assert.Equal("model-unsupported-operator", error.Code);
+        Assert.Contains("'mystery'", error.Message, StringComparison.Ordinal);
+    }
+
     private static byte[] Npz(NpyArray array)
     {
         using var stream = new MemoryStream();
