@@ -18,15 +18,10 @@ public static class DatasetReader
     /// <param name="verifyData">False reads the headers alone (a file already checked at upload).</param>
     public static IReadOnlyList<NpyArrayInfo> Inspect(Stream stream, DatasetLimits? limits = null, bool verifyData = true)
     {
-        ArgumentNullException.ThrowIfNull(stream);
-        Span<byte> start = stackalloc byte[6];
-        long origin = stream.Position;
-        int got = stream.ReadAtLeast(start, start.Length, throwOnEndOfStream: false);
-        stream.Position = origin;
-        start = start[..got];
-        if (start.StartsWith("PK\x03\x04"u8) || start.StartsWith("PK\x05\x06"u8))
+        var kind = Detect(stream);
+        if (kind == FileKind.Npz)
             return NpzReader.Inspect(stream, limits, verifyData);
-        if (start.StartsWith(NpyReader.Magic))
+        if (kind == FileKind.Npy)
         {
             if (!verifyData)
                 return [NpyReader.ReadInfo(stream, SingleArrayName, limits)];
@@ -36,21 +31,16 @@ public static class DatasetReader
                     $"The .npy file has {stream.Length - stream.Position} bytes after its array; send several arrays as an .npz (np.savez).");
             return [info];
         }
-        throw NotADataset(got == 0);
+        throw NotADataset(kind == FileKind.Empty);
     }
 
     /// <summary>Reads every array of a seekable dataset file (a <see cref="FileStream"/>), within <paramref name="limits"/>.</summary>
     public static IReadOnlyList<NpyArray> Read(Stream stream, DatasetLimits? limits = null)
     {
-        ArgumentNullException.ThrowIfNull(stream);
-        Span<byte> start = stackalloc byte[6];
-        long origin = stream.Position;
-        int got = stream.ReadAtLeast(start, start.Length, throwOnEndOfStream: false);
-        stream.Position = origin;
-        start = start[..got];
-        if (start.StartsWith("PK\x03\x04"u8) || start.StartsWith("PK\x05\x06"u8))
+        var kind = Detect(stream);
+        if (kind == FileKind.Npz)
             return NpzReader.Read(stream, limits);
-        if (start.StartsWith(NpyReader.Magic))
+        if (kind == FileKind.Npy)
         {
             var array = NpyReader.Read(stream, SingleArrayName, limits);
             if (stream.Position != stream.Length)
@@ -58,7 +48,25 @@ public static class DatasetReader
                     $"The .npy file has {stream.Length - stream.Position} bytes after its array; send several arrays as an .npz (np.savez).");
             return [array];
         }
-        throw NotADataset(got == 0);
+        throw NotADataset(kind == FileKind.Empty);
+    }
+
+    private enum FileKind { Empty, Npy, Npz, Other }
+
+    /// <summary>Tells .npz (a zip: a local file header, or the end-of-directory record alone for an empty archive) from .npy by the first bytes, leaving the stream where it was.</summary>
+    private static FileKind Detect(Stream stream)
+    {
+        ArgumentNullException.ThrowIfNull(stream);
+        Span<byte> start = stackalloc byte[6];
+        long origin = stream.Position;
+        int got = stream.ReadAtLeast(start, start.Length, throwOnEndOfStream: false);
+        stream.Position = origin;
+        start = start[..got];
+        if (got == 0)
+            return FileKind.Empty;
+        if (start.StartsWith("PK\x03\x04"u8) || start.StartsWith("PK\x05\x06"u8))
+            return FileKind.Npz;
+        return start.StartsWith(NpyReader.Magic) ? FileKind.Npy : FileKind.Other;
     }
 
     private static EngineException NotADataset(bool empty) => DatasetErrors.Invalid(

@@ -39,7 +39,7 @@ internal static class GraphCycles
         var readers = new List<int>[graph.Node.Count];
         for (var i = 0; i < graph.Node.Count; i++)
         {
-            foreach (var name in NamesRead(graph.Node[i]))
+            foreach (var name in GraphSlicer.NamesRead(graph.Node[i]))
             {
                 if (producer.TryGetValue(name, out var from))
                 {
@@ -78,34 +78,5 @@ internal static class GraphCycles
                 "model-invalid",
                 $"The model is invalid: node '{stuck[0]}' is part of a cycle (nodes {string.Join(", ", stuck.Select(s => $"'{s}'"))} wait on each other's outputs); an ONNX graph must be acyclic, so re-export the model.");
         }
-    }
-
-    /// <summary>A node's inputs plus the values its subgraphs read from outside themselves.</summary>
-    private static HashSet<string> NamesRead(P.NodeProto node)
-    {
-        var names = node.Input.Where(i => i.Length > 0).ToHashSet(StringComparer.Ordinal);
-        foreach (var attribute in node.Attribute)
-        {
-            if (attribute.G is { } body)
-            {
-                names.UnionWith(OuterNames(body));
-            }
-
-            foreach (var g in attribute.Graphs)
-            {
-                names.UnionWith(OuterNames(g));
-            }
-        }
-
-        return names;
-    }
-
-    private static IEnumerable<string> OuterNames(P.GraphProto body)
-    {
-        var local = body.Input.Select(i => i.Name)
-            .Concat(body.Initializer.Select(i => i.Name))
-            .Concat(body.Node.SelectMany(n => n.Output))
-            .ToHashSet(StringComparer.Ordinal);
-        return body.Node.SelectMany(NamesRead).Where(n => !local.Contains(n)).ToList();
     }
 }

@@ -145,7 +145,7 @@ internal sealed class GraphSlicer
     }
 
     /// <summary>Every name a node reads: its inputs and, for nodes with bodies, the outer-scope names the bodies use.</summary>
-    private static HashSet<string> NamesRead(NodeProto node)
+    internal static HashSet<string> NamesRead(NodeProto node)
     {
         var names = node.Input.Where(i => i.Length > 0).ToHashSet(StringComparer.Ordinal);
         foreach (var attribute in node.Attribute)
