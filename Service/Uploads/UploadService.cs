@@ -21,8 +21,17 @@ internal sealed class UploadService(CatalogStore catalog, BlobStore blobs, ISear
             return (known, false);
         }
 
-        // The ONNX parser needs the whole file; this is the one in-memory copy, dropped as soon as the model is checked.
-        var summary = engine.InspectModel(upload.ReadAllBytes(), string.IsNullOrWhiteSpace(name) ? "model.onnx" : name.Trim());
+        ModelSummary summary;
+        try
+        {
+            // The ONNX parser needs the whole file; this is the one in-memory copy, dropped as soon as the model is checked.
+            summary = engine.InspectModel(upload.ReadAllBytes(), string.IsNullOrWhiteSpace(name) ? "model.onnx" : name.Trim());
+        }
+        finally
+        {
+            LargeUploadMemory.Release(upload.Length);
+        }
+
         var maxLayers = options.Value.MaxLayers;
         if (summary.Layers.Count > maxLayers)
         {
