@@ -86,6 +86,15 @@ public static partial class RuntimeModelCheck
     private static string Reason(string message)
     {
         var text = StatusPrefix().Replace(message, "").Trim();
+        // A kernel's constructor failing nests a second status after a source path and a C++ signature: keep
+        // the words before the path and the innermost sentence, not the runtime's file names.
+        var source = text.IndexOf("/onnxruntime_src/", StringComparison.Ordinal);
+        var inner = text.LastIndexOf("[ONNXRuntimeError]", StringComparison.Ordinal);
+        if (source >= 0 && inner > source)
+        {
+            text = text[..source].Trim() + " " + StatusPrefix().Replace(text[inner..], "").Trim();
+        }
+
         text = Whitespace().Replace(text, " ").TrimEnd('.', ' ');
         return text.Length > 400 ? text[..400] + "..." : text;
     }

@@ -66,6 +66,17 @@ public sealed class HostileModelTests
     public void TheNodeNameIsReadFromEitherFormOfTheRuntimeMessage(string message, string? node) =>
         Assert.Equal(node, RuntimeModelCheck.NodeName(message));
 
+    [Fact]
+    public void AKernelConstructorFailureIsToldWithoutTheRuntimesSourcePaths()
+    {
+        // ONNX Runtime 1.31's message for an ImageScaler node without its attributes, as the service logged it.
+        const string message = "[ONNXRuntimeError] : 1 : FAIL : Exception during initialization: /onnxruntime_src/onnxruntime/contrib_ops/cpu/image_scaler.h:20 onnxruntime::contrib::ImageScaler<T>::ImageScaler(const onnxruntime::OpKernelInfo&) [with T = float] [ONNXRuntimeError] : 1 : FAIL : No attribute with this name is defined";
+
+        var refusal = RuntimeModelCheck.Refusal(message);
+
+        Assert.Equal("ONNX Runtime refused the model: Exception during initialization: No attribute with this name is defined. Re-export the model and check it with onnx.checker.", refusal.Message);
+    }
+
     private static EngineException Refusal(Action load)
     {
         var task = Task.Run(load);

@@ -318,7 +318,11 @@ public sealed class RealEngineBadInputTests : IClassFixture<RealEngineFixture>
         weight.FloatData.Add(Enumerable.Range(0, 12).Select(i => (i - 6) / 10f));
         graph.Initializer.Add(weight);
         graph.Node.Add(new P.NodeProto { Name = "fc", OpType = "MatMul", Input = { "x", "w" }, Output = { "m" } });
-        graph.Node.Add(new P.NodeProto { Name = "scaler", OpType = "ImageScaler", Input = { "m" }, Output = { "y" } });
+        // ImageScaler's scale and bias attributes (ONNX operator docs, ImageScaler-1): ONNX Runtime checks every model
+        // at upload and cannot build the node without them.
+        var scale = new P.AttributeProto { Name = "scale", Type = P.AttributeProto.Types.AttributeType.Float, F = 1f };
+        var bias = new P.AttributeProto { Name = "bias", Type = P.AttributeProto.Types.AttributeType.Floats, Floats = { 0f } };
+        graph.Node.Add(new P.NodeProto { Name = "scaler", OpType = "ImageScaler", Input = { "m" }, Output = { "y" }, Attribute = { scale, bias } });
         var model = new P.ModelProto { IrVersion = 4, Graph = graph };
         model.OpsetImport.Add(new P.OperatorSetIdProto { Domain = "", Version = 9 });
         return model.ToByteArray();
