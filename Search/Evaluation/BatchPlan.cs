@@ -1,10 +1,9 @@
 namespace Bitbudget.Search.Evaluation;
 
 /// <summary>
-/// How the calibration set is cut into runs: as many samples per run as the model's input shape
-/// allows. A dynamic first dimension takes up to <c>maxBatch</c> samples; a fixed one takes exactly
-/// that many, and a short last batch is padded by repeating its last sample (the padding rows are
-/// dropped from the outputs).
+/// How the calibration set is cut into runs: as many samples per run as the inputs' sample axes allow.
+/// Dynamic sample axes take up to <c>maxBatch</c> samples; a fixed one takes exactly that many, and a
+/// short last batch is padded by repeating its last sample (the padding is dropped from the outputs).
 /// </summary>
 internal sealed class BatchPlan
 {
@@ -20,27 +19,15 @@ internal sealed class BatchPlan
     /// <summary>Samples per run.</summary>
     public int BatchSize { get; }
 
-    /// <summary>True when the model fixes its first dimension, so every run must be full.</summary>
+    /// <summary>True when the model fixes its sample axis, so every run must be full.</summary>
     public bool FixedBatch { get; }
 
     public int BatchCount => (Samples + BatchSize - 1) / BatchSize;
 
-    public static BatchPlan For(IReadOnlyList<ValueDescription> inputs, int samples, int maxBatch)
-    {
-        long? fixedSize = null;
-        foreach (var input in inputs)
-        {
-            var first = input.Shape.Count == 0 ? 1 : input.Shape[0];
-            if (first is { } size && size > 0)
-            {
-                fixedSize = fixedSize is null ? size : Math.Min(fixedSize.Value, size);
-            }
-        }
-
-        return fixedSize is { } k
-            ? new BatchPlan(samples, (int)k, fixedBatch: true)
-            : new BatchPlan(samples, Math.Max(1, Math.Min(samples, maxBatch)), fixedBatch: false);
-    }
+    public static BatchPlan For(CalibrationSet data, int maxBatch) =>
+        data.SamplesPerRun is int k
+            ? new BatchPlan(data.SampleCount, k, fixedBatch: true)
+            : new BatchPlan(data.SampleCount, Math.Max(1, Math.Min(data.SampleCount, maxBatch)), fixedBatch: false);
 
     /// <summary>First sample and number of real samples of batch <paramref name="index"/>.</summary>
     public (int Start, int Count) Batch(int index)

@@ -3,36 +3,43 @@ using System.Numerics.Tensors;
 namespace Bitbudget.Search.Evaluation;
 
 /// <summary>
-/// A dataset checked against a model's inputs: one array per input, in the model's input order, the
-/// first axis of each being the sample axis, plus optional class labels.
+/// A dataset checked against a model's inputs: one array per input, in the model's input order, each
+/// either sampled along its own sample axis or a constant fed unchanged to every run, plus optional
+/// class labels.
 /// </summary>
 /// <remarks>
 /// Mapping rules. Arrays map to inputs by name. An array named <c>labels</c> holds one integer class
 /// per sample, unless the model has an input of that name. An array named
 /// <see cref="DatasetReader.SingleArrayName"/> (what a single .npy becomes) feeds the model's only input
 /// when the model has exactly one input and it carries another name. Any other array is refused, so a
-/// typo in a name cannot silently drop data. The first axis is always the sample axis; when the model
-/// fixes it at k, the runner feeds k samples per run (<see cref="SamplesPerRun"/>) and the sample count
-/// must be a multiple of k. Float16 and float64 arrays are converted for float32 inputs; every other
-/// element type must match exactly.
+/// typo in a name cannot silently drop data.
+/// Sample axes. An input's sample axis is the one given for it (<c>sampleAxes</c>); otherwise the one
+/// dynamic axis of its declared shape when there is exactly one (a state input <c>[2, batch, 128]</c>
+/// takes axis 1); otherwise axis 0. When the model fixes a sample axis at k, the runner feeds k samples
+/// per run (<see cref="SamplesPerRun"/>) and the sample count must be a multiple of k.
+/// Constants. An array whose shape equals its input's whole declared shape, every axis fixed (a 0-d
+/// array for a scalar input), is a constant fed unchanged to every run, as long as some other input
+/// carries samples and no sample axis was given for it. A scalar input can only take a constant.
+/// Float16 and float64 arrays are converted for float32 inputs; every other element type must match exactly.
 /// Codes: <c>dataset-mismatch</c> when the dataset does not fit the model (missing or unknown array,
-/// element type, rank, fixed dimension); <c>dataset-invalid</c> when it contradicts itself (sample
-/// counts, labels, no samples); <c>dataset-non-finite</c> for NaN or infinity in an input.
+/// element type, rank, fixed dimension, sample axis); <c>dataset-invalid</c> when it contradicts itself
+/// (sample counts, labels, no samples); <c>dataset-non-finite</c> for NaN or infinity in an input.
 /// </remarks>
 public sealed class CalibrationSet
 {
     /// <summary>Name of the optional array of class labels.</summary>
     public const string LabelsName = "labels";
 
-    private CalibrationSet(IReadOnlyList<NpyArray> inputs, IReadOnlyList<long>? labels, int sampleCount, int? samplesPerRun)
+    private CalibrationSet(IReadOnlyList<NpyArray> inputs, IReadOnlyList<int?> sampleAxes, IReadOnlyList<long>? labels, int sampleCount, int? samplesPerRun)
     {
         Inputs = inputs;
+        SampleAxes = sampleAxes;
         Labels = labels;
         SampleCount = sampleCount;
         SamplesPerRun = samplesPerRun;
     }
 
-    /// <summary>Number of samples (length of every input's first axis).</summary>
+    /// <summary>Number of samples (length of every sampled input's sample axis).</summary>
     public int SampleCount { get; }
 
     /// <summary>One class label per sample, or null when the dataset has no <c>labels</c> array.</summary>
@@ -41,19 +48,33 @@ public sealed class CalibrationSet
     /// <summary>One array per model input, in the model's input order, named after the input.</summary>
     public IReadOnlyList<NpyArray> Inputs { get; }
 
+    /// <summary>Per input (same order as <see cref="Inputs"/>): the axis that holds samples, or null for a constant.</summary>
+    public IReadOnlyList<int?> SampleAxes { get; }
+
     /// <summary>
-    /// Samples the model takes per run when it fixes its first dimension (the same for every input);
-    /// null when the first dimension is dynamic and any batch size works.
+    /// Samples the model takes per run when it fixes its inputs' sample axis (the same for every sampled
+    /// input); null when the sample axes are dynamic and any batch size works.
     /// </summary>
     public int? SamplesPerRun { get; }
 
     /// <summary>Checks <paramref name="arrays"/> against <paramref name="modelInputs"/> and builds the set.</summary>
-    public static CalibrationSet Create(IReadOnlyList<NpyArray> arrays, IReadOnlyList<ValueDescription> modelInputs)
+    /// <param name="sampleAxes">Sample axes given outright, by input name; inputs not named follow the rule in the remarks.</param>
+    public static CalibrationSet Create(IReadOnlyList<NpyArray> arrays, IReadOnlyList<ValueDescription> modelInputs, IReadOnlyDictionary<string, int>? sampleAxes = null)
     {
         ArgumentNullException.ThrowIfNull(arrays);
         ArgumentNullException.ThrowIfNull(modelInputs);
         if (modelInputs.Count == 0)
             throw DatasetErrors.Mismatch("The model has no inputs, so no dataset can feed it.");
+        foreach (var (name, axis) in sampleAxes ?? new Dictionary<string, int>())
+        {
+            var input = modelInputs.FirstOrDefault(i => i.Name == name)
+                ?? throw DatasetErrors.Mismatch($"A sample axis is given for '{name}', but the model has no input of that name; its inputs are: {string.Join(", ", modelInputs.Select(i => i.Name))}.");
+            if (axis < 0 || axis >= input.Shape.Count)
+                throw DatasetErrors.Mismatch(
+                    input.Shape.Count == 0
+                        ? $"Sample axis {axis} is given for model input '{name}', but it is a scalar (rank 0) with no axis to hold samples; feed it a 0-d array (a constant) instead."
+                        : $"Sample axis {axis} is given for model input '{name}' {DatasetErrors.FormatShape(input.Shape)}, which has axes 0 to {input.Shape.Count - 1}.");
+        }
 
         var byName = new Dictionary<string, NpyArray>(StringComparer.Ordinal);
         foreach (var array in arrays)
@@ -89,40 +110,59 @@ public sealed class CalibrationSet
                 $"The dataset holds {(unknown.Count == 1 ? "an array" : "arrays")} the model has no input for: {string.Join(", ", unknown)}. " +
                 $"The model's inputs are: {string.Join(", ", modelInputs.Select(i => i.Name))} (plus an optional '{LabelsName}'). Rename or remove {(unknown.Count == 1 ? "it" : "them")}.");
 
+        var axes = SampleAxesOf(matched, sampleAxes);
         int? samplesPerRun = null;
         var inputs = new List<NpyArray>(matched.Count);
-        foreach (var (input, array) in matched)
+        string? firstFixed = null;
+        for (int i = 0; i < matched.Count; i++)
         {
-            CheckShape(input, array);
-            if (input.Shape[0] is long fixedFirst and > 0)
+            var (input, array) = matched[i];
+            CheckShape(input, array, axes[i]);
+            if (axes[i] is int axis && input.Shape[axis] is long fixedSize and > 0)
             {
-                if (samplesPerRun is int other && other != fixedFirst)
+                if (samplesPerRun is int other && other != fixedSize)
                     throw DatasetErrors.Mismatch(
-                        $"The model fixes its inputs' first (sample) axis at different sizes ({other} and {fixedFirst} for '{input.Name}'); they cannot be fed from one sample axis.");
-                samplesPerRun = checked((int)fixedFirst);
+                        $"The model fixes its inputs' sample axes at different sizes ({other} for '{firstFixed}', {fixedSize} on axis {axis} of '{input.Name}'); they cannot be fed from one set of samples.");
+                samplesPerRun = checked((int)fixedSize);
+                firstFixed ??= input.Name;
             }
             inputs.Add(ConvertAndCheckFinite(input, array));
         }
 
-        long samples = inputs[0].SampleCount;
-        foreach (var array in inputs)
-            if (array.SampleCount != samples)
+        var sampled = Enumerable.Range(0, inputs.Count).Where(i => axes[i] is not null).ToList();
+        long samples = inputs[sampled[0]].Shape[axes[sampled[0]]!.Value];
+        foreach (var i in sampled)
+            if (inputs[i].Shape[axes[i]!.Value] != samples)
                 throw DatasetErrors.Invalid(
-                    $"The arrays disagree on the number of samples (their first axis): " +
-                    string.Join(", ", inputs.Select(a => $"'{a.Name}' has {a.SampleCount}")) + ".");
+                    $"The arrays disagree on the number of samples (the size of their sample axis): " +
+                    string.Join(", ", sampled.Select(k => $"'{inputs[k].Name}' has {inputs[k].Shape[axes[k]!.Value]} on axis {axes[k]}")) + ".");
+        var first = inputs[sampled[0]];
         if (samples == 0)
-            throw DatasetErrors.Invalid($"The dataset holds no samples: array '{inputs[0].Name}' has 0 along its first axis.");
+            throw DatasetErrors.Invalid($"The dataset holds no samples: array '{first.Name}' has 0 along its sample axis {axes[sampled[0]]}.");
         if (samples > int.MaxValue)
             throw DatasetErrors.TooLarge($"The dataset holds {samples} samples; at most {int.MaxValue} are used.");
         if (samplesPerRun is int k && samples % k != 0)
             throw DatasetErrors.Mismatch(
-                $"The model takes exactly {k} samples per run (its first axis is fixed), but the dataset holds {samples}, not a multiple of {k}.");
+                $"The model takes exactly {k} samples per run (input '{firstFixed}' fixes its sample axis at {k}), but the dataset holds {samples}, not a multiple of {k}.");
 
         var labels = labelsArray is null ? null : ReadLabels(labelsArray, samples);
-        return new CalibrationSet(inputs, labels, (int)samples, samplesPerRun);
+        return new CalibrationSet(inputs, axes, labels, (int)samples, samplesPerRun);
     }
 
-    /// <summary>Each input's samples [<paramref name="start"/>, start + count), as new arrays.</summary>
+    /// <summary>
+    /// The sample axis of one input by the rule in the remarks, ignoring constants: the given axis, else the
+    /// one dynamic axis of the declared shape when there is exactly one, else axis 0 (null for a scalar).
+    /// </summary>
+    public static int? DefaultSampleAxis(ValueDescription input, IReadOnlyDictionary<string, int>? sampleAxes = null)
+    {
+        ArgumentNullException.ThrowIfNull(input);
+        if (sampleAxes is not null && sampleAxes.TryGetValue(input.Name, out var given)) return given;
+        if (input.Shape.Count == 0) return null;
+        var dynamic = Enumerable.Range(0, input.Shape.Count).Where(a => input.Shape[a] is not > 0).ToList();
+        return dynamic.Count == 1 ? dynamic[0] : 0;
+    }
+
+    /// <summary>Each input's samples [<paramref name="start"/>, start + count) along its sample axis, as new arrays; constants as they are.</summary>
     public IReadOnlyList<NpyArray> Slice(int start, int count)
     {
         ArgumentOutOfRangeException.ThrowIfNegative(start);
@@ -132,29 +172,59 @@ public sealed class CalibrationSet
         for (int i = 0; i < Inputs.Count; i++)
         {
             var input = Inputs[i];
-            long perSample = input.Shape.Skip(1).Aggregate(1L, (a, d) => a * d);
-            var data = Array.CreateInstance(input.Data.GetType().GetElementType()!, count * perSample);
-            Array.Copy(input.Data, start * perSample, data, 0, count * perSample);
-            var shape = input.Shape.ToArray();
-            shape[0] = count;
+            if (SampleAxes[i] is not int axis)
+            {
+                result[i] = input;
+                continue;
+            }
+
+            var data = SampleSlicer.Slice(input.Data, input.Shape, axis, start, count, count, out var shape);
             result[i] = input with { Shape = shape, Data = data };
         }
         return result;
     }
 
-    private static void CheckShape(ValueDescription input, NpyArray array)
+    private static int?[] SampleAxesOf(List<(ValueDescription Input, NpyArray Array)> matched, IReadOnlyDictionary<string, int>? sampleAxes)
+    {
+        var axes = new int?[matched.Count];
+        var constant = new bool[matched.Count];
+        for (int i = 0; i < matched.Count; i++)
+        {
+            var (input, array) = matched[i];
+            axes[i] = DefaultSampleAxis(input, sampleAxes);
+            bool given = sampleAxes?.ContainsKey(input.Name) == true;
+            constant[i] = !given && array.Shape.Count == input.Shape.Count
+                && input.Shape.Select((d, a) => d is long need && need > 0 && array.Shape[a] == need).All(x => x);
+        }
+
+        // When every array matches its input's whole shape, they are one set of samples (a model that
+        // fixes its batch, fed exactly one batch), not constants with nothing to batch.
+        if (constant.All(c => c))
+        {
+            for (int i = 0; i < matched.Count; i++) constant[i] = matched[i].Input.Shape.Count == 0;
+            if (constant.All(c => c))
+                throw DatasetErrors.Mismatch(
+                    $"Every model input is a scalar ({string.Join(", ", matched.Select(m => $"'{m.Input.Name}'"))}), so no input has an axis to hold samples; a dataset cannot feed this model.");
+        }
+
+        for (int i = 0; i < matched.Count; i++)
+            if (constant[i]) axes[i] = null;
+        return axes;
+    }
+
+    private static void CheckShape(ValueDescription input, NpyArray array, int? sampleAxis)
     {
         string Describe() =>
             $"array '{array.Name}' has shape {DatasetErrors.FormatShape(array.Shape)} but model input '{input.Name}' takes {DatasetErrors.FormatShape(input.Shape)}";
-        if (input.Shape.Count == 0)
+        if (input.Shape.Count == 0 && array.Shape.Count != 0)
             throw DatasetErrors.Mismatch(
-                $"Model input '{input.Name}' is a scalar (rank 0), so it has no first axis to hold samples; a dataset cannot feed it.");
+                $"Model input '{input.Name}' is a scalar (rank 0): it takes one 0-d array, fed unchanged to every run, but array '{array.Name}' has shape {DatasetErrors.FormatShape(array.Shape)}.");
         if (array.Shape.Count != input.Shape.Count)
             throw DatasetErrors.Mismatch(
-                $"The {Describe()}: rank {array.Shape.Count} where the model needs rank {input.Shape.Count} (the first axis holds the samples).");
-        for (int axis = 1; axis < input.Shape.Count; axis++)
-            if (input.Shape[axis] is long need and >= 0 && array.Shape[axis] != need)
-                throw DatasetErrors.Mismatch($"The {Describe()}: axis {axis} is {array.Shape[axis]}, the model needs {need}.");
+                $"The {Describe()}: rank {array.Shape.Count} where the model needs rank {input.Shape.Count} (samples lie along axis {sampleAxis ?? 0}).");
+        for (int axis = 0; axis < input.Shape.Count; axis++)
+            if (axis != sampleAxis && input.Shape[axis] is long need and >= 0 && array.Shape[axis] != need)
+                throw DatasetErrors.Mismatch($"The {Describe()}: axis {axis} is {array.Shape[axis]}, the model needs {need} (the samples lie along axis {sampleAxis}).");
 
         bool convertible = input.ElementType == ElementType.Float32 && array.ElementType is ElementType.Float16 or ElementType.Float64;
         if (input.ElementType == ElementType.Unsupported)

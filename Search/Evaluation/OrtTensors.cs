@@ -7,26 +7,17 @@ namespace Bitbudget.Search.Evaluation;
 internal static class OrtTensors
 {
     /// <summary>
-    /// Samples [start, start + count) of <paramref name="array"/> as a tensor of <paramref name="rows"/>
-    /// samples; rows beyond <paramref name="count"/> repeat the last real sample (fixed-batch padding).
+    /// Samples [start, start + count) of <paramref name="array"/> along <paramref name="axis"/> as a tensor of
+    /// <paramref name="rows"/> samples (padding repeats the last real sample); a null axis feeds the array whole (a constant).
     /// </summary>
-    public static OrtValue SliceSamples(NpyArray array, int start, int count, int rows)
+    public static OrtValue SliceSamples(NpyArray array, int? axis, int start, int count, int rows)
     {
-        var shape = array.Shape.ToArray();
-        var perSample = 1L;
-        for (var i = 1; i < shape.Length; i++)
+        if (axis is not int k)
         {
-            perSample *= shape[i];
+            return Wrap(array.Data, array.Shape.ToArray());
         }
 
-        shape[0] = rows;
-        var slice = Array.CreateInstance(array.Data.GetType().GetElementType()!, rows * perSample);
-        Array.Copy(array.Data, start * perSample, slice, 0, count * perSample);
-        for (var r = count; r < rows; r++)
-        {
-            Array.Copy(array.Data, (start + count - 1) * perSample, slice, r * perSample, perSample);
-        }
-
+        var slice = SampleSlicer.Slice(array.Data, array.Shape, k, start, count, rows, out var shape);
         return Wrap(slice, shape);
     }
 

@@ -5,12 +5,15 @@ namespace Bitbudget.Search.Evaluation;
 
 /// <summary>
 /// Compares a trial's model outputs with the FP32 reference outputs and reduces them to a
-/// <see cref="MetricSet"/>. A row is one slice along the last axis (a 0-d output is one row of one value).
+/// <see cref="MetricSet"/>: per output, and pooled over every output. A row is one slice along the last
+/// axis (a 0-d output is one row of one value).
 /// </summary>
 /// <remarks>
 /// Sums accumulate in double over float row results. A trial output holding NaN or infinity scores
 /// as badly as possible where the metric would otherwise be undefined: relative MSE +infinity, SQNR
-/// -infinity, KL +infinity, and cosine -1 for the row.
+/// -infinity, KL +infinity, and cosine -1 for the row. Pooled SQNR sums every output's noise and
+/// signal power, so a high-power output (a recurrent state) can hide a low-power one (a probability);
+/// that is why budgets judge each output on its own.
 /// </remarks>
 public static class OutputComparer
 {
@@ -20,73 +23,179 @@ public static class OutputComparer
     /// <summary>Floor for trial probabilities under a logarithm, so a zero where the reference is not gives a large, finite KL.</summary>
     internal const float ProbabilityEpsilon = 1e-10f;
 
+    /// <summary>
+    /// In logit space, probabilities are clamped to [eps, 1 - eps] before the logarithm, so logits stay
+    /// within about +-13.8. 1e-6 is well above float32's spacing near 1 (6e-8), so 1 - eps is exact enough.
+    /// </summary>
+    public const float LogitEpsilon = 1e-6f;
+
     /// <summary>Longest stretch summed in float before the partial sum is carried in double.</summary>
     private const int ChunkLength = 4096;
 
+    // The reference outputs are compared with hundreds of trials: their logits are computed once.
+    private static readonly System.Runtime.CompilerServices.ConditionalWeakTable<float[], float[]> ReferenceLogits = new();
+
     /// <summary>
-    /// Computes every metric over all outputs. <paramref name="labels"/>, when given, are compared with
-    /// the argmax of the trial's first output, whose row count must equal the label count (else
-    /// accuracy is null).
+    /// Computes every metric per output and over all outputs. <paramref name="labels"/>, when given, are
+    /// compared with the argmax of the trial's first output, whose row count must equal the label count
+    /// (else accuracy is null).
     /// </summary>
-    public static MetricSet Compare(IReadOnlyList<OutputTensor> reference, IReadOnlyList<OutputTensor> trial, IReadOnlyList<long>? labels)
+    public static MetricSet Compare(
+        IReadOnlyList<OutputTensor> reference,
+        IReadOnlyList<OutputTensor> trial,
+        IReadOnlyList<long>? labels,
+        MetricSpace space = MetricSpace.Linear)
     {
         ArgumentNullException.ThrowIfNull(reference);
         ArgumentNullException.ThrowIfNull(trial);
         Validate(reference, trial);
 
-        double noise = 0, signal = 0, klSum = 0, cosineSum = 0;
-        long rows = 0, agreeing = 0;
+        var pooled = default(OutputSums);
+        var perOutput = new OutputMetrics[reference.Count];
         for (int o = 0; o < reference.Count; o++)
         {
-            var r = reference[o].Data;
-            var t = trial[o].Data;
-            int rowLength = RowLength(reference[o]);
-            if (rowLength == 0 || r.Length == 0) continue;
-            for (int start = 0; start < r.Length; start += ChunkLength)
-            {
-                int n = Math.Min(ChunkLength, r.Length - start);
-                var rc = r.AsSpan(start, n);
-                var tc = t.AsSpan(start, n);
-                double d = TensorPrimitives.Distance<float>(rc, tc);
-                noise += d * d;
-                signal += TensorPrimitives.SumOfSquares<float>(rc);
-            }
-
-            bool probabilities = LooksLikeProbabilities(r, rowLength);
-            var scratch = ArrayPool<float>.Shared.Rent(2 * rowLength);
-            try
-            {
-                var a = scratch.AsSpan(0, rowLength);
-                var b = scratch.AsSpan(rowLength, rowLength);
-                for (int start = 0; start < r.Length; start += rowLength)
-                {
-                    var rr = r.AsSpan(start, rowLength);
-                    var tr = t.AsSpan(start, rowLength);
-                    if (TensorPrimitives.IndexOfMax<float>(rr) == TensorPrimitives.IndexOfMax<float>(tr)) agreeing++;
-                    klSum += probabilities ? KlOfProbabilities(rr, tr, a, b) : KlOfLogits(rr, tr, a, b);
-                    cosineSum += Cosine(rr, tr);
-                    rows++;
-                }
-            }
-            finally
-            {
-                ArrayPool<float>.Shared.Return(scratch);
-            }
+            var sums = CompareOutput(reference[o], trial[o], space);
+            pooled = pooled.Add(sums);
+            perOutput[o] = sums.ToMetrics(reference[o].Name);
         }
-        if (rows == 0)
+        if (pooled.Rows == 0)
             throw new ArgumentException("The outputs hold no values to compare.", nameof(reference));
 
-        double relativeMse = noise == 0 ? 0 : double.IsNaN(noise) ? double.PositiveInfinity : noise / signal;
-        double sqnr = relativeMse == 0 ? double.PositiveInfinity : -10 * Math.Log10(relativeMse);
-        double kl = klSum / rows;
+        var all = pooled.ToMetrics(string.Empty);
         return new MetricSet(
-            RelativeMse: relativeMse,
-            SqnrDb: sqnr,
-            Top1Agreement: agreeing / (double)rows,
-            KlDivergence: double.IsNaN(kl) ? double.PositiveInfinity : kl,
-            CosineSimilarity: cosineSum / rows,
-            Accuracy: labels is null ? null : Accuracy(trial[0], RowLength(reference[0]), labels));
+            RelativeMse: all.RelativeMse,
+            SqnrDb: all.SqnrDb,
+            Top1Agreement: all.Top1Agreement,
+            KlDivergence: all.KlDivergence,
+            CosineSimilarity: all.CosineSimilarity,
+            Accuracy: labels is null ? null : Accuracy(trial[0], RowLength(reference[0]), labels),
+            Outputs: perOutput);
     }
+
+    /// <summary>The sums behind every metric of one output: noise and signal power, and the row metrics.</summary>
+    internal static OutputSums CompareOutput(OutputTensor reference, OutputTensor trial, MetricSpace space)
+    {
+        var r = reference.Data;
+        var t = trial.Data;
+        int rowLength = RowLength(reference);
+        if (rowLength == 0 || r.Length == 0) return default;
+
+        var (noise, signal) = space == MetricSpace.Logit && InUnitInterval(r)
+            ? LogitPowers(r, t, rowLength)
+            : Powers(r, t);
+
+        double klSum = 0, cosineSum = 0;
+        long rows = 0, agreeing = 0;
+        bool probabilities = LooksLikeProbabilities(r, rowLength);
+        var scratch = ArrayPool<float>.Shared.Rent(2 * rowLength);
+        try
+        {
+            var a = scratch.AsSpan(0, rowLength);
+            var b = scratch.AsSpan(rowLength, rowLength);
+            for (int start = 0; start < r.Length; start += rowLength)
+            {
+                var rr = r.AsSpan(start, rowLength);
+                var tr = t.AsSpan(start, rowLength);
+                if (TensorPrimitives.IndexOfMax<float>(rr) == TensorPrimitives.IndexOfMax<float>(tr)) agreeing++;
+                klSum += probabilities ? KlOfProbabilities(rr, tr, a, b) : KlOfLogits(rr, tr, a, b);
+                cosineSum += Cosine(rr, tr);
+                rows++;
+            }
+        }
+        finally
+        {
+            ArrayPool<float>.Shared.Return(scratch);
+        }
+
+        return new OutputSums(noise, signal, klSum, cosineSum, rows, agreeing);
+    }
+
+    /// <summary>
+    /// The share (0..1) of an output's signal power (sum of squared reference values, in
+    /// <paramref name="space"/>) carried by its <paramref name="top"/> strongest samples, and the number of
+    /// samples; null when the output has no sample axis. When a few samples carry most of the power, the
+    /// output's SQNR is decided by how well those few come through.
+    /// </summary>
+    public static (double Share, long Samples)? TopSampleShare(OutputTensor reference, int top, MetricSpace space = MetricSpace.Linear)
+    {
+        ArgumentNullException.ThrowIfNull(reference);
+        if (reference.SampleAxis is not int axis || reference.Data.Length == 0) return null;
+        var values = space == MetricSpace.Logit && InUnitInterval(reference.Data)
+            ? LogitsOf(reference.Data, RowLength(reference))
+            : reference.Data;
+        var (outer, size, inner) = SampleSlicer.Split(reference.Shape, axis);
+        var power = new double[size];
+        for (long o = 0; o < outer; o++)
+            for (long s = 0; s < size; s++)
+                power[s] += TensorPrimitives.SumOfSquares<float>(values.AsSpan((int)((o * size + s) * inner), (int)inner));
+        double total = power.Sum();
+        if (!(total > 0)) return null;
+        Array.Sort(power);
+        double topPower = 0;
+        for (long s = size - 1; s >= Math.Max(0, size - top); s--) topPower += power[s];
+        return (topPower / total, size);
+    }
+
+    private static (double Noise, double Signal) Powers(ReadOnlySpan<float> r, ReadOnlySpan<float> t)
+    {
+        double noise = 0, signal = 0;
+        for (int start = 0; start < r.Length; start += ChunkLength)
+        {
+            int n = Math.Min(ChunkLength, r.Length - start);
+            var rc = r.Slice(start, n);
+            double d = TensorPrimitives.Distance<float>(rc, t.Slice(start, n));
+            noise += d * d;
+            signal += TensorPrimitives.SumOfSquares<float>(rc);
+        }
+        return (noise, signal);
+    }
+
+    private static (double Noise, double Signal) LogitPowers(float[] r, float[] t, int rowLength)
+    {
+        var referenceLogits = ReferenceLogits.GetValue(r, values => LogitsOf(values, rowLength));
+        // The trial's own values decide its logits; a trial value outside [0, 1] is clamped like any other.
+        return Powers(referenceLogits, LogitsOf(t, rowLength, LooksLikeProbabilities(r, rowLength) && rowLength > 1));
+    }
+
+    /// <summary>
+    /// Logits of probabilities: log(p / (1 - p)) elementwise (sigmoid outputs), or for rows that are
+    /// distributions (softmax outputs, <paramref name="softmax"/>) log p minus the row's mean, which is the
+    /// softmax's input up to the shift softmax ignores. p is clamped to [eps, 1 - eps] first.
+    /// </summary>
+    internal static float[] LogitsOf(float[] p, int rowLength, bool? softmax = null)
+    {
+        bool rows = softmax ?? (rowLength > 1 && LooksLikeProbabilities(p, rowLength));
+        var result = new float[p.Length];
+        TensorPrimitives.Clamp(p, LogitEpsilon, 1 - LogitEpsilon, result);
+        if (rows)
+        {
+            TensorPrimitives.Log(result, result);
+            for (int start = 0; start < result.Length; start += rowLength)
+            {
+                var row = result.AsSpan(start, rowLength);
+                TensorPrimitives.Subtract(row, TensorPrimitives.Sum<float>(row) / rowLength, row);
+            }
+            return result;
+        }
+
+        var complement = ArrayPool<float>.Shared.Rent(result.Length);
+        try
+        {
+            var c = complement.AsSpan(0, result.Length);
+            TensorPrimitives.Subtract(1f, result, c);
+            TensorPrimitives.Divide(result, c, result);
+            TensorPrimitives.Log(result, result);
+        }
+        finally
+        {
+            ArrayPool<float>.Shared.Return(complement);
+        }
+        return result;
+    }
+
+    /// <summary>True when every value lies in [0, 1] (false for NaN): the output may be a probability.</summary>
+    internal static bool InUnitInterval(float[] values) =>
+        values.Length > 0 && TensorPrimitives.Min<float>(values) >= 0 && TensorPrimitives.Max<float>(values) <= 1;
 
     /// <summary>
     /// KL(p || q) of softmax(reference) and softmax(trial) from log-sum-exp: with d = r - t,

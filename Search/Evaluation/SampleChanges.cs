@@ -10,9 +10,9 @@ namespace Bitbudget.Search.Evaluation;
 public static class SampleChanges
 {
     /// <summary>
-    /// Samples (0..<paramref name="sampleCount"/>) whose outputs differ bit for bit. Outputs are laid out with
-    /// the samples on axis 0 (<see cref="OutputTensor"/>); an output without that axis (a scalar, or a first
-    /// axis of another size) cannot be split by sample, so any change in it counts every sample as changed.
+    /// Samples (0..<paramref name="sampleCount"/>) whose outputs differ bit for bit. Each output's samples lie
+    /// along its own sample axis (<see cref="OutputTensor.SampleAxis"/>); an output without one (one value per
+    /// run, or an axis of another size) cannot be split by sample, so any change in it counts every sample as changed.
     /// </summary>
     public static int Count(IReadOnlyList<OutputTensor> reference, IReadOnlyList<OutputTensor> trial, int sampleCount)
     {
@@ -30,8 +30,7 @@ public static class SampleChanges
             // Bitwise, not numeric: -0 vs +0 and NaN payloads are changes too, and the integer compare vectorises.
             var r = MemoryMarshal.Cast<float, int>(reference[o].Data.AsSpan());
             var t = MemoryMarshal.Cast<float, int>(trial[o].Data.AsSpan());
-            var shape = reference[o].Shape;
-            if (shape.Count == 0 || shape[0] != sampleCount || r.Length % sampleCount != 0)
+            if (reference[o].SampleAxis is not int axis || axis >= reference[o].Shape.Count || reference[o].Shape[axis] != sampleCount)
             {
                 if (!r.SequenceEqual(t))
                 {
@@ -41,13 +40,18 @@ public static class SampleChanges
                 continue;
             }
 
-            var row = r.Length / sampleCount;
+            // A sample's values are `inner` long and repeat every sampleCount x inner values, `outer` times.
+            var (outer, _, inner) = SampleSlicer.Split(reference[o].Shape, axis);
             for (var s = 0; s < sampleCount; s++)
             {
-                if (!changed[s] && !r.Slice(s * row, row).SequenceEqual(t.Slice(s * row, row)))
+                for (var block = 0L; block < outer && !changed[s]; block++)
                 {
-                    changed[s] = true;
-                    count++;
+                    var start = (int)(((block * sampleCount) + s) * inner);
+                    if (!r.Slice(start, (int)inner).SequenceEqual(t.Slice(start, (int)inner)))
+                    {
+                        changed[s] = true;
+                        count++;
+                    }
                 }
             }
         }

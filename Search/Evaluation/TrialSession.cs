@@ -37,6 +37,7 @@ public sealed class TrialSession : IDisposable
     private readonly HashSet<string> _switchNames = new(StringComparer.Ordinal);
     private readonly OrtValue? _switchOff;
     private readonly OrtValue? _switchOn;
+    private readonly IReadOnlyDictionary<string, int?> _outputAxes;
     private (string Layer, InferenceSession Session)? _suffix;
 
     private TrialSession(OnnxModel model, CalibrationSet data, TrialSessionOptions options)
@@ -44,7 +45,7 @@ public sealed class TrialSession : IDisposable
         _model = model;
         _data = data;
         _options = options;
-        _plan = BatchPlan.For(model.Inputs, data.SampleCount, options.MaxBatch);
+        _plan = BatchPlan.For(data, options.MaxBatch);
         _sessionOptions = new SessionOptions { GraphOptimizationLevel = GraphOptimizationLevel.ORT_ENABLE_ALL };
         if (options.IntraOpThreads is { } threads)
         {
@@ -68,7 +69,7 @@ public sealed class TrialSession : IDisposable
                 throw new EngineException("settings-invalid", ActivationQuantization.OpsetMessage(model.Opset));
             }
 
-            Activations = Calibrate(weightsAsInputs, calibration);
+            Activations = options.FixedActivations ?? Calibrate(weightsAsInputs, calibration);
             _switchedLayers.UnionWith(Activations.Select(a => a.Layer));
             _switchNames.UnionWith(_switchedLayers.Select(ActivationQdq.SwitchName));
             _switchOff = OrtValue.CreateTensorValueFromMemory(new[] { false }, []);
@@ -81,10 +82,11 @@ public sealed class TrialSession : IDisposable
         _full = new InferenceSession(runModel.ToByteArray(), _sessionOptions);
         SessionBuildMilliseconds = build.Elapsed.TotalMilliseconds;
 
+        _outputAxes = OutputSampleAxes.Find(model.Outputs, _full.OutputNames, _plan, Probe);
         var pass = Stopwatch.StartNew();
         ReferenceOutputs = Run(_full, _full.OutputNames, feedsOverride: null, extraFeeds: null);
         ForwardPassMilliseconds = pass.Elapsed.TotalMilliseconds;
-        ReferenceMetrics = OutputComparer.Compare(ReferenceOutputs, ReferenceOutputs, data.Labels);
+        ReferenceMetrics = Compare(ReferenceOutputs);
 
         if (options.SuffixRuns)
         {
@@ -94,6 +96,9 @@ public sealed class TrialSession : IDisposable
 
     /// <summary>Outputs of the FP32 model over the whole calibration set.</summary>
     public IReadOnlyList<OutputTensor> ReferenceOutputs { get; }
+
+    /// <summary>Each output's sample axis (null: the output has none and is stacked per run), found by <see cref="OutputSampleAxes"/>.</summary>
+    public IReadOnlyDictionary<string, int?> OutputAxes => _outputAxes;
 
     /// <summary>The reference compared with itself: carries the FP32 accuracy against labels.</summary>
     public MetricSet ReferenceMetrics { get; }
@@ -156,7 +161,7 @@ public sealed class TrialSession : IDisposable
             }
         }
 
-        return OutputComparer.Compare(ReferenceOutputs, RunFull(weights, activations), _data.Labels);
+        return Compare(RunFull(weights, activations));
     }
 
     /// <summary>
@@ -171,7 +176,7 @@ public sealed class TrialSession : IDisposable
         var outputs = allowSuffix && PrefersSuffix(layer, trialsForLayer)
             ? RunSuffix(layer, weight, activation)
             : RunFull(new Dictionary<string, float[]>(StringComparer.Ordinal) { [layer.Name] = weight }, activation ? [layer.Name] : null);
-        return OutputComparer.Compare(ReferenceOutputs, outputs, _data.Labels) with
+        return Compare(outputs) with
         {
             SamplesChanged = SampleChanges.Count(ReferenceOutputs, outputs, _data.SampleCount),
         };
@@ -265,6 +270,37 @@ public sealed class TrialSession : IDisposable
         if (_cachedActivations is not null)
         {
             DisposeFeeds(_cachedActivations);
+        }
+    }
+
+    private MetricSet Compare(IReadOnlyList<OutputTensor> outputs) =>
+        OutputComparer.Compare(ReferenceOutputs, outputs, _data.Labels, _options.MetricSpace);
+
+    /// <summary>Runs the FP32 model once on the first <paramref name="samples"/> samples (one run) and returns each output's shape, by name.</summary>
+    private Dictionary<string, long[]> Probe(int samples)
+    {
+        var owned = new List<OrtValue>();
+        try
+        {
+            var feeds = new Dictionary<string, OrtValue>(StringComparer.Ordinal);
+            for (var i = 0; i < _model.Inputs.Count; i++)
+            {
+                var value = OrtTensors.SliceSamples(_data.Inputs[i], _data.SampleAxes[i], 0, samples, _plan.RowsFed(samples));
+                owned.Add(value);
+                feeds[_model.Inputs[i].Name] = value;
+            }
+
+            foreach (var name in _full.InputNames.Where(n => !feeds.ContainsKey(n)))
+            {
+                feeds[name] = _fp32Values.TryGetValue(name, out var weight) ? weight : _switchOff ?? throw new InvalidOperationException($"No value for session input '{name}'.");
+            }
+
+            using var results = _full.Run(_runOptions, feeds.Keys.ToList(), feeds.Values.ToList(), _full.OutputNames);
+            return _full.OutputNames.Select((n, o) => (n, results[o].GetTensorTypeAndShape().Shape)).ToDictionary(p => p.n, p => p.Shape, StringComparer.Ordinal);
+        }
+        finally
+        {
+            owned.ForEach(v => v.Dispose());
         }
     }
 
@@ -441,7 +477,7 @@ public sealed class TrialSession : IDisposable
             var feed = new Dictionary<string, OrtValue>(StringComparer.Ordinal);
             for (var i = 0; i < _model.Inputs.Count; i++)
             {
-                feed[_model.Inputs[i].Name] = OrtTensors.SliceSamples(_data.Inputs[i], start, count, _plan.RowsFed(count));
+                feed[_model.Inputs[i].Name] = OrtTensors.SliceSamples(_data.Inputs[i], _data.SampleAxes[i], start, count, _plan.RowsFed(count));
             }
 
             feeds.Add(feed);
@@ -546,29 +582,39 @@ public sealed class TrialSession : IDisposable
         IReadOnlyList<Dictionary<string, OrtValue>>? extraFeeds)
     {
         var parts = outputNames.Select(_ => new List<Array>(_plan.BatchCount)).ToList();
-        var shapes = new long[outputNames.Count][];
+        var shapes = outputNames.Select(_ => new List<long[]>(_plan.BatchCount)).ToList();
+        var counts = new List<int>(_plan.BatchCount);
         for (var b = 0; b < _plan.BatchCount; b++)
         {
             var (_, count) = _plan.Batch(b);
+            counts.Add(count);
             var inputs = Feeds(session, b, feedsOverride, extraFeeds);
             using var results = session.Run(_runOptions, inputs.Keys.ToList(), inputs.Values.ToList(), outputNames.ToList());
             for (var o = 0; o < outputNames.Count; o++)
             {
-                parts[o].Add(OrtTensors.CopyRows(results[o], count, out var shape));
-                shapes[o] = shape;
+                parts[o].Add(OrtTensors.CopyRows(results[o], int.MaxValue, out var shape));
+                shapes[o].Add(shape);
             }
         }
 
         var outputs = new List<OutputTensor>(outputNames.Count);
         for (var o = 0; o < outputNames.Count; o++)
         {
-            var shape = shapes[o].ToArray();
-            if (shape.Length > 0)
+            var axis = _outputAxes[outputNames[o]];
+            Array data;
+            long[] shape;
+            if (axis is int k)
             {
-                shape[0] = parts[o].Count == 1 ? shape[0] : _data.SampleCount;
+                data = SampleSlicer.Concatenate(parts[o], shapes[o], k, counts, out shape);
+            }
+            else
+            {
+                // No sample axis: one value per run, stacked on a new leading axis.
+                data = OrtTensors.Concatenate(parts[o]);
+                shape = [parts[o].Count, .. shapes[o][0]];
             }
 
-            outputs.Add(new OutputTensor(outputNames[o], OrtTensors.ToFloat(OrtTensors.Concatenate(parts[o])), shape));
+            outputs.Add(new OutputTensor(outputNames[o], OrtTensors.ToFloat(data), shape, axis));
         }
 
         return outputs;

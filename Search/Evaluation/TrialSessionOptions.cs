@@ -8,9 +8,14 @@ namespace Bitbudget.Search.Evaluation;
 /// <param name="MaxCachedActivationBytes">Memory the cached cut-set activations may take; beyond it suffix runs are off.</param>
 /// <param name="IntraOpThreads">ONNX Runtime intra-op threads; null lets ONNX Runtime choose.</param>
 /// <param name="Activations">Calibration of 8-bit activations on the inputs of quantized layers; null for weights only.</param>
+/// <param name="MetricSpace">Where SQNR and relative MSE are computed (see <see cref="Evaluation.MetricSpace"/>).</param>
+/// <param name="FixedActivations">Activation scales and zero points to use as given instead of calibrating them on this
+/// session's data (a held-out check must quantize activations exactly as the calibration set did).</param>
 public sealed record TrialSessionOptions(
     int MaxBatch = 32,
     bool SuffixRuns = true,
     long MaxCachedActivationBytes = 512L << 20,
     int? IntraOpThreads = null,
-    ActivationCalibration? Activations = null);
+    ActivationCalibration? Activations = null,
+    MetricSpace MetricSpace = MetricSpace.Linear,
+    IReadOnlyList<ActivationQuantization>? FixedActivations = null);

@@ -20,10 +20,11 @@ public sealed record AssignmentManifest(
     ManifestExport? Export,
     int Trials,
     IReadOnlyList<string>? Warnings = null,
-    IReadOnlyList<ManifestSkipped>? Skipped = null)
+    IReadOnlyList<ManifestSkipped>? Skipped = null,
+    ManifestHeldOut? HeldOut = null)
 {
-    /// <summary>The version this code writes.</summary>
-    public const int CurrentFormatVersion = 1;
+    /// <summary>The version this code writes (2: per-output metrics, budgets judged per output, held-out check, warnings).</summary>
+    public const int CurrentFormatVersion = 2;
 }
 
 /// <summary>The model searched.</summary>
@@ -39,7 +40,13 @@ public sealed record ManifestModel(string Name, string Sha256, long Opset, long 
 public sealed record ManifestOpsetRaise(long From, long To, IReadOnlyList<string> Rewritten, double RelativeDifference, double MaxRelativeDifference, bool BitExact);
 
 /// <summary>The calibration set used.</summary>
-public sealed record ManifestDataset(int Samples, bool HasLabels);
+/// <param name="SampleAxes">Per model input, the axis its samples lie along; null for a constant fed unchanged to every run.</param>
+/// <param name="OutputSampleAxes">Per model output, the axis its samples lie along; null for an output with one value per run.</param>
+public sealed record ManifestDataset(
+    int Samples,
+    bool HasLabels,
+    IReadOnlyDictionary<string, int?>? SampleAxes = null,
+    IReadOnlyDictionary<string, int?>? OutputSampleAxes = null);
 
 /// <summary>The search's settings.</summary>
 public sealed record ManifestSettings(
@@ -50,7 +57,9 @@ public sealed record ManifestSettings(
     string Clip,
     bool Activations,
     IReadOnlyDictionary<string, int> Pins,
-    IReadOnlyList<string> Excluded);
+    IReadOnlyList<string> Excluded,
+    IReadOnlyList<string>? Outputs = null,
+    string MetricSpace = "linear");
 
 /// <summary>The budget: an error bound on <see cref="Metric"/> (AtLeast or AtMost) or a size bound (Bytes or AverageBits).</summary>
 public sealed record ManifestBudget(string Kind, string Metric, double? AtLeast, double? AtMost, long? Bytes, double? AverageBits, string AdditiveModel);
@@ -60,14 +69,40 @@ public sealed record ManifestOutcome(bool Feasible, string Message, int Validati
 
 /// <summary>Totals of the chosen assignment.</summary>
 /// <param name="Predicted">The budget metric as the additive model predicts it; null when infinite (SQNR of an assignment with no predicted error, e.g. every layer kept FP32).</param>
-/// <param name="Measured">Every metric, measured end to end.</param>
+/// <param name="Measured">Every metric, measured end to end (pooled over outputs, and per output).</param>
+/// <param name="BudgetValue">The budget metric as judged: the worst judged output's value; null when infinite.</param>
+/// <param name="BindingOutput">The judged output that gave <paramref name="BudgetValue"/>; null when the metric is not per output.</param>
 public sealed record ManifestTotals(
     long Bytes,
     long Float32Bytes,
     double AverageBits,
     double Compression,
     double? Predicted,
+    ManifestMetrics Measured,
+    double? BudgetValue = null,
+    string? BindingOutput = null);
+
+/// <summary>The chosen assignment run on a second, held-out dataset, beside the calibration figures.</summary>
+/// <param name="Samples">Samples in the held-out set.</param>
+/// <param name="BudgetValue">The budget metric on the held-out set, judged as on the calibration set; null when infinite.</param>
+/// <param name="BindingOutput">The judged output that gave <paramref name="BudgetValue"/>.</param>
+/// <param name="MeetsBudget">Whether the held-out figure meets the error budget; null for a size budget.</param>
+public sealed record ManifestHeldOut(
+    int Samples,
+    double? BudgetValue,
+    string? BindingOutput,
+    bool? MeetsBudget,
     ManifestMetrics Measured);
+
+/// <summary>One output's metrics; <see cref="Judged"/> says whether the budget looks at it.</summary>
+public sealed record ManifestOutputMetrics(
+    string Name,
+    bool Judged,
+    double RelativeMse,
+    double? SqnrDb,
+    double Top1Agreement,
+    double KlDivergence,
+    double CosineSimilarity);
 
 /// <summary>Output metrics as stored in the manifest (SQNR in dB; infinity written as null).</summary>
 public sealed record ManifestMetrics(
@@ -76,7 +111,8 @@ public sealed record ManifestMetrics(
     double Top1Agreement,
     double KlDivergence,
     double CosineSimilarity,
-    double? Accuracy);
+    double? Accuracy,
+    IReadOnlyList<ManifestOutputMetrics>? Outputs = null);
 
 /// <summary>One layer: what it is, what it got, and how sensitive it was at each candidate.</summary>
 /// <param name="Activations">The 8-bit quantization of the layer's input activation, one per consumer node; null when activations stay FP32.</param>

@@ -30,7 +30,7 @@ internal sealed class AssignmentValidator(
         var highest = Measure(problem.Highest(), budget);
         if (!highest.MeetsBudget)
         {
-            var got = AdditiveError.MetricValue(metric, highest.Measured, reference);
+            var got = problem.Judge.Value(highest.Measured, reference);
             var top = problem.Settings.Bits.Max();
             var message = $"Infeasible: {Describe(top)} everywhere gives {MetricValues.Format(metric, got)}; the budget asks for {(AdditiveError.IsLowerBound(metric) ? "at least" : "at most")} {MetricValues.Format(metric, budget.Limit)}. Add a higher candidate bit width, exclude the most sensitive layers, or relax the budget.";
             return new SearchDecision(false, message, null, _rounds, highest.PredictedAdditive);
@@ -76,7 +76,7 @@ internal sealed class AssignmentValidator(
                 best = measured;
             }
 
-            var measuredAdditive = AdditiveError.ToAdditive(metric, measured.Measured, reference);
+            var measuredAdditive = problem.Judge.ToAdditive(measured.Measured, reference);
             var rescaled = measuredAdditive > 0 ? Math.Max(selection.Error, target * 0.25) * limit / measuredAdditive : target * 4;
             if (measured.MeetsBudget)
             {
@@ -100,7 +100,7 @@ internal sealed class AssignmentValidator(
             target = next;
         }
 
-        var value = AdditiveError.MetricValue(metric, best.Measured, reference);
+        var value = problem.Judge.Value(best.Measured, reference);
         var text = $"{FormatBytes(best.Bytes)} ({problem.Float32Bytes / (double)best.Bytes:0.00}x smaller than FP32) measured at {MetricValues.Format(metric, value)} against a budget of {MetricValues.Format(metric, budget.Limit)}.";
         return new SearchDecision(true, text, best, _rounds, best.PredictedAdditive);
     }
@@ -124,7 +124,7 @@ internal sealed class AssignmentValidator(
         progress?.Report(new SearchProgress(SearchStage.Validate, 0, 1));
         var measured = Measure(selection, budget);
         progress?.Report(new SearchProgress(SearchStage.Validate, 1, 1));
-        var value = AdditiveError.MetricValue(budget.Metric, measured.Measured, session.ReferenceMetrics);
+        var value = problem.Judge.Value(measured.Measured, session.ReferenceMetrics);
         var text = $"{FormatBytes(measured.Bytes)} (budget {FormatBytes(maxBytes)}) measured at {MetricValues.Format(budget.Metric, value)}.";
         return new SearchDecision(true, text, measured, _rounds, measured.PredictedAdditive);
     }
@@ -144,7 +144,7 @@ internal sealed class AssignmentValidator(
         }
 
         var meets = budget is ErrorBudget error
-            && AdditiveError.Meets(error.Metric, error.Limit, record.Metrics, session.ReferenceMetrics);
+            && problem.Judge.Meets(error.Limit, record.Metrics, session.ReferenceMetrics);
         var measurement = new AssignmentMeasurement(assignment, hash, problem.TotalBytes(selection), selection.Error, record.Metrics, meets);
         _rounds.Add(measurement);
         return measurement;

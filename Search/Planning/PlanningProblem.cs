@@ -14,7 +14,7 @@ internal sealed class PlanningProblem
 {
     private PlanningProblem(
         SearchSettings settings,
-        BudgetMetric metric,
+        OutputJudge judge,
         IReadOnlyList<WeightLayer> searched,
         IReadOnlyList<PlanningLayer> candidates,
         IReadOnlyList<LayerCoverage> coverage,
@@ -28,7 +28,7 @@ internal sealed class PlanningProblem
             ? l with { Choices = l.Choices.Where(c => c.Bits == kept).ToList() }
             : l).ToList();
         Settings = settings;
-        Metric = metric;
+        Judge = judge;
         Searched = searched;
         Layers = layers;
         Excluded = excluded;
@@ -40,7 +40,10 @@ internal sealed class PlanningProblem
     public SearchSettings Settings { get; }
 
     /// <summary>The metric the additive error model sums (see <see cref="AdditiveError"/>).</summary>
-    public BudgetMetric Metric { get; }
+    public BudgetMetric Metric => Judge.Metric;
+
+    /// <summary>Which outputs the budget judges; a layer's additive error is that of its worst judged output.</summary>
+    public OutputJudge Judge { get; }
 
     /// <summary>Searched layers, in the same order as <see cref="Layers"/>.</summary>
     public IReadOnlyList<WeightLayer> Searched { get; }
@@ -78,6 +81,7 @@ internal sealed class PlanningProblem
             SizeBudget s => s.Metric,
             _ => BudgetMetric.Sqnr,
         };
+        var judge = new OutputJudge(metric, settings.Outputs);
         var excludedNames = (settings.Excluded ?? []).ToHashSet(StringComparer.Ordinal);
         var searched = model.Layers.Where(l => !excludedNames.Contains(l.Name)).ToList();
         var excluded = model.Layers.Where(l => excludedNames.Contains(l.Name)).ToList();
@@ -90,7 +94,7 @@ internal sealed class PlanningProblem
                 var bytes = CostModel.LayerBytes(layer.ParameterCount, layer.Channels, bits, settings.Scheme, settings.Granularity);
                 var error = bits == BitWidths.Float32
                     ? 0
-                    : AdditiveError.ToAdditive(metric, sensitivity[TrialKeys.Sensitivity(layer.Name, setting, SensitivitySweep.ActivationsFor(settings))], reference);
+                    : judge.ToAdditive(sensitivity[TrialKeys.Sensitivity(layer.Name, setting, SensitivitySweep.ActivationsFor(settings))], reference);
                 return new PlanningChoice(bits, bytes, error);
             }).ToList())).ToList();
         var activations = SensitivitySweep.ActivationsFor(settings);
@@ -102,7 +106,7 @@ internal sealed class PlanningProblem
                 .ToList();
             return LayerCoverage.Judge(layer.Name, changed, count, widths.Max());
         }).ToList();
-        return new PlanningProblem(settings, metric, searched, layers, coverage, excluded, sensitivity);
+        return new PlanningProblem(settings, judge, searched, layers, coverage, excluded, sensitivity);
     }
 
     /// <summary>The assignment a selection stands for, by layer name.</summary>

@@ -19,7 +19,10 @@ internal sealed class SearchReport(
     ExportedModel? exported,
     IReadOnlyList<ActivationQuantization> activations,
     int trialCount,
-    OpsetRaiseComparison? raiseCheck)
+    OpsetRaiseComparison? raiseCheck,
+    IReadOnlyDictionary<string, int?> outputAxes,
+    HeldOutCheck? heldOut,
+    IReadOnlyList<string> warnings)
 {
     /// <summary>Most frontier points written; a longer frontier is thinned evenly (its ends kept).</summary>
     public const int MaxFrontierPoints = 400;
@@ -29,6 +32,7 @@ internal sealed class SearchReport(
         var manifest = BuildManifest(DateTimeOffset.UtcNow);
         var chosen = decision.Chosen;
         var metric = problem.Metric;
+        var heldOutValue = heldOut is null ? (double?)null : problem.Judge.Value(heldOut.Measured, heldOut.Reference);
         return new SearchResult(
             decision.Feasible,
             decision.Message,
@@ -40,9 +44,12 @@ internal sealed class SearchReport(
             manifest.Totals?.AverageBits ?? 0,
             manifest.Totals?.Compression ?? 0,
             chosen is null ? double.NaN : AdditiveError.FromAdditive(metric, chosen.PredictedAdditive, reference),
-            chosen is null ? double.NaN : AdditiveError.MetricValue(metric, chosen.Measured, reference),
+            chosen is null ? double.NaN : problem.Judge.Value(chosen.Measured, reference),
             trialCount,
-            Warnings());
+            [.. Warnings(), .. warnings],
+            heldOut?.Samples,
+            heldOutValue,
+            heldOut is not null && settings.Budget is ErrorBudget error ? problem.Judge.Meets(error.Limit, heldOut.Measured, heldOut.Reference) : null);
     }
 
     public AssignmentManifest BuildManifest(DateTimeOffset createdAt)
@@ -56,13 +63,25 @@ internal sealed class SearchReport(
             chosen.Bytes * 8.0 / problem.TotalParameters,
             problem.Float32Bytes / (double)chosen.Bytes,
             Finite(AdditiveError.FromAdditive(metric, chosen.PredictedAdditive, reference)),
-            Metrics(chosen.Measured));
+            Metrics(chosen.Measured),
+            Finite(problem.Judge.Value(chosen.Measured, reference)),
+            problem.Judge.Binding(chosen.Measured)?.Name);
+        ManifestHeldOut? held = heldOut is null ? null : new ManifestHeldOut(
+            heldOut.Samples,
+            Finite(problem.Judge.Value(heldOut.Measured, heldOut.Reference)),
+            problem.Judge.Binding(heldOut.Measured)?.Name,
+            settings.Budget is ErrorBudget error ? problem.Judge.Meets(error.Limit, heldOut.Measured, heldOut.Reference) : null,
+            Metrics(heldOut.Measured));
         var export = exported is null ? null : new ManifestExport(exported.Format, exported.Opset, exported.Note);
         return new AssignmentManifest(
             AssignmentManifest.CurrentFormatVersion,
             createdAt,
             new ManifestModel(model.Name, model.Sha256, model.Opset, problem.TotalParameters, model.Notes, model.OriginalOpset, OpsetRaise()),
-            new ManifestDataset(data.SampleCount, data.Labels is not null),
+            new ManifestDataset(
+                data.SampleCount,
+                data.Labels is not null,
+                model.Inputs.Select((input, i) => (input.Name, Axis: data.SampleAxes[i])).ToDictionary(p => p.Name, p => p.Axis, StringComparer.Ordinal),
+                new SortedDictionary<string, int?>(outputAxes.ToDictionary(), StringComparer.Ordinal)),
             new ManifestSettings(
                 settings.Bits.Distinct().OrderDescending().ToList(),
                 Wire(settings.Method),
@@ -71,7 +90,9 @@ internal sealed class SearchReport(
                 Wire(settings.Clip),
                 settings.QuantizeActivations,
                 new SortedDictionary<string, int>((settings.Pins ?? new Dictionary<string, int>()).ToDictionary(), StringComparer.Ordinal),
-                (settings.Excluded ?? []).Order(StringComparer.Ordinal).ToList()),
+                (settings.Excluded ?? []).Order(StringComparer.Ordinal).ToList(),
+                settings.Outputs is { Count: > 0 } judged ? judged.ToList() : model.Outputs.Select(o => o.Name).ToList(),
+                Wire(settings.MetricSpace)),
             Budget(),
             new ManifestOutcome(decision.Feasible, decision.Message, decision.Rounds.Count),
             totals,
@@ -79,8 +100,9 @@ internal sealed class SearchReport(
             layers,
             export,
             trialCount,
-            Warnings(),
-            model.Skipped.Select(s => new ManifestSkipped(s.Node, s.Op, s.Input, s.Parameters, s.Reason)).ToList());
+            [.. Warnings(), .. warnings],
+            model.Skipped.Select(s => new ManifestSkipped(s.Node, s.Op, s.Input, s.Parameters, s.Reason)).ToList(),
+            held);
     }
 
     private ManifestOpsetRaise? OpsetRaise() => model.Raise is not { } raise
@@ -211,13 +233,24 @@ internal sealed class SearchReport(
         _ => throw new InvalidOperationException("Unknown budget."),
     };
 
-    internal static ManifestMetrics Metrics(MetricSet m) => new(
+    private ManifestMetrics Metrics(MetricSet m) => ManifestMetricsOf(m, problem.Judge);
+
+    /// <summary>Metrics in the manifest's form: pooled, and per output with whether <paramref name="judge"/> judges it.</summary>
+    internal static ManifestMetrics ManifestMetricsOf(MetricSet m, OutputJudge? judge) => new(
         m.RelativeMse,
-        double.IsFinite(m.SqnrDb) ? m.SqnrDb : null,
+        Finite(m.SqnrDb),
         m.Top1Agreement,
         m.KlDivergence,
         m.CosineSimilarity,
-        m.Accuracy);
+        m.Accuracy,
+        m.PerOutput.Select(o => new ManifestOutputMetrics(
+            o.Name,
+            judge?.Judges(o.Name) ?? true,
+            o.RelativeMse,
+            Finite(o.SqnrDb),
+            o.Top1Agreement,
+            o.KlDivergence,
+            o.CosineSimilarity)).ToList());
 
     // JSON has no infinity: an infinite SQNR (no error predicted) is written as null, as ManifestMetrics.SqnrDb is.
     private static double? Finite(double value) => double.IsFinite(value) ? value : null;

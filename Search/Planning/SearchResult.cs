@@ -14,8 +14,11 @@ namespace Bitbudget.Search.Planning;
 /// <param name="AverageBits">Average bits per quantizable weight.</param>
 /// <param name="Compression">FP32 bytes over chosen bytes.</param>
 /// <param name="PredictedError">The budget metric as the additive model predicts it.</param>
-/// <param name="MeasuredError">The budget metric as measured end to end.</param>
-/// <param name="Warnings">Sentences the user should read before trusting the result, e.g. each layer the calibration set does not exercise (kept at its highest candidate width).</param>
+/// <param name="MeasuredError">The budget metric as measured end to end, judged on the worst judged output.</param>
+/// <param name="Warnings">Sentences saying where a figure is weaker than it looks (layers the calibration set does not exercise, few samples carrying an output's power, a held-out miss).</param>
+/// <param name="HeldOutSamples">Samples in the held-out set; null when there was none.</param>
+/// <param name="HeldOutMeasured">The budget metric on the held-out set, judged as <paramref name="MeasuredError"/>; null without one.</param>
+/// <param name="HeldOutMeetsBudget">Whether the held-out figure meets the error budget; null without one or for a size budget.</param>
 public sealed record SearchResult(
     bool Feasible,
     string Message,
@@ -29,4 +32,7 @@ public sealed record SearchResult(
     double PredictedError,
     double MeasuredError,
     int TrialCount,
-    IReadOnlyList<string>? Warnings = null);
+    IReadOnlyList<string>? Warnings = null,
+    int? HeldOutSamples = null,
+    double? HeldOutMeasured = null,
+    bool? HeldOutMeetsBudget = null);

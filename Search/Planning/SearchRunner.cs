@@ -8,7 +8,7 @@ namespace Bitbudget.Search.Planning;
 /// <summary>
 /// The whole job: FP32 reference, sensitivity sweep, search over the additive error model,
 /// end-to-end validation (tightening the additive budget when a choice misses when measured), and
-/// the artifacts. Every measurement goes through the <see cref="ITrialStore"/>, so a search that runs
+/// the artifacts; with a held-out dataset, the chosen assignment is also measured on it. Every measurement goes through the <see cref="ITrialStore"/>, so a search that runs
 /// again measures nothing twice.
 /// </summary>
 public static class SearchRunner
@@ -20,6 +20,7 @@ public static class SearchRunner
     /// Runs a search; throws <see cref="EngineException"/> for settings that cannot work and <see cref="OperationCanceledException"/> when cancelled.
     /// With <see cref="SearchSettings.TargetOpset"/>, <paramref name="model"/> must have been loaded with that target; the raise is
     /// first checked in ONNX Runtime on <paramref name="data"/> (<see cref="OpsetRaiseCheck"/>) and refused when it moved an output.
+    /// Given <paramref name="holdout"/>, the chosen assignment is also measured on it.
     /// </summary>
     public static SearchResult Run(
         OnnxModel model,
@@ -28,11 +29,12 @@ public static class SearchRunner
         ITrialStore store,
         IProgress<SearchProgress>? progress,
         CancellationToken cancellationToken,
-        TrialSessionOptions? sessionOptions = null)
+        TrialSessionOptions? sessionOptions = null,
+        CalibrationSet? holdout = null)
     {
         SearchSettingsValidator.Validate(model, data, settings);
         progress?.Report(new SearchProgress(SearchStage.Reference, 0, 1));
-        var options = (sessionOptions ?? new TrialSessionOptions()) with { Activations = SensitivitySweep.ActivationsFor(settings) };
+        var options = (sessionOptions ?? new TrialSessionOptions()) with { Activations = SensitivitySweep.ActivationsFor(settings), MetricSpace = settings.MetricSpace };
         var raiseCheck = OpsetRaiseCheck.Verify(model, data, options.MaxBatch);
         using var session = TrialSession.Open(model, data, options);
         store.Save(new TrialRecord(TrialKeys.Reference, "reference", null, null, null, session.ReferenceMetrics, session.ForwardPassMilliseconds));
@@ -58,9 +60,28 @@ public static class SearchRunner
         cancellationToken.ThrowIfCancellationRequested();
         progress?.Report(new SearchProgress(SearchStage.Export, 0, 1));
         var exported = decision.Chosen is { } chosen ? QdqExporter.Export(model, chosen.Assignment, session.Activations) : null;
-        var report = new SearchReport(model, data, settings, session.ReferenceMetrics, problem, frontier, decision, exported, session.Activations, store.LoadAll().Count, raiseCheck);
+        var heldOut = decision.Chosen is { } kept && holdout is not null ? MeasureHeldOut(model, holdout, options, session, kept) : null;
+        var warnings = SearchWarnings.FewSamples(session.ReferenceOutputs, problem.Judge, settings.MetricSpace).ToList();
+        if (heldOut is not null && settings.Budget is ErrorBudget bound && decision.Chosen is { } best
+            && SearchWarnings.HeldOutMisses(heldOut, bound, problem.Judge, problem.Judge.Value(best.Measured, session.ReferenceMetrics)) is { } miss)
+        {
+            warnings.Add(miss);
+        }
+
+        var report = new SearchReport(
+            model, data, settings, session.ReferenceMetrics, problem, frontier, decision, exported, session.Activations, store.LoadAll().Count, raiseCheck, session.OutputAxes, heldOut, warnings);
         var result = report.ToResult();
         progress?.Report(new SearchProgress(SearchStage.Export, 1, 1));
         return result;
+    }
+
+    /// <summary>
+    /// Runs the chosen assignment on the held-out set in a session of its own, with the activation scales
+    /// calibrated on the calibration set (a held-out set must not calibrate what it checks).
+    /// </summary>
+    private static HeldOutCheck MeasureHeldOut(OnnxModel model, CalibrationSet holdout, TrialSessionOptions options, TrialSession calibration, AssignmentMeasurement chosen)
+    {
+        using var session = TrialSession.Open(model, holdout, options with { SuffixRuns = false, FixedActivations = calibration.Activations });
+        return new HeldOutCheck(holdout.SampleCount, session.ReferenceMetrics, session.MeasureAssignment(chosen.Assignment));
     }
 }

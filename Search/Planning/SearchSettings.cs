@@ -9,6 +9,9 @@ namespace Bitbudget.Search.Planning;
 /// <param name="Excluded">Layers kept in FP32 and left out of the search, by layer name.</param>
 /// <param name="QuantizeActivations">Per-tensor 8-bit activations on the inputs of quantized layers (opset 13 or later).</param>
 /// <param name="TargetOpset">Raise the model to this standard opset before searching (see <see cref="Onnx.OnnxModel.Load(byte[], string, long?)"/>); null keeps the upload's opset.</param>
+/// <param name="Outputs">The model outputs the budget judges, by name; null or empty for every output.</param>
+/// <param name="MetricSpace">Where SQNR and relative MSE are computed (linear, or logit for probability outputs).</param>
+/// <param name="SampleAxes">Sample axes given outright, by input name (see <see cref="Evaluation.CalibrationSet"/>); recorded in the manifest.</param>
 public sealed record SearchSettings(
     Budget Budget,
     IReadOnlyList<int> Bits,
@@ -19,7 +22,10 @@ public sealed record SearchSettings(
     bool QuantizeActivations = false,
     IReadOnlyDictionary<string, int>? Pins = null,
     IReadOnlyList<string>? Excluded = null,
-    long? TargetOpset = null)
+    long? TargetOpset = null,
+    IReadOnlyList<string>? Outputs = null,
+    Evaluation.MetricSpace MetricSpace = Evaluation.MetricSpace.Linear,
+    IReadOnlyDictionary<string, int>? SampleAxes = null)
 {
     /// <summary>The candidate widths most teams start from (common practice).</summary>
     public static IReadOnlyList<int> DefaultBits { get; } = [2, 3, 4, 5, 6, 8];

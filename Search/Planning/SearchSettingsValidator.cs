@@ -44,6 +44,17 @@ public static class SearchSettingsValidator
             Fail($"The search asks for opset {target}, but the model was loaded at opset {model.Opset}; load it with the target opset (OnnxModel.Load(bytes, name, {target})).");
         }
 
+        var outputNames = model.Outputs.Select(o => o.Name).ToList();
+        foreach (var output in (settings.Outputs ?? []).Where(o => !outputNames.Contains(o, StringComparer.Ordinal)))
+        {
+            Fail($"Output '{output}' is not an output of the model; its outputs are: {string.Join(", ", outputNames)}.");
+        }
+
+        if (settings.Outputs is { } judged && judged.Distinct(StringComparer.Ordinal).Count() != judged.Count)
+        {
+            Fail("The list of judged outputs names the same output twice.");
+        }
+
         if (settings.QuantizeActivations)
         {
             if (model.Opset < ActivationQuantization.MinimumOpset)

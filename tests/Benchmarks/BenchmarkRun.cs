@@ -106,14 +106,14 @@ internal static class BenchmarkRun
 
     private static void PlainPass(InferenceSession session, CalibrationSet data)
     {
-        // Batches as the model's first dimension allows, the same rule the trial session follows.
-        var first = session.InputMetadata.Values.First().Dimensions[0];
-        var batch = first > 0 ? first : Math.Min(32, data.SampleCount);
+        // Batches as the inputs' sample axes allow, the same rule the trial session follows.
+        var fixedBatch = data.SamplesPerRun;
+        var batch = fixedBatch ?? Math.Min(32, data.SampleCount);
         using var runOptions = new RunOptions();
         for (var start = 0; start < data.SampleCount; start += batch)
         {
             var count = Math.Min(batch, data.SampleCount - start);
-            var values = data.Inputs.Select(a => OrtTensors.SliceSamples(a, start, count, first > 0 ? batch : count)).ToList();
+            var values = data.Inputs.Select((a, i) => OrtTensors.SliceSamples(a, data.SampleAxes[i], start, count, fixedBatch ?? count)).ToList();
             using var results = session.Run(runOptions, session.InputNames, values, session.OutputNames);
             values.ForEach(v => v.Dispose());
         }

@@ -129,7 +129,7 @@ public class CalibrationSetTests
     {
         var e = Refused(() => CalibrationSet.Create([Images(3), Masks(2)], [Image, Mask]), "dataset-invalid");
 
-        Assert.Contains("'x' has 3, 'mask' has 2", e.Message);
+        Assert.Contains("'x' has 3 on axis 0, 'mask' has 2 on axis 0", e.Message);
     }
 
     [Fact]

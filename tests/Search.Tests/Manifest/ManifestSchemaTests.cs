@@ -195,7 +195,7 @@ public sealed class ManifestSchemaTests
     public void ManifestWithAnotherFormatVersionOrAnUnknownFieldFailsTheSchema()
     {
         var newer = Parse(ErrorBudgetResult.Value.ManifestJson);
-        newer["formatVersion"] = 2;
+        newer["formatVersion"] = 3;
         AssertInvalid(newer);
 
         var extra = Parse(ErrorBudgetResult.Value.ManifestJson);

@@ -1,0 +1,49 @@
+using System.Globalization;
+using Bitbudget.Search.Evaluation;
+
+namespace Bitbudget.Search.Planning;
+
+/// <summary>Sentences that tell the user a figure is weaker than it looks; written into the manifest and the summaries.</summary>
+internal static class SearchWarnings
+{
+    /// <summary>How many of the strongest samples count as "a handful".</summary>
+    public const int Handful = 5;
+
+    /// <summary>
+    /// One warning per judged output whose <see cref="Handful"/> strongest samples carry more than half of its
+    /// signal power (with more than <see cref="Handful"/> samples in all): its SQNR then mostly says how
+    /// those few samples came through. Half is a rule of thumb of our own.
+    /// </summary>
+    public static IEnumerable<string> FewSamples(IReadOnlyList<OutputTensor> reference, OutputJudge judge, MetricSpace space)
+    {
+        if (judge.Metric is not (BudgetMetric.Sqnr or BudgetMetric.RelativeMse))
+        {
+            yield break;
+        }
+
+        foreach (var output in reference.Where(o => judge.Judges(o.Name)))
+        {
+            if (OutputComparer.TopSampleShare(output, Handful, space) is { Samples: > Handful } top && top.Share > 0.5)
+            {
+                yield return string.Create(
+                    CultureInfo.InvariantCulture,
+                    $"Output '{output.Name}': {Handful} of {top.Samples} samples carry {top.Share * 100:0}% of its signal power, so its {MetricValues.Name(judge.Metric)} rests on few samples; add more samples of the kind that matter, or judge it in logit space if it is a probability.");
+            }
+        }
+    }
+
+    /// <summary>A warning when the held-out figure misses the error budget, with both figures side by side.</summary>
+    public static string? HeldOutMisses(HeldOutCheck check, ErrorBudget budget, OutputJudge judge, double calibrationValue)
+    {
+        if (judge.Meets(budget.Limit, check.Measured, check.Reference))
+        {
+            return null;
+        }
+
+        var value = judge.Value(check.Measured, check.Reference);
+        var output = judge.Binding(check.Measured) is { } binding ? $" (output '{binding.Name}')" : string.Empty;
+        return $"Held-out check: the chosen assignment measures {MetricValues.Format(budget.Metric, value)}{output} on the {check.Samples} held-out samples, " +
+            $"missing the budget of {MetricValues.Format(budget.Metric, budget.Limit)} it met on the calibration set ({MetricValues.Format(budget.Metric, calibrationValue)}); " +
+            "the calibration set does not represent the held-out data well enough. Calibrate on more, and more varied, samples.";
+    }
+}
