@@ -233,24 +233,7 @@ internal sealed class SearchReport(
         _ => throw new InvalidOperationException("Unknown budget."),
     };
 
-    private ManifestMetrics Metrics(MetricSet m) => ManifestMetricsOf(m, problem.Judge);
-
-    /// <summary>Metrics in the manifest's form: pooled, and per output with whether <paramref name="judge"/> judges it.</summary>
-    internal static ManifestMetrics ManifestMetricsOf(MetricSet m, OutputJudge? judge) => new(
-        m.RelativeMse,
-        Finite(m.SqnrDb),
-        m.Top1Agreement,
-        m.KlDivergence,
-        m.CosineSimilarity,
-        m.Accuracy,
-        m.PerOutput.Select(o => new ManifestOutputMetrics(
-            o.Name,
-            judge?.Judges(o.Name) ?? true,
-            o.RelativeMse,
-            Finite(o.SqnrDb),
-            o.Top1Agreement,
-            o.KlDivergence,
-            o.CosineSimilarity)).ToList());
+    private ManifestMetrics Metrics(MetricSet m) => ManifestMetricsOf.From(m, problem.Judge.Judges);
 
     // JSON has no infinity: an infinite SQNR (no error predicted) is written as null, as ManifestMetrics.SqnrDb is.
     private static double? Finite(double value) => double.IsFinite(value) ? value : null;

@@ -32,7 +32,17 @@ internal sealed record SearchResponse(
         search.StartedAt,
         search.FinishedAt,
         search.EtaSeconds,
-        result is null ? null : new SummaryResponse(result.Bytes, result.AverageBits, result.Compression, result.Predicted, result.Measured, result.Feasible, result.Message, result.TrialCount, result.Warnings()),
+        result is null ? null : new SummaryResponse(
+            result.Bytes,
+            result.AverageBits,
+            result.Compression,
+            result.Predicted,
+            result.Measured,
+            result.Feasible,
+            result.Message,
+            result.TrialCount,
+            result is { HeldOutSamples: int samples, HeldOutMeasured: double held } ? new HeldOutResponse(samples, held, result.HeldOutMeetsBudget) : null,
+            result.Warnings()),
         search.ErrorCode is null ? null : new ErrorResponse(search.ErrorCode, search.ErrorMessage ?? ""),
         search.Spec);
 }

@@ -5,5 +5,16 @@ namespace Bitbudget.Service.Api;
 /// <param name="Predicted">The budget metric as the additive error model predicts it.</param>
 /// <param name="Measured">The budget metric measured end to end.</param>
 /// <param name="Feasible">False when the budget cannot be met even at the highest candidate width.</param>
-/// <param name="Warnings">Sentences to read before trusting the result, e.g. one per layer the calibration set does not exercise (kept at its highest candidate width).</param>
-internal sealed record SummaryResponse(long Bytes, double AverageBits, double Compression, double Predicted, double Measured, bool Feasible, string Message, int TrialCount, IReadOnlyList<string> Warnings);
+/// <param name="HeldOut">The same figure on the held-out dataset, beside <paramref name="Measured"/>; null without one.</param>
+/// <param name="Warnings">Sentences to read before trusting the result: a layer the calibration set does not exercise, few samples carrying an output's power, a held-out figure that misses the budget.</param>
+internal sealed record SummaryResponse(
+    long Bytes,
+    double AverageBits,
+    double Compression,
+    double Predicted,
+    double Measured,
+    bool Feasible,
+    string Message,
+    int TrialCount,
+    HeldOutResponse? HeldOut,
+    IReadOnlyList<string> Warnings);

@@ -5,11 +5,15 @@ using Bitbudget.Search.Quantization;
 namespace Bitbudget.Service.Commands;
 
 /// <summary>The parsed arguments of <see cref="PlanCommand"/>; malformed ones throw <see cref="ArgumentException"/> with what to write instead.</summary>
-internal sealed record PlanArguments(string Model, string Data, SearchSettings Settings, string Out)
+/// <param name="Holdout">A second dataset the chosen assignment is checked on; null for none.</param>
+internal sealed record PlanArguments(string Model, string Data, SearchSettings Settings, string Out, string? Holdout = null)
 {
     public static PlanArguments Parse(string[] args)
     {
-        string? model = null, data = null, budget = null, bits = null, outDir = null;
+        string? model = null, data = null, budget = null, bits = null, outDir = null, holdout = null;
+        var metricSpace = Search.Evaluation.MetricSpace.Linear;
+        var sampleAxes = new Dictionary<string, int>(StringComparer.Ordinal);
+        List<string>? outputs = null;
         var method = SearchMethod.Knapsack;
         var scheme = QuantizationScheme.Symmetric;
         var granularity = Granularity.PerChannel;
@@ -41,6 +45,25 @@ internal sealed record PlanArguments(string Model, string Data, SearchSettings S
                         ? opset
                         : throw new ArgumentException($"--target-opset takes a standard opset number, e.g. 13 or 21; '{opsetText}' is not one.");
                     break;
+                case "--holdout": holdout = Value(); break;
+                case "--metric-space": metricSpace = Enum<Search.Evaluation.MetricSpace>(name, Value()); break;
+                case "--outputs":
+                    outputs = Value().Split(',', StringSplitOptions.RemoveEmptyEntries | StringSplitOptions.TrimEntries).ToList();
+                    if (outputs.Count == 0)
+                    {
+                        throw new ArgumentException("--outputs takes a comma-separated list of output names, e.g. --outputs probability,next_state.");
+                    }
+
+                    break;
+                case "--sample-axis":
+                    var given = Value().Split('=', 2);
+                    if (given.Length != 2 || given[0].Length == 0 || !int.TryParse(given[1], CultureInfo.InvariantCulture, out var axis) || axis < 0)
+                    {
+                        throw new ArgumentException("--sample-axis takes INPUT=AXIS with a non-negative axis, e.g. --sample-axis state=1.");
+                    }
+
+                    sampleAxes[given[0]] = axis;
+                    break;
                 case "--pin":
                     var pin = Value().Split('=', 2);
                     if (pin.Length != 2 || !int.TryParse(pin[1], CultureInfo.InvariantCulture, out var pinned))
@@ -65,8 +88,9 @@ internal sealed record PlanArguments(string Model, string Data, SearchSettings S
             : bits.Split(',', StringSplitOptions.RemoveEmptyEntries | StringSplitOptions.TrimEntries)
                 .Select(b => int.TryParse(b, CultureInfo.InvariantCulture, out var v) ? v : throw new ArgumentException($"--bits takes a comma-separated list of widths, e.g. 2,3,4,6,8; '{b}' is not a number."))
                 .ToList();
-        var settings = new SearchSettings(BudgetText.Parse(budget), candidates, method, scheme, granularity, clip, activations, pins, excluded, targetOpset);
-        return new PlanArguments(model, data, settings, outDir ?? "plan");
+        var settings = new SearchSettings(
+            BudgetText.Parse(budget), candidates, method, scheme, granularity, clip, activations, pins, excluded, targetOpset, outputs, metricSpace, sampleAxes.Count == 0 ? null : sampleAxes);
+        return new PlanArguments(model, data, settings, outDir ?? "plan", holdout);
     }
 
     private static T Enum<T>(string option, string text)

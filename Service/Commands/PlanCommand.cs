@@ -12,7 +12,8 @@ namespace Bitbudget.Service.Commands;
 /// <summary>
 /// <c>plan --model M.onnx --data D.npz --budget "sqnr&gt;=30" [--bits 2,3,4,6,8] [--method knapsack|greedy]
 /// [--scheme symmetric|asymmetric] [--granularity per-channel|per-tensor] [--clip min-max|percentile|mse-optimal|analytic-laplace|analytic-gaussian]
-/// [--pin LAYER=BITS]... [--exclude LAYER]... [--activations] [--target-opset N] [--out DIR]</c>: the whole search locally, writing the
+/// [--pin LAYER=BITS]... [--exclude LAYER]... [--activations] [--target-opset N] [--sample-axis INPUT=AXIS]... [--outputs A,B]
+/// [--metric-space linear|logit] [--holdout H.npz] [--out DIR]</c>: the whole search locally, writing the
 /// manifest, the quantized model, the sensitivity CSV and the frontier into DIR.
 /// </summary>
 internal static class PlanCommand
@@ -20,7 +21,8 @@ internal static class PlanCommand
     private const string Usage =
         "usage: plan --model M.onnx --data D.npz --budget \"sqnr>=30\" [--bits 2,3,4,6,8] [--method knapsack|greedy] " +
         "[--scheme symmetric|asymmetric] [--granularity per-channel|per-tensor] [--clip min-max|percentile|mse-optimal|analytic-laplace|analytic-gaussian] " +
-        "[--pin LAYER=BITS]... [--exclude LAYER]... [--activations] [--target-opset N] [--out DIR]";
+        "[--pin LAYER=BITS]... [--exclude LAYER]... [--activations] [--target-opset N] [--sample-axis INPUT=AXIS]... [--outputs A,B] " +
+        "[--metric-space linear|logit] [--holdout H.npz] [--out DIR]";
 
     public static Task<int> RunAsync(string[] args)
     {
@@ -55,10 +57,11 @@ internal static class PlanCommand
     private static int Run(PlanArguments args)
     {
         var model = OnnxModel.LoadFile(args.Model, args.Settings.TargetOpset);
-        var data = CalibrationSet.Create(DatasetReader.Read(File.ReadAllBytes(args.Data)), model.Inputs);
+        var data = CalibrationSet.Create(DatasetReader.Read(File.ReadAllBytes(args.Data)), model.Inputs, args.Settings.SampleAxes);
+        var holdout = args.Holdout is null ? null : CalibrationSet.Create(DatasetReader.Read(File.ReadAllBytes(args.Holdout)), model.Inputs, args.Settings.SampleAxes);
         var store = new InMemoryTrialStore();
         var clock = System.Diagnostics.Stopwatch.StartNew();
-        var result = SearchRunner.Run(model, data, args.Settings, store, new TerminalProgress(), CancellationToken.None);
+        var result = SearchRunner.Run(model, data, args.Settings, store, new TerminalProgress(), CancellationToken.None, holdout: holdout);
         Console.Error.WriteLine();
 
         Directory.CreateDirectory(args.Out);
@@ -91,13 +94,7 @@ internal static class PlanCommand
                 t.Layer,
                 t.Bits,
                 t.AssignmentHash,
-                Metrics = new ManifestMetrics(
-                    t.Metrics.RelativeMse,
-                    double.IsFinite(t.Metrics.SqnrDb) ? t.Metrics.SqnrDb : null,
-                    t.Metrics.Top1Agreement,
-                    t.Metrics.KlDivergence,
-                    t.Metrics.CosineSimilarity,
-                    t.Metrics.Accuracy),
+                Metrics = ManifestMetricsOf.From(t.Metrics),
                 t.DurationMs,
             })
             .ToList();
@@ -125,7 +122,13 @@ internal static class PlanCommand
         if (manifest.Totals is { } totals)
         {
             text.AppendLine(CultureInfo.InvariantCulture, $"total: {totals.Bytes} bytes (FP32 {totals.Float32Bytes}), {totals.AverageBits:0.00} bits per weight, {totals.Compression:0.00}x smaller");
-            text.AppendLine(CultureInfo.InvariantCulture, $"{manifest.Budget.Metric}: predicted {result.PredictedError:0.####}, measured {result.MeasuredError:0.####}");
+            text.AppendLine(CultureInfo.InvariantCulture, $"{manifest.Budget.Metric}: predicted {result.PredictedError:0.####}, measured {result.MeasuredError:0.####}{Binding(totals.BindingOutput)}");
+            Outputs(text, totals.Measured, manifest.HeldOut?.Measured);
+            if (manifest.HeldOut is { } held)
+            {
+                var verdict = held.MeetsBudget switch { true => "meets the budget", false => "MISSES the budget", null => "no error budget to meet" };
+                text.AppendLine(CultureInfo.InvariantCulture, $"{manifest.Budget.Metric}: calibration ({manifest.Dataset.Samples} samples) {result.MeasuredError:0.####}, held-out ({held.Samples} samples) {Number(held.BudgetValue)}{Binding(held.BindingOutput)}: {verdict}");
+            }
         }
 
         text.AppendLine(result.Message);
@@ -141,6 +144,29 @@ internal static class PlanCommand
 
         return text.ToString();
     }
+
+    /// <summary>One line per output: SQNR on the calibration set (and the held-out set), and whether the budget judges it.</summary>
+    private static void Outputs(StringBuilder text, ManifestMetrics calibration, ManifestMetrics? heldOut)
+    {
+        var outputs = calibration.Outputs ?? [];
+        if (outputs.Count < 2 && heldOut is null)
+        {
+            return;
+        }
+
+        var width = Math.Max(6, outputs.Max(o => o.Name.Length));
+        text.AppendLine(CultureInfo.InvariantCulture, $"{"output".PadRight(width)}  {"judged",6} {"SQNR dB",9}{(heldOut is null ? "" : $" {"held-out",9}")}");
+        foreach (var output in outputs)
+        {
+            var held = heldOut?.Outputs?.FirstOrDefault(o => o.Name == output.Name);
+            text.AppendLine(CultureInfo.InvariantCulture, $"{output.Name.PadRight(width)}  {(output.Judged ? "yes" : "no"),6} {Number(output.SqnrDb),9}{(heldOut is null ? "" : $" {Number(held?.SqnrDb),9}")}");
+        }
+    }
+
+    private static string Binding(string? output) => output is null ? string.Empty : $" (worst judged output: '{output}')";
+
+    // An infinite SQNR (no error at all) is stored as null.
+    private static string Number(double? value) => value is { } v ? v.ToString("0.####", CultureInfo.InvariantCulture) : "inf";
 
     /// <summary>A one-line progress bar on standard error.</summary>
     private sealed class TerminalProgress : IProgress<SearchProgress>

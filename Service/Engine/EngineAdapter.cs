@@ -40,7 +40,7 @@ internal sealed class EngineAdapter(IOptions<BitbudgetOptions> options) : ISearc
             arrays.Any(a => a.Name == CalibrationSet.LabelsName));
     }
 
-    public void CheckCompatible(byte[] model, Stream dataset, long? targetOpset = null)
+    public void CheckCompatible(byte[] model, Stream dataset, long? targetOpset = null, IReadOnlyDictionary<string, int>? sampleAxes = null)
     {
         var loaded = OnnxModel.Load(model, "model", targetOpset);
         var headers = DatasetReader.Inspect(dataset, Limits, verifyData: false);
@@ -48,7 +48,7 @@ internal sealed class EngineAdapter(IOptions<BitbudgetOptions> options) : ISearc
         SearchMemoryEstimate.Of(loaded, headers, new TrialSessionOptions().MaxCachedActivationBytes, heldBytes: dataset.Length)
             .Check(options.Value.MaxSearchMemoryBytes, "Bitbudget:MaxSearchMemoryBytes");
         dataset.Position = 0;
-        CalibrationSet.Create(DatasetReader.Read(dataset, Limits), loaded.Inputs);
+        CalibrationSet.Create(DatasetReader.Read(dataset, Limits), loaded.Inputs, sampleAxes);
     }
 
     public SearchResult RunSearch(
@@ -58,11 +58,13 @@ internal sealed class EngineAdapter(IOptions<BitbudgetOptions> options) : ISearc
         SearchSettings settings,
         ITrialStore trials,
         IProgress<SearchProgress> progress,
-        CancellationToken cancellationToken)
+        CancellationToken cancellationToken,
+        byte[]? holdout = null)
     {
         var loaded = OnnxModel.Load(model, modelName, settings.TargetOpset);
-        var data = CalibrationSet.Create(DatasetReader.Read(dataset, Limits), loaded.Inputs);
-        return SearchRunner.Run(loaded, data, settings, trials, progress, cancellationToken);
+        var data = CalibrationSet.Create(DatasetReader.Read(dataset, Limits), loaded.Inputs, settings.SampleAxes);
+        var held = holdout is null ? null : CalibrationSet.Create(DatasetReader.Read(holdout, Limits), loaded.Inputs, settings.SampleAxes);
+        return SearchRunner.Run(loaded, data, settings, trials, progress, cancellationToken, holdout: held);
     }
 
     private static TensorSummary Tensor(Bitbudget.Search.ValueDescription value) =>

@@ -20,11 +20,13 @@ internal interface ISearchEngine
     /// <c>dataset-mismatch</c> when the dataset cannot feed the model's inputs, and the raise's codes
     /// (<c>opset-raise-*</c>) when <paramref name="targetOpset"/> is given and the model cannot be raised to it.
     /// </summary>
-    void CheckCompatible(byte[] model, Stream dataset, long? targetOpset = null);
+    /// <param name="sampleAxes">Sample axes given outright, by input name.</param>
+    void CheckCompatible(byte[] model, Stream dataset, long? targetOpset = null, IReadOnlyDictionary<string, int>? sampleAxes = null);
 
     /// <summary>
     /// Runs a whole search. The engine loads what <paramref name="trials"/> already holds, skips those
-    /// trials, and saves each new one as soon as it is measured, so a rerun duplicates nothing.
+    /// trials, and saves each new one as soon as it is measured, so a rerun duplicates nothing. A
+    /// <paramref name="holdout"/> dataset, when given, is run through the chosen assignment at the end.
     /// </summary>
     SearchResult RunSearch(
         byte[] model,
@@ -33,5 +35,6 @@ internal interface ISearchEngine
         SearchSettings settings,
         ITrialStore trials,
         IProgress<SearchProgress> progress,
-        CancellationToken cancellationToken);
+        CancellationToken cancellationToken,
+        byte[]? holdout = null);
 }

@@ -56,12 +56,13 @@ internal sealed partial class SearchJob(
             var dataset = catalog.FindDataset(search.DatasetId)!;
             var modelBytes = blobs.Read(model.Summary.Sha256);
             var datasetBytes = blobs.Read(dataset.Summary.Sha256);
+            var holdoutBytes = search.Spec.HoldoutDatasetId is { } holdoutId ? blobs.Read(catalog.FindDataset(holdoutId)!.Summary.Sha256) : null;
             var settings = SearchVocabulary.ToSettings(search.Spec);
             var trials = new TrialStore(database, searchId);
 
             // The engine is synchronous and CPU-bound for minutes: give it a thread of its own rather than a pool thread.
             var result = await Task.Factory.StartNew(
-                () => engine.RunSearch(modelBytes, model.Summary.Name, datasetBytes, settings, trials, progress, run.Token),
+                () => engine.RunSearch(modelBytes, model.Summary.Name, datasetBytes, settings, trials, progress, run.Token, holdoutBytes),
                 CancellationToken.None,
                 TaskCreationOptions.LongRunning,
                 TaskScheduler.Default).ConfigureAwait(false);
@@ -81,7 +82,10 @@ internal sealed partial class SearchJob(
                 result.PredictedError,
                 result.MeasuredError,
                 result.TrialCount,
-                StoreJson.Write(result.Warnings ?? []));
+                StoreJson.Write(result.Warnings ?? []),
+                result.HeldOutSamples,
+                result.HeldOutMeasured,
+                result.HeldOutMeetsBudget);
             if (searches.Complete(owner, record))
             {
                 LogSucceeded(logger, searchId, result.Feasible, result.Message);

@@ -10,6 +10,10 @@ namespace Bitbudget.Service.Searches;
 /// <param name="Pin">Layers forced to one bit width.</param>
 /// <param name="Exclude">Layers kept in FP32.</param>
 /// <param name="TargetOpset">Raise the model to this standard opset first (from the model's own up to 22); the raise is checked in ONNX Runtime on the dataset.</param>
+/// <param name="SampleAxes">The axis that holds samples, by model input name, where the default rule should not decide.</param>
+/// <param name="Outputs">The model outputs the budget judges (default: every output).</param>
+/// <param name="MetricSpace">"linear" (default) or "logit" (SQNR and relative MSE of probability outputs on their logits).</param>
+/// <param name="HoldoutDatasetId">A second uploaded dataset the chosen assignment is checked on.</param>
 internal sealed record SearchRequest(
     string? ModelId,
     string? DatasetId,
@@ -22,4 +26,8 @@ internal sealed record SearchRequest(
     bool? Activations = null,
     IReadOnlyDictionary<string, int>? Pin = null,
     IReadOnlyList<string>? Exclude = null,
-    long? TargetOpset = null);
+    long? TargetOpset = null,
+    IReadOnlyDictionary<string, int>? SampleAxes = null,
+    IReadOnlyList<string>? Outputs = null,
+    string? MetricSpace = null,
+    string? HoldoutDatasetId = null);

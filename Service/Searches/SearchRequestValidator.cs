@@ -13,7 +13,7 @@ namespace Bitbudget.Service.Searches;
 /// </summary>
 internal static class SearchRequestValidator
 {
-    public static SearchSpec Validate(SearchRequest request, ModelRecord model, DatasetRecord dataset)
+    public static SearchSpec Validate(SearchRequest request, ModelRecord model, DatasetRecord dataset, DatasetRecord? holdout = null)
     {
         var errors = new Dictionary<string, string[]>(StringComparer.Ordinal);
         void Add(string field, string message) => errors[field] = errors.TryGetValue(field, out var list) ? [.. list, message] : [message];
@@ -80,6 +80,10 @@ internal static class SearchRequestValidator
             Add("exclude", "Every layer is excluded, which leaves nothing to search.");
         }
 
+        var metricSpace = Choice(request.MetricSpace, "linear", SearchVocabulary.MetricSpaces.Keys, "metricSpace", Add);
+        var sampleAxes = ValidateSampleAxes(request.SampleAxes, model, Add);
+        var outputs = ValidateOutputs(request.Outputs, model, Add);
+
         if (errors.Count > 0)
         {
             var detail = errors.Count == 1
@@ -104,7 +108,62 @@ internal static class SearchRequestValidator
                 $"Quantizing activations needs opset 13 or later (per-axis QuantizeLinear), and this model uses opset {opset}; leave 'activations' off, or raise the model with \"targetOpset\": 13.");
         }
 
-        return new SearchSpec(budget, bits!, method!, scheme!, granularity!, calibration!, request.Activations ?? false, pin, exclude, request.TargetOpset);
+        return new SearchSpec(
+            budget, bits!, method!, scheme!, granularity!, calibration!, request.Activations ?? false, pin, exclude, request.TargetOpset, sampleAxes, outputs, metricSpace!, holdout?.Id);
+    }
+
+    private static SortedDictionary<string, int>? ValidateSampleAxes(IReadOnlyDictionary<string, int>? given, ModelRecord model, Action<string, string> add)
+    {
+        if (given is null || given.Count == 0)
+        {
+            return null;
+        }
+
+        var axes = new SortedDictionary<string, int>(StringComparer.Ordinal);
+        foreach (var (name, axis) in given)
+        {
+            var input = model.Summary.Inputs.FirstOrDefault(i => i.Name == name);
+            if (input is null)
+            {
+                add($"sampleAxes.{name}", $"The model has no input '{name}'; its inputs are: {string.Join(", ", model.Summary.Inputs.Select(i => i.Name))}.");
+            }
+            else if (axis < 0 || axis >= input.Shape.Count)
+            {
+                add($"sampleAxes.{name}", input.Shape.Count == 0
+                    ? $"Input '{name}' is a scalar with no axis to hold samples; feed it a 0-d array (a constant) and leave it out of sampleAxes."
+                    : $"Input '{name}' has axes 0 to {input.Shape.Count - 1}; got {axis.ToString(CultureInfo.InvariantCulture)}.");
+            }
+            else
+            {
+                axes[name] = axis;
+            }
+        }
+
+        return axes;
+    }
+
+    private static List<string>? ValidateOutputs(IReadOnlyList<string>? given, ModelRecord model, Action<string, string> add)
+    {
+        if (given is null)
+        {
+            return null;
+        }
+
+        var names = model.Summary.Outputs.Select(o => o.Name).ToList();
+        if (given.Count == 0)
+        {
+            add("outputs", "outputs must name at least one model output, or be left out to judge every output.");
+            return null;
+        }
+
+        var unknown = given.Where(o => !names.Contains(o, StringComparer.Ordinal)).ToList();
+        if (unknown.Count > 0)
+        {
+            add("outputs", $"The model has no output {string.Join(", ", unknown.Select(u => $"'{u}'"))}; its outputs are: {string.Join(", ", names)}.");
+            return null;
+        }
+
+        return [.. given.Distinct(StringComparer.Ordinal)];
     }
 
     private static BudgetSpec? ValidateBudget(BudgetSpec? budget, Action<string, string> add)

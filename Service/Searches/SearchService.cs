@@ -34,7 +34,11 @@ internal sealed partial class SearchService(
             ?? throw new ServiceException(StatusCodes.Status404NotFound, ProblemTypes.NotFound, $"No model has the id '{request.ModelId}'; upload it with POST /v1/models first.");
         var dataset = catalog.FindDataset(request.DatasetId)
             ?? throw new ServiceException(StatusCodes.Status404NotFound, ProblemTypes.NotFound, $"No dataset has the id '{request.DatasetId}'; upload it with POST /v1/datasets first.");
-        var spec = SearchRequestValidator.Validate(request, model, dataset);
+        var holdout = string.IsNullOrWhiteSpace(request.HoldoutDatasetId)
+            ? null
+            : catalog.FindDataset(request.HoldoutDatasetId)
+                ?? throw new ServiceException(StatusCodes.Status404NotFound, ProblemTypes.NotFound, $"No dataset has the id '{request.HoldoutDatasetId}' (holdoutDatasetId); upload it with POST /v1/datasets first.");
+        var spec = SearchRequestValidator.Validate(request, model, dataset, holdout);
         var requestHash = BlobStore.Sha256Hex(Encoding.UTF8.GetBytes($"{model.Id}\n{dataset.Id}\n{StoreJson.Write(spec)}"));
 
         if (idempotencyKey is not null && searches.FindByIdempotencyKey(idempotencyKey) is { } earlier)
@@ -44,7 +48,13 @@ internal sealed partial class SearchService(
 
         using (var datasetFile = File.OpenRead(blobs.PathOf(dataset.Summary.Sha256)))
         {
-            engine.CheckCompatible(blobs.Read(model.Summary.Sha256), datasetFile, spec.TargetOpset);
+            engine.CheckCompatible(blobs.Read(model.Summary.Sha256), datasetFile, spec.TargetOpset, spec.SampleAxes);
+        }
+
+        if (holdout is not null)
+        {
+            using var holdoutFile = File.OpenRead(blobs.PathOf(holdout.Summary.Sha256));
+            engine.CheckCompatible(blobs.Read(model.Summary.Sha256), holdoutFile, spec.TargetOpset, spec.SampleAxes);
         }
 
         var (search, created) = searches.Create(model.Id, dataset.Id, spec, idempotencyKey, requestHash);

@@ -11,4 +11,8 @@ internal sealed record SearchSpec(
     bool Activations,
     IReadOnlyDictionary<string, int> Pin,
     IReadOnlyList<string> Exclude,
-    long? TargetOpset = null);
+    long? TargetOpset = null,
+    IReadOnlyDictionary<string, int>? SampleAxes = null,
+    IReadOnlyList<string>? Outputs = null,
+    string MetricSpace = "linear",
+    string? HoldoutDatasetId = null);

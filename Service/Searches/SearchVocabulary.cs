@@ -45,6 +45,12 @@ internal static class SearchVocabulary
         ["analytic-gaussian"] = ClipMethod.AnalyticGaussian,
     };
 
+    public static IReadOnlyDictionary<string, Search.Evaluation.MetricSpace> MetricSpaces { get; } = new Dictionary<string, Search.Evaluation.MetricSpace>(StringComparer.Ordinal)
+    {
+        ["linear"] = Search.Evaluation.MetricSpace.Linear,
+        ["logit"] = Search.Evaluation.MetricSpace.Logit,
+    };
+
     public static SearchStage? ParseStage(string? stage) =>
         Enum.TryParse<SearchStage>(stage, ignoreCase: true, out var parsed) ? parsed : null;
 
@@ -67,6 +73,9 @@ internal static class SearchVocabulary
             spec.Activations,
             spec.Pin,
             spec.Exclude,
-            spec.TargetOpset);
+            spec.TargetOpset,
+            spec.Outputs,
+            MetricSpaces[spec.MetricSpace],
+            spec.SampleAxes);
     }
 }

@@ -72,5 +72,10 @@ internal static class Migrations
         (2, """
             ALTER TABLE results ADD COLUMN warnings_json TEXT;
             """),
+        (3, """
+            ALTER TABLE results ADD COLUMN held_out_samples INTEGER;
+            ALTER TABLE results ADD COLUMN held_out_measured REAL;
+            ALTER TABLE results ADD COLUMN held_out_meets INTEGER;
+            """),
     ];
 }

@@ -3,6 +3,8 @@ namespace Bitbudget.Service.Store;
 /// <summary>A finished search's totals and the blobs (by SHA-256) of its artifacts.</summary>
 /// <param name="WarningsJson">The engine's warnings (e.g. layers the calibration set does not exercise) as a JSON array of strings, kept as
 /// stored so the record compares by value; null for results stored before warnings existed.</param>
+/// <param name="Measured">The budget metric on the calibration set (worst judged output).</param>
+/// <param name="HeldOutMeasured">The same on the held-out set; null without one.</param>
 internal sealed record ResultRecord(
     string SearchId,
     bool Feasible,
@@ -17,7 +19,10 @@ internal sealed record ResultRecord(
     double Predicted,
     double Measured,
     int TrialCount,
-    string? WarningsJson = null)
+    string? WarningsJson = null,
+    int? HeldOutSamples = null,
+    double? HeldOutMeasured = null,
+    bool? HeldOutMeetsBudget = null)
 {
     /// <summary>The warnings, one sentence each; empty when there are none (or none were stored).</summary>
     public IReadOnlyList<string> Warnings() => WarningsJson is null ? [] : StoreJson.Read<List<string>>(WarningsJson);

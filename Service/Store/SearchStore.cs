@@ -151,9 +151,10 @@ internal sealed class SearchStore(Database database)
             insert.Transaction = transaction;
             insert.CommandText = """
                 INSERT INTO results (search_id, feasible, message, manifest_sha256, model_sha256, sensitivity_sha256,
-                    frontier_sha256, bytes, average_bits, compression, predicted, measured, trial_count, warnings_json, created_at)
+                    frontier_sha256, bytes, average_bits, compression, predicted, measured, trial_count, warnings_json, created_at,
+                    held_out_samples, held_out_measured, held_out_meets)
                 VALUES ($id, $feasible, $message, $manifest, $model, $csv, $frontier, $bytes, $bits, $compression,
-                    $predicted, $measured, $trials, $warnings, $now)
+                    $predicted, $measured, $trials, $warnings, $now, $heldSamples, $heldMeasured, $heldMeets)
                 ON CONFLICT(search_id) DO NOTHING;
                 """;
             insert.Parameters.AddWithValue("$id", result.SearchId);
@@ -171,6 +172,9 @@ internal sealed class SearchStore(Database database)
             insert.Parameters.AddWithValue("$trials", result.TrialCount);
             insert.Parameters.AddWithValue("$warnings", (object?)result.WarningsJson ?? DBNull.Value);
             insert.Parameters.AddWithValue("$now", now);
+            insert.Parameters.AddWithValue("$heldSamples", (object?)result.HeldOutSamples ?? DBNull.Value);
+            insert.Parameters.AddWithValue("$heldMeasured", (object?)result.HeldOutMeasured ?? DBNull.Value);
+            insert.Parameters.AddWithValue("$heldMeets", result.HeldOutMeetsBudget is { } meets ? (meets ? 1 : 0) : DBNull.Value);
             insert.ExecuteNonQuery();
         }
 
@@ -223,7 +227,8 @@ internal sealed class SearchStore(Database database)
         using var command = connection.CreateCommand();
         command.CommandText = """
             SELECT search_id, feasible, message, manifest_sha256, model_sha256, sensitivity_sha256, frontier_sha256,
-                bytes, average_bits, compression, predicted, measured, trial_count, warnings_json
+                bytes, average_bits, compression, predicted, measured, trial_count, warnings_json,
+                held_out_samples, held_out_measured, held_out_meets
             FROM results WHERE search_id = $id;
             """;
         command.Parameters.AddWithValue("$id", searchId);
@@ -247,7 +252,10 @@ internal sealed class SearchStore(Database database)
             reader.GetDouble(10),
             reader.GetDouble(11),
             reader.GetInt32(12),
-            reader.IsDBNull(13) ? null : reader.GetString(13));
+            reader.IsDBNull(13) ? null : reader.GetString(13),
+            reader.IsDBNull(14) ? null : reader.GetInt32(14),
+            reader.IsDBNull(15) ? null : reader.GetDouble(15),
+            reader.IsDBNull(16) ? null : reader.GetInt64(16) != 0);
     }
 
     public int CountResults(string searchId)

@@ -104,7 +104,7 @@ internal sealed class FakeSearchEngine : ISearchEngine
         return new DatasetSummary(Convert.ToHexStringLower(SHA256.HashData(bytes)), arrays, samples, hasLabels);
     }
 
-    public void CheckCompatible(byte[] model, Stream dataset, long? targetOpset = null)
+    public void CheckCompatible(byte[] model, Stream dataset, long? targetOpset = null, IReadOnlyDictionary<string, int>? sampleAxes = null)
     {
         var modelInput = Value(Lines(model, ModelMagic, "model-not-onnx", "Not a model."), "input");
         var datasetInput = Value(Lines(ReadAll(dataset), DatasetMagic, "dataset-invalid", "Not a dataset."), "input");
@@ -121,7 +121,8 @@ internal sealed class FakeSearchEngine : ISearchEngine
         SearchSettings settings,
         ITrialStore trials,
         IProgress<SearchProgress> progress,
-        CancellationToken cancellationToken)
+        CancellationToken cancellationToken,
+        byte[]? holdout = null)
     {
         Runs.AddOrUpdate(modelName, 1, (_, n) => n + 1);
         Settings[modelName] = settings;

@@ -1,0 +1,30 @@
+using Bitbudget.Search.Evaluation;
+
+namespace Bitbudget.Search.Manifest;
+
+/// <summary>Measured metrics in the manifest's form: JSON has no infinity, so an infinite SQNR is written as null.</summary>
+public static class ManifestMetricsOf
+{
+    /// <summary>Pooled and per-output metrics; <paramref name="judged"/> says which outputs the budget judges (all when null).</summary>
+    public static ManifestMetrics From(MetricSet metrics, Func<string, bool>? judged = null)
+    {
+        ArgumentNullException.ThrowIfNull(metrics);
+        return new ManifestMetrics(
+            metrics.RelativeMse,
+            Finite(metrics.SqnrDb),
+            metrics.Top1Agreement,
+            metrics.KlDivergence,
+            metrics.CosineSimilarity,
+            metrics.Accuracy,
+            metrics.PerOutput.Select(o => new ManifestOutputMetrics(
+                o.Name,
+                judged?.Invoke(o.Name) ?? true,
+                o.RelativeMse,
+                Finite(o.SqnrDb),
+                o.Top1Agreement,
+                o.KlDivergence,
+                o.CosineSimilarity)).ToList());
+    }
+
+    private static double? Finite(double value) => double.IsFinite(value) ? value : null;
+}
