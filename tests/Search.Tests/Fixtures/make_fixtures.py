@@ -85,6 +85,18 @@ def main():
     p = softmax(ref.astype(np.float64)).astype("<f4")
     q = softmax(trial.astype(np.float64)).astype("<f4")
     np.savez(os.path.join(OUT, "metrics_probabilities.npz"), reference=p, trial=q, expected=expected(p, q, softmax=False))
+    streaming()
+
+
+def streaming():
+    """A stateful model's dataset: frames [n, 8], a recurrent state with its samples on axis 1
+    [2, n, 6], and a scalar int64 sample rate (a 0-d array: a constant fed to every run). The held-out
+    set has louder frames than the calibration set, so a budget met on one can miss on the other."""
+    rng = np.random.default_rng(7)
+    for name, n, loudness in (("streaming.npz", 40, 1.0), ("streaming_holdout.npz", 24, 3.0)):
+        frame = (loudness * rng.standard_normal((n, 8))).astype("<f4")
+        state = (0.5 * rng.standard_normal((2, n, 6))).astype("<f4")
+        np.savez(os.path.join(OUT, name), frame=frame, state=state, rate=np.array(16000, dtype="<i8"))
 
 
 def softmax(x):

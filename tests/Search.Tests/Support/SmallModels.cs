@@ -51,6 +51,42 @@ internal static class SmallModels
             .Output("probabilities", -1, 10)
             .ToBytes();
 
+    /// <summary>
+    /// A tiny streaming detector with a recurrent state and no recurrent operator:
+    /// frame [n,8] -> MatMul(8x6) "input" scaled by rate/16000 (rate: a scalar int64 input), plus
+    /// mean over axis 0 of state [2,n,6] -> MatMul(6x6) "recurrent"; Tanh = h; h -> MatMul(6x1) "head"
+    /// -> Sigmoid = probability [n,1]; next_state [2,n,6] = (40 h, 40 mean state), stacked on axis 0 by
+    /// broadcasting against a [1,1,1] constant. The next state carries thousands of times the power of
+    /// the probability, so pooled SQNR cannot see what the head's bit width does to the probability.
+    /// </summary>
+    public static byte[] StreamingBytes(long opset = 13) =>
+        new GraphBuilder()
+            .Opset(opset)
+            .Input("frame", -1, 8)
+            .Input("state", 2, -1, 6)
+            .Input("rate", P.TensorProto.Types.DataType.Int64)
+            .Initializer("w_in", [8, 6], GraphBuilder.RandomValues(11, 48, 0.6f))
+            .Initializer("w_rec", [6, 6], GraphBuilder.RandomValues(12, 36, 0.8f))
+            .Initializer("w_head", [6, 1], GraphBuilder.RandomValues(13, 6, 1.5f))
+            .Initializer("per_hz", [], [1f / 16000])
+            .Initializer("gain", [1, 1, 1], [40f])
+            .Node("MatMul", ["frame", "w_in"], ["a"], "input")
+            .Node("Cast", ["rate"], ["rate_f"], "rate_to_float", new P.AttributeProto { Name = "to", Type = P.AttributeProto.Types.AttributeType.Int, I = (long)P.TensorProto.Types.DataType.Float })
+            .Node("Mul", ["rate_f", "per_hz"], ["rate_scale"], "rate_scale")
+            .Node("Mul", ["a", "rate_scale"], ["a_scaled"], "scale_input")
+            .Node("ReduceMean", ["state"], ["s"], "state_mean", new P.AttributeProto { Name = "axes", Type = P.AttributeProto.Types.AttributeType.Ints, Ints = { 0 } }, GraphBuilder.IntAttribute("keepdims", 0))
+            .Node("MatMul", ["s", "w_rec"], ["r"], "recurrent")
+            .Node("Add", ["a_scaled", "r"], ["pre"], "mix")
+            .Node("Tanh", ["pre"], ["h"], "tanh")
+            .Node("MatMul", ["h", "w_head"], ["logit"], "head")
+            .Node("Sigmoid", ["logit"], ["probability"], "sigmoid")
+            .Node("Mul", ["h", "gain"], ["h_state"], "h_state")
+            .Node("Mul", ["s", "gain"], ["s_state"], "s_state")
+            .Node("Concat", ["h_state", "s_state"], ["next_state"], "stack", GraphBuilder.IntAttribute("axis", 0))
+            .Output("probability", -1, 1)
+            .Output("next_state", 2, -1, 6)
+            .ToBytes();
+
     /// <summary>Standard-normal inputs with labels from a fixed rule, so accuracy is meaningful but not perfect.</summary>
     public static CalibrationSet MlpData(OnnxModel model, int samples = 48, int seed = 5)
     {
