@@ -81,7 +81,7 @@ public sealed class StreamingFeedTests
         Assert.Contains("'frame' has 40 on axis 0, 'state' has 2 on axis 0", wrong.Message);
 
         var outOfRange = Assert.Throws<EngineException>(() => CalibrationSet.Create(arrays, model.Inputs, new Dictionary<string, int> { ["state"] = 3 }));
-        Assert.Contains("Sample axis 3 is given for model input 'state' [2, ?, 6], which has axes 0 to 2", outOfRange.Message);
+        Assert.Contains("Sample axis 3 is given for model input 'state' [2,?,6], which has axes 0 to 2", outOfRange.Message);
 
         var scalar = Assert.Throws<EngineException>(() => CalibrationSet.Create(arrays, model.Inputs, new Dictionary<string, int> { ["rate"] = 0 }));
         Assert.Contains("'rate'", scalar.Message);
