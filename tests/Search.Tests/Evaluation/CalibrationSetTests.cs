@@ -125,6 +125,52 @@ public class CalibrationSetTests
     }
 
     [Fact]
+    public void AnArrayOfAFixedInputsWholeShapeIsAConstantWhenAnotherInputCarriesSamples()
+    {
+        var table = new ValueDescription("table", ElementType.Float32, [3, 2]);
+        var tableArray = Floats("table", [3, 2], i => i);
+
+        var withSamples = CalibrationSet.Create([Images(5), tableArray], [Image, table]);
+        Assert.Equal([0, (int?)null], withSamples.SampleAxes);
+        Assert.Equal(5, withSamples.SampleCount);
+        Assert.Same(withSamples.Inputs[1].Data, withSamples.Slice(1, 2)[1].Data);
+
+        // Alone, the same array is one run of samples for a model that fixes its batch: 3 samples of 2 values.
+        var alone = CalibrationSet.Create([tableArray], [table]);
+        Assert.Equal([(int?)0], alone.SampleAxes);
+        Assert.Equal(3, alone.SampleCount);
+        Assert.Equal(3, alone.SamplesPerRun);
+
+        // A sample axis given outright makes it sampled even beside another sampled input.
+        var given = Refused(() => CalibrationSet.Create([Images(5), tableArray], [Image, table], new Dictionary<string, int> { ["table"] = 0 }), "dataset-invalid");
+        Assert.Contains("'table' has 3 on axis 0", given.Message);
+    }
+
+    [Fact]
+    public void OneDynamicAxisIsTheSampleAxisWhereverItIs()
+    {
+        var state = new ValueDescription("state", ElementType.Float32, [2, null, 4]);
+
+        var set = CalibrationSet.Create([Floats("state", [2, 7, 4], i => i)], [state]);
+
+        Assert.Equal(1, set.SampleAxes[0]);
+        Assert.Equal(7, set.SampleCount);
+        Assert.Contains("axis 0 is 3, the model needs 2", Refused(() => CalibrationSet.Create([Floats("state", [3, 7, 4], i => i)], [state]), "dataset-mismatch").Message);
+        Assert.Equal(0, CalibrationSet.DefaultSampleAxis(new ValueDescription("two", ElementType.Float32, [null, null])));
+        Assert.Null(CalibrationSet.DefaultSampleAxis(new ValueDescription("rate", ElementType.Int64, [])));
+    }
+
+    [Fact]
+    public void AModelOfScalarsOnlyCannotBeFed()
+    {
+        var rate = new ValueDescription("rate", ElementType.Int64, []);
+
+        var e = Refused(() => CalibrationSet.Create([new NpyArray("rate", ElementType.Int64, [], new long[] { 16000 })], [rate]), "dataset-mismatch");
+
+        Assert.Contains("Every model input is a scalar ('rate')", e.Message);
+    }
+
+    [Fact]
     public void ArraysThatDisagreeOnSampleCountAreInvalid()
     {
         var e = Refused(() => CalibrationSet.Create([Images(3), Masks(2)], [Image, Mask]), "dataset-invalid");

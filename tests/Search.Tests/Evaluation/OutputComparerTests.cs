@@ -191,6 +191,91 @@ public class OutputComparerTests
     }
 
     /// <summary>Plain double loops, written from the metric definitions without TensorPrimitives.</summary>
+    [Fact]
+    public void EveryOutputGetsItsOwnMetricsBesideThePooledOnes()
+    {
+        // Output a: values +-1, noise +-0.1 (20 dB); output b: values +-3, no noise (infinite). Pooled: 30 dB (see above).
+        int n = 64;
+        var a = Enumerable.Range(0, n).Select(i => i % 2 == 0 ? 1f : -1f).ToArray();
+        var b = Enumerable.Range(0, n).Select(i => i % 2 == 0 ? 3f : -3f).ToArray();
+        var noisyA = a.Select((v, i) => v + (i % 3 == 0 ? 0.1f : -0.1f)).ToArray();
+
+        var m = OutputComparer.Compare([Out("a", [n], a), Out("b", [n], b)], [Out("a", [n], noisyA), Out("b", [n], (float[])b.Clone())], null);
+
+        Assert.Equal(30, m.SqnrDb, 4);
+        Assert.Equal(["a", "b"], m.PerOutput.Select(o => o.Name));
+        Assert.Equal(20, m.PerOutput[0].SqnrDb, 4);
+        Assert.Equal(0.01, m.PerOutput[0].RelativeMse, 6);
+        Assert.True(double.IsPositiveInfinity(m.PerOutput[1].SqnrDb));
+    }
+
+    [Theory]
+    [InlineData("sigmoid")]
+    [InlineData("softmax")]
+    public void LogitSpaceSqnrMatchesNumPy(string kind)
+    {
+        // metrics_logit_space.npz: NumPy (make_fixtures.py) computes SQNR of log(p/(1-p)) for a sigmoid output and of
+        // log p minus the row mean for a softmax output, in float64 with p clipped to [1e-6, 1 - 1e-6].
+        var arrays = DatasetReader.Read(File.ReadAllBytes(Fixture("metrics_logit_space.npz"))).ToDictionary(x => x.Name);
+        var reference = arrays[$"{kind}_reference"];
+        var trial = arrays[$"{kind}_trial"];
+        var expected = ((double[])arrays[$"{kind}_sqnr"].Data)[0];
+
+        var logit = OutputComparer.Compare([Out("p", reference.Shape.ToArray(), (float[])reference.Data)], [Out("p", trial.Shape.ToArray(), (float[])trial.Data)], null, MetricSpace.Logit);
+        var linear = OutputComparer.Compare([Out("p", reference.Shape.ToArray(), (float[])reference.Data)], [Out("p", trial.Shape.ToArray(), (float[])trial.Data)], null);
+
+        Assert.Equal(expected, logit.SqnrDb, 1);
+        Assert.NotEqual(Math.Round(linear.SqnrDb, 1), Math.Round(logit.SqnrDb, 1));
+    }
+
+    [Fact]
+    public void LogitSpaceLeavesOutputsOutsideZeroToOneLinear()
+    {
+        var r = Out("y", [4], -2, 0.5f, 3, 1);
+        var t = Out("y", [4], -2.1f, 0.5f, 3, 1.1f);
+
+        Assert.Equal(OutputComparer.Compare([r], [t], null).SqnrDb, OutputComparer.Compare([r], [t], null, MetricSpace.Logit).SqnrDb);
+    }
+
+    [Fact]
+    public void LogitSpaceIsStableWhereLinearSqnrIsDecidedByAFewLargeProbabilities()
+    {
+        // A near-zero sigmoid output (a rare event): the same small logit noise on every sample. Linear SQNR is decided by
+        // the one sample whose probability is not tiny and moves with that sample's noise; logit SQNR does not.
+        int n = 200;
+        var z = Enumerable.Range(0, n).Select(i => i == 7 ? 1.0 : -9.0 - i % 5).ToArray();
+        double Sqnr(MetricSpace space, int seed)
+        {
+            var random = new Random(seed);
+            var noise = z.Select(_ => 0.05 * (random.NextDouble() * 2 - 1)).ToArray();
+            noise[7] = seed * 0.02; // only the one large sample's noise differs between the runs
+            var p = z.Select(v => (float)(1 / (1 + Math.Exp(-v)))).ToArray();
+            var q = z.Select((v, i) => (float)(1 / (1 + Math.Exp(-(v + noise[i]))))).ToArray();
+            return OutputComparer.Compare([Out("p", [n, 1], p)], [Out("p", [n, 1], q)], null, space).SqnrDb;
+        }
+
+        var linearSpread = Math.Abs(Sqnr(MetricSpace.Linear, 1) - Sqnr(MetricSpace.Linear, 3));
+        var logitSpread = Math.Abs(Sqnr(MetricSpace.Logit, 1) - Sqnr(MetricSpace.Logit, 3));
+        Assert.True(linearSpread > 5 * logitSpread, $"linear moved {linearSpread:0.00} dB, logit {logitSpread:0.00} dB");
+    }
+
+    [Fact]
+    public void TopSampleShareCountsPowerPerSampleAlongTheSampleAxis()
+    {
+        // Shape [2, 6, 1] with samples on axis 1: sample 0 holds 10 in both halves, the others 1.
+        var data = new float[12];
+        Array.Fill(data, 1f);
+        data[0] = 10;
+        data[6] = 10;
+        var output = new OutputTensor("s", data, [2, 6, 1], SampleAxis: 1);
+
+        var one = OutputComparer.TopSampleShare(output, 1)!.Value;
+
+        Assert.Equal(6, one.Samples);
+        Assert.Equal(200.0 / 210, one.Share, 12);
+        Assert.Null(OutputComparer.TopSampleShare(output with { SampleAxis = null }, 1));
+    }
+
     private static MetricSet ScalarReference(float[] r, float[] t, int rowLength, long[] labels)
     {
         double noise = 0, signal = 0, kl = 0, cosine = 0;

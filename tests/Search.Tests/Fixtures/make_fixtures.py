@@ -86,6 +86,7 @@ def main():
     q = softmax(trial.astype(np.float64)).astype("<f4")
     np.savez(os.path.join(OUT, "metrics_probabilities.npz"), reference=p, trial=q, expected=expected(p, q, softmax=False))
     streaming()
+    logit_space()
 
 
 def streaming():
@@ -97,6 +98,34 @@ def streaming():
         frame = (loudness * rng.standard_normal((n, 8))).astype("<f4")
         state = (0.5 * rng.standard_normal((2, n, 6))).astype("<f4")
         np.savez(os.path.join(OUT, name), frame=frame, state=state, rate=np.array(16000, dtype="<i8"))
+
+
+def logit_space():
+    """SQNR in logit space, computed by NumPy in float64: sigmoid outputs as log(p / (1 - p)), softmax
+    rows as log p minus the row mean, p clipped to [1e-6, 1 - 1e-6] (OutputComparer.LogitEpsilon)."""
+    eps = 1e-6
+    rng = np.random.default_rng(31)
+    z = rng.standard_normal((60, 1)) * 6
+    p = (1 / (1 + np.exp(-z))).astype("<f4")
+    q = (1 / (1 + np.exp(-(z + rng.standard_normal(z.shape) * 0.05)))).astype("<f4")
+
+    def sigmoid_logit(x):
+        x = np.clip(x.astype(np.float64), eps, 1 - eps)
+        return np.log(x / (1 - x))
+
+    def centred_log(x):
+        x = np.log(np.clip(x.astype(np.float64), eps, 1 - eps))
+        return x - x.mean(axis=-1, keepdims=True)
+
+    def sqnr(r, t):
+        return 10 * np.log10(np.sum(r ** 2) / np.sum((r - t) ** 2))
+
+    logits = rng.standard_normal((20, 5)) * 4
+    sp = softmax(logits).astype("<f4")
+    sq = softmax(logits + rng.standard_normal(logits.shape) * 0.05).astype("<f4")
+    np.savez(os.path.join(OUT, "metrics_logit_space.npz"),
+             sigmoid_reference=p, sigmoid_trial=q, sigmoid_sqnr=np.array(sqnr(sigmoid_logit(p), sigmoid_logit(q))),
+             softmax_reference=sp, softmax_trial=sq, softmax_sqnr=np.array(sqnr(centred_log(sp), centred_log(sq))))
 
 
 def softmax(x):
