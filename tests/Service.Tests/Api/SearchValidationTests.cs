@@ -41,6 +41,11 @@ public sealed class SearchValidationTests(ServiceFactory factory) : IClassFixtur
     [InlineData("\"exclude\":[\"nope\"]", "exclude", "no layer 'nope'")]
     [InlineData("\"exclude\":[\"fc\"],\"pin\":{\"fc\":8}", "exclude", "both pinned and excluded")]
     [InlineData("\"exclude\":[\"conv1\",\"conv2\",\"fc\"]", "exclude", "nothing to search")]
+    [InlineData("\"metricSpace\":\"log\"", "metricSpace", "Unknown metricSpace 'log'; use one of linear, logit")]
+    [InlineData("\"outputs\":[]", "outputs", "at least one model output")]
+    [InlineData("\"outputs\":[\"probability\"]", "outputs", "no output 'probability'; its outputs are: logits")]
+    [InlineData("\"sampleAxes\":{\"state\":1}", "sampleAxes.state", "no input 'state'; its inputs are: image")]
+    [InlineData("\"sampleAxes\":{\"image\":4}", "sampleAxes.image", "axes 0 to 3; got 4")]
     public async Task BadOptionIsAnInvalidRequestNamingTheField(string option, string field, string message)
     {
         var problem = await PostAsync($$"""{"budget":{"metric":"sqnr","atLeast":30},{{option}}}""", HttpStatusCode.BadRequest, "invalid-request");
@@ -79,6 +84,8 @@ public sealed class SearchValidationTests(ServiceFactory factory) : IClassFixtur
         var unknown = await PostRawAsync("""{"modelId":"mdl_x","datasetId":"$D","budget":{"metric":"sqnr","atLeast":30}}""", HttpStatusCode.NotFound, "not-found");
         Assert.Contains("mdl_x", unknown.GetProperty("detail").GetString(), StringComparison.Ordinal);
         await PostRawAsync("""{"modelId":"$M","datasetId":"dst_x","budget":{"metric":"sqnr","atLeast":30}}""", HttpStatusCode.NotFound, "not-found");
+        var holdout = await PostRawAsync("""{"modelId":"$M","datasetId":"$D","holdoutDatasetId":"dst_x","budget":{"metric":"sqnr","atLeast":30}}""", HttpStatusCode.NotFound, "not-found");
+        Assert.Contains("holdoutDatasetId", holdout.GetProperty("detail").GetString(), StringComparison.Ordinal);
     }
 
     [Fact]

@@ -23,4 +23,29 @@ public sealed class PlanArgumentsTests
         var error = Assert.Throws<ArgumentException>(() => PlanArguments.Parse([.. common, "--target-opset", "thirteen"]));
         Assert.Contains("'thirteen'", error.Message, StringComparison.Ordinal);
     }
+
+    [Fact]
+    public void FeedingAndJudgingOptionsReachTheSettings()
+    {
+        var parsed = PlanArguments.Parse([
+            "--model", "m.onnx", "--data", "d.npz", "--budget", "sqnr>=30", "--sample-axis", "state=1", "--sample-axis", "frames=0",
+            "--outputs", "probability, next_state", "--metric-space", "logit", "--holdout", "h.npz"]);
+
+        Assert.Equal(new Dictionary<string, int> { ["state"] = 1, ["frames"] = 0 }, parsed.Settings.SampleAxes);
+        Assert.Equal(["probability", "next_state"], parsed.Settings.Outputs);
+        Assert.Equal(Search.Evaluation.MetricSpace.Logit, parsed.Settings.MetricSpace);
+        Assert.Equal("h.npz", parsed.Holdout);
+    }
+
+    [Theory]
+    [InlineData("--sample-axis", "state", "INPUT=AXIS")]
+    [InlineData("--sample-axis", "state=-1", "non-negative")]
+    [InlineData("--outputs", ",", "comma-separated list of output names")]
+    [InlineData("--metric-space", "decibel", "linear, logit")]
+    public void MalformedFeedingOptionsSayWhatToWrite(string option, string value, string said)
+    {
+        var e = Assert.Throws<ArgumentException>(() => PlanArguments.Parse(["--model", "m.onnx", "--data", "d.npz", "--budget", "sqnr>=30", option, value]));
+
+        Assert.Contains(said, e.Message, StringComparison.Ordinal);
+    }
 }
