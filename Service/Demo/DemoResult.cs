@@ -8,4 +8,5 @@ internal sealed record DemoResult(
     HiveSoundSet Calibration,
     HiveSoundSet Holdout,
     double HoldoutAccuracy,
-    TimeSpan Elapsed);
+    TimeSpan Elapsed,
+    HiveStream Stream);

@@ -16,6 +16,15 @@ internal static class HiveMonitorScenario
     public const string CalibrationFileName = "calibration.npz";
     public const string HoldoutFileName = "holdout.npz";
     public const string ReadmeFileName = "README.txt";
+    public const string StreamModelFileName = "hive-stream.onnx";
+    public const string StreamCalibrationFileName = "stream-calibration.npz";
+    public const string StreamHoldoutFileName = "stream-holdout.npz";
+
+    /// <summary>Frames (spectrogram columns) of each calibration patch the streaming set takes, the state carried up to each.</summary>
+    public static readonly int[] StreamCalibrationSteps = [5, 11];
+    public const int StreamHoldoutPatches = 256;
+    public const int StreamHoldoutStep = 8;
+    public static int StreamCalibrationCount => CalibrationCount * StreamCalibrationSteps.Length;
 
     public const int TrainingCount = 6144;
     public const int CalibrationCount = 64;
@@ -30,6 +39,7 @@ internal static class HiveMonitorScenario
     private const ulong HoldoutSeed = 3003;
     private const ulong WeightSeed = 4004;
     private const ulong ShuffleSeed = 5005;
+    private const ulong StreamSeed = 6006;
 
     public static DemoResult Generate(string outputFolder, Action<TrainingEpoch>? onEpoch = null)
     {
@@ -44,6 +54,7 @@ internal static class HiveMonitorScenario
         IReadOnlyList<TrainingEpoch> epochs = new HiveNetTrainer(network, BatchSize, LearningRate).Train(training, Epochs, ShuffleSeed, onEpoch);
         double holdoutAccuracy = HiveNet.Accuracy(network.Predict(holdout.Spectrograms), holdout.Labels);
 
+        HiveStream stream = HiveStream.Create(StreamSeed);
         Directory.CreateDirectory(outputFolder);
         var files = new List<DemoFile>
         {
@@ -53,12 +64,18 @@ internal static class HiveMonitorScenario
                 $"calibration set: spectrogram [{CalibrationCount},1,16,16] float32, labels [{CalibrationCount}] int64"),
             Write(outputFolder, HoldoutFileName, SampleSetNpz(holdout),
                 $"held-out set: spectrogram [{HoldoutCount},1,16,16] float32, labels [{HoldoutCount}] int64"),
+            Write(outputFolder, StreamModelFileName, HiveStreamExporter.Export(stream),
+                $"FP32 streaming swarm detector: '{HiveStreamExporter.FrameName}' [batch,16], '{HiveStreamExporter.StateName}' [2,batch,12], '{HiveStreamExporter.SampleRateName}' int64 scalar -> '{HiveStreamExporter.ProbabilityName}' [batch,1], '{HiveStreamExporter.NextStateName}' [2,batch,12]"),
+            Write(outputFolder, StreamCalibrationFileName, StreamSetNpz(stream, calibration, CalibrationCount, StreamCalibrationSteps),
+                $"streaming calibration set: frame [{StreamCalibrationCount},16], state [2,{StreamCalibrationCount},12] float32, sample_rate int64 0-d"),
+            Write(outputFolder, StreamHoldoutFileName, StreamSetNpz(stream, holdout, StreamHoldoutPatches, [StreamHoldoutStep]),
+                $"streaming held-out set: frame [{StreamHoldoutPatches},16], state [2,{StreamHoldoutPatches},12] float32, sample_rate int64 0-d"),
             Write(outputFolder, ReadmeFileName, System.Text.Encoding.UTF8.GetBytes(Readme(holdoutAccuracy)),
                 "what the setting is and what each file holds"),
         };
 
         clock.Stop();
-        return new DemoResult(files, epochs, network, calibration, holdout, holdoutAccuracy, clock.Elapsed);
+        return new DemoResult(files, epochs, network, calibration, holdout, holdoutAccuracy, clock.Elapsed, stream);
     }
 
     /// <summary>A sample set as .npz bytes: "spectrogram" float32 [count,1,16,16] and "labels" int64 [count], deflated.</summary>
@@ -73,6 +90,51 @@ internal static class HiveMonitorScenario
                 new NpyArray("labels", ElementType.Int64, [set.Count], set.Labels),
             ]);
         return buffer.ToArray();
+    }
+
+    /// <summary>
+    /// A streaming set as .npz bytes: for each of the first <paramref name="patches"/> patches and each step t,
+    /// the patch's column t as "frame" [n,16], the state the detector carries after columns 0..t-1 (from zeros)
+    /// as "state" [2,n,12] (fast memory, then slow; samples on axis 1), and "sample_rate" as a 0-d int64 constant.
+    /// </summary>
+    internal static byte[] StreamSetNpz(HiveStream stream, HiveSoundSet set, int patches, IReadOnlyList<int> steps)
+    {
+        int n = patches * steps.Count;
+        var frames = new float[n * HiveStream.Bands];
+        var state = new float[2 * n * HiveStream.Units];
+        int sample = 0;
+        for (int p = 0; p < patches; p++)
+        {
+            var patch = set.Patch(p);
+            foreach (int step in steps)
+            {
+                var fast = new float[HiveStream.Units];
+                var slow = new float[HiveStream.Units];
+                for (int t = 0; t < step; t++) (fast, slow) = stream.Step(Column(patch, t), fast, slow, HiveStream.SampleRate);
+                Column(patch, step).CopyTo(frames.AsSpan(sample * HiveStream.Bands));
+                fast.CopyTo(state.AsSpan(sample * HiveStream.Units));
+                slow.CopyTo(state.AsSpan((n + sample) * HiveStream.Units));
+                sample++;
+            }
+        }
+
+        using var buffer = new MemoryStream();
+        NpzWriter.Write(
+            buffer,
+            [
+                new NpyArray(HiveStreamExporter.FrameName, ElementType.Float32, [n, HiveStream.Bands], frames),
+                new NpyArray(HiveStreamExporter.StateName, ElementType.Float32, [2, n, HiveStream.Units], state),
+                new NpyArray(HiveStreamExporter.SampleRateName, ElementType.Int64, [], new[] { HiveStream.SampleRate }),
+            ]);
+        return buffer.ToArray();
+    }
+
+    /// <summary>Column <paramref name="frame"/> of a [1, Bands, Frames] patch: one band value per row.</summary>
+    internal static float[] Column(ReadOnlySpan<float> patch, int frame)
+    {
+        var column = new float[HiveSoundSet.Bands];
+        for (int b = 0; b < HiveSoundSet.Bands; b++) column[b] = patch[(b * HiveSoundSet.Frames) + frame];
+        return column;
     }
 
     private static DemoFile Write(string folder, string name, byte[] bytes, string contents)
@@ -117,6 +179,17 @@ internal static class HiveMonitorScenario
 
             Next: hand the model and calibration.npz to Bitbudget's plan command to choose a bit
             width for each of the four weight layers, then score the result on holdout.npz.
+
+            Streaming
+              {StreamModelFileName}    a tiny streaming swarm detector with fixed seeded weights (not
+                                  trained): it hears one column of 16 bands at a time and carries a
+                                  fast and a slow memory between calls. Inputs "frame" [batch,16],
+                                  "state" [2,batch,12] (samples on axis 1), "sample_rate" int64 scalar;
+                                  outputs "swarm_probability" [batch,1], "next_state" [2,batch,12].
+              {StreamCalibrationFileName} columns 5 and 11 of each calibration patch with the state
+                                  carried up to them ({StreamCalibrationCount} samples); sample_rate is a
+                                  0-d array, fed unchanged to every run.
+              {StreamHoldoutFileName}     column 8 of {StreamHoldoutPatches} held-out patches.
 
             """.ReplaceLineEndings("\n");
     }

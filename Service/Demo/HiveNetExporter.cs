@@ -111,7 +111,7 @@ internal static class HiveNetExporter
         return node;
     }
 
-    private static NodeProto Node(string opType, string name, string[] inputs, string output)
+    internal static NodeProto Node(string opType, string name, string[] inputs, string output)
     {
         var node = new NodeProto { OpType = opType, Name = name, Domain = string.Empty };
         node.Input.AddRange(inputs);
@@ -119,7 +119,7 @@ internal static class HiveNetExporter
         return node;
     }
 
-    private static AttributeProto IntAttribute(string name, long value) =>
+    internal static AttributeProto IntAttribute(string name, long value) =>
         new() { Name = name, Type = AttributeProto.Types.AttributeType.Int, I = value };
 
     private static AttributeProto IntsAttribute(string name, params long[] values)
@@ -129,7 +129,7 @@ internal static class HiveNetExporter
         return attribute;
     }
 
-    private static TensorProto Tensor(string name, float[] values, params long[] dims)
+    internal static TensorProto Tensor(string name, float[] values, params long[] dims)
     {
         long expected = 1;
         foreach (long d in dims)

@@ -13,6 +13,9 @@ public sealed class HiveMonitorScenarioTests(DemoFolderFixture demo)
         HiveMonitorScenario.CalibrationFileName,
         HiveMonitorScenario.HoldoutFileName,
         HiveMonitorScenario.ReadmeFileName,
+        HiveMonitorScenario.StreamModelFileName,
+        HiveMonitorScenario.StreamCalibrationFileName,
+        HiveMonitorScenario.StreamHoldoutFileName,
     ];
 
     [Fact]
