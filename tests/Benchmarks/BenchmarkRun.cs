@@ -12,8 +12,8 @@ namespace Bitbudget.Benchmarks;
 /// <summary>
 /// Measures, side by side in one process: a trial against a plain forward pass, weights-as-inputs
 /// against rebuilding a session per trial, a suffix trial against a full trial, the whole sweep
-/// against layers x bits forward passes, the knapsack on 2,000 synthetic layers x 7 choices, and peak
-/// memory. Prints ratios, which travel between machines better than absolute times.
+/// against layers x bits forward passes, a trial with per-output metrics against one with pooled
+/// metrics only, the knapsack on 2,000 synthetic layers x 7 choices, and peak memory. Prints ratios, which travel between machines better than absolute times.
 /// </summary>
 internal static class BenchmarkRun
 {
@@ -40,9 +40,14 @@ internal static class BenchmarkRun
 
         if (demo is not null)
         {
-            var model = OnnxModel.LoadFile(Directory.GetFiles(demo, "*.onnx").Single());
+            var model = OnnxModel.LoadFile(Path.Combine(demo, "hive-monitor.onnx"));
             var data = CalibrationSet.Create(DatasetReader.Read(File.ReadAllBytes(Path.Combine(demo, "calibration.npz"))), model.Inputs);
             ModelBenchmarks(model, data, repeat);
+
+            // The streaming detector: two outputs, a state on axis 1 and a constant sample rate.
+            var stream = OnnxModel.LoadFile(Path.Combine(demo, "hive-stream.onnx"));
+            var streamData = CalibrationSet.Create(DatasetReader.Read(File.ReadAllBytes(Path.Combine(demo, "stream-calibration.npz"))), stream.Inputs);
+            ModelBenchmarks(stream, streamData, repeat);
         }
 
         KnapsackBenchmark();
@@ -66,6 +71,7 @@ internal static class BenchmarkRun
         Row("forward pass, weights as inputs vs weights as constants", asInputsMs, plainMs);
         var trialMs = Timing.MedianMilliseconds(repeat, () => session.MeasureLayer(layer, setting, allowSuffix: false));
         Row("one trial (quantize, full graph, metrics) vs one plain forward pass", trialMs, plainMs);
+        PerOutputMetricsBenchmark(session, layer, setting, trialMs, repeat);
 
         // Coverage: counting the samples a trial changed is part of every sensitivity trial. Worst case: nothing
         // changed, so every output row is compared to its end.
@@ -102,6 +108,33 @@ internal static class BenchmarkRun
         var sweepMs = clock.Elapsed.TotalMilliseconds;
         Row($"whole sweep ({trials.Count} trials) vs {trials.Count} plain forward passes", sweepMs, trials.Count * plainMs);
         Console.WriteLine($"   session build {session.SessionBuildMilliseconds:0} ms; reference pass {session.ForwardPassMilliseconds:0.0} ms");
+    }
+
+    /// <summary>
+    /// What computing every metric per output (and pooling the sums) adds to a trial, against computing the
+    /// same sums pooled only: the comparison is timed both ways on one trial's outputs, and the difference is
+    /// set against the whole trial. Logit space (opt-in) is shown against linear the same way.
+    /// </summary>
+    private static void PerOutputMetricsBenchmark(TrialSession session, WeightLayer layer, LayerSetting setting, double trialMs, int repeat)
+    {
+        var outputs = session.RunFull(new Dictionary<string, float[]> { [layer.Name] = session.Quantized(layer, setting) });
+        var reference = session.ReferenceOutputs;
+        var compareReps = Math.Max(repeat, 25);
+        var perOutputMs = Timing.MedianMilliseconds(compareReps, () => OutputComparer.Compare(reference, outputs, null));
+        var pooledMs = Timing.MedianMilliseconds(compareReps, () =>
+        {
+            var sums = default(OutputSums);
+            for (var o = 0; o < reference.Count; o++)
+            {
+                sums = sums.Add(OutputComparer.CompareOutput(reference[o], outputs[o], MetricSpace.Linear));
+            }
+
+            GC.KeepAlive(sums.ToMetrics("all"));
+        });
+        Row($"trial with per-output metrics ({reference.Count} outputs) vs pooled metrics only", trialMs, trialMs - perOutputMs + pooledMs);
+        var logitMs = Timing.MedianMilliseconds(compareReps, () => OutputComparer.Compare(reference, outputs, null, MetricSpace.Logit));
+        Row("trial with metrics in logit space vs in linear space", trialMs - perOutputMs + logitMs, trialMs);
+        Console.WriteLine(string.Create(CultureInfo.InvariantCulture, $"   comparison alone: per-output {perOutputMs:0.000} ms, pooled only {pooledMs:0.000} ms, logit space {logitMs:0.000} ms"));
     }
 
     private static void PlainPass(InferenceSession session, CalibrationSet data)
