@@ -51,6 +51,38 @@ public sealed class RealEngineWalkthroughTests : IClassFixture<RealEngineFixture
     }
 
     [Fact]
+    public async Task StreamingModelSearchShowsCalibrationAndHeldOutFiguresSideBySideAndWarnsOnAMiss()
+    {
+        var modelBytes = File.ReadAllBytes(demo.PathOf(HiveMonitorScenario.StreamModelFileName));
+        var (modelId, datasetId) = await client.UploadAsync(
+            "hive-stream.onnx", modelBytes, File.ReadAllBytes(demo.PathOf(HiveMonitorScenario.StreamCalibrationFileName)));
+        var holdout = await client.PostBytesAsync("/v1/datasets", File.ReadAllBytes(demo.PathOf(HiveMonitorScenario.StreamHoldoutFileName)));
+        var holdoutId = (await holdout.JsonAsync()).GetProperty("id").GetString();
+
+        // Every output judged (the default): README's worked example, where the held-out probability misses.
+        var started = await client.StartSearchAsync(new
+        {
+            modelId, datasetId, holdoutDatasetId = holdoutId, budget = new { metric = "sqnr", atLeast = 30 }, bits = new[] { 2, 3, 4, 6, 8 },
+            sampleAxes = new Dictionary<string, int> { ["state"] = 1 },
+        });
+        var search = await WaitForEndAsync(client, started.GetProperty("id").GetString()!);
+        Assert.True(search.GetProperty("state").GetString() == "succeeded", search.ToString());
+        Assert.Equal(holdoutId, search.GetProperty("settings").GetProperty("holdoutDatasetId").GetString());
+
+        var summary = search.GetProperty("summary");
+        var held = summary.GetProperty("heldOut");
+        Assert.Equal(HiveMonitorScenario.StreamHoldoutPatches, held.GetProperty("samples").GetInt32());
+        var manifest = await (await client.GetAsync($"/v1/searches/{started.GetProperty("id").GetString()}/manifest")).JsonAsync();
+        Assert.Equal(manifest.GetProperty("heldOut").GetProperty("budgetValue").GetDouble(), held.GetProperty("measured").GetDouble(), 9);
+        Assert.Equal(manifest.GetProperty("totals").GetProperty("budgetValue").GetDouble(), summary.GetProperty("measured").GetDouble(), 9);
+        var meets = held.GetProperty("measured").GetDouble() >= 30;
+        Assert.Equal(meets, held.GetProperty("meetsBudget").GetBoolean());
+        Assert.Equal(!meets, summary.GetProperty("warnings").EnumerateArray().Any(w => w.GetString()!.StartsWith("Held-out check:", StringComparison.Ordinal)));
+        output.WriteLine(string.Create(CultureInfo.InvariantCulture,
+            $"stream: calibration {summary.GetProperty("measured").GetDouble():F2} dB, held-out {held.GetProperty("measured").GetDouble():F2} dB, warnings {summary.GetProperty("warnings").GetArrayLength()}"));
+    }
+
+    [Fact]
     public async Task OcrClassifierWalksFromUploadToAQuantizedModelThatKeepsTheMeasuredSqnr()
     {
         var modelBytes = File.ReadAllBytes(OcrModels.Classifier);
