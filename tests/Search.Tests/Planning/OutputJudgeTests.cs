@@ -55,7 +55,7 @@ public sealed class OutputJudgeTests
     public void EveryOutputIsJudgedByDefaultAndTheWorstOneDecides()
     {
         var judge = new OutputJudge(BudgetMetric.Sqnr, null);
-        var measured = new MetricSet(1e-4, 40, 1, 0, 1, null, [new OutputMetrics("p", 1e-2, 20, 1, 0, 1), new OutputMetrics("s", 1e-5, 50, 1, 0, 1)]);
+        var measured = new MetricSet(1e-4, 40, 1, 0, 1, null, Outputs: [new OutputMetrics("p", 1e-2, 20, 1, 0, 1), new OutputMetrics("s", 1e-5, 50, 1, 0, 1)]);
         var reference = new MetricSet(0, double.PositiveInfinity, 1, 0, 1, null);
 
         Assert.Equal(20, judge.Value(measured, reference));
