@@ -16,33 +16,56 @@ namespace Bitbudget.Search.Evaluation;
 public sealed record SearchMemoryEstimate(long Bytes, long PerSampleBytes, long FixedBytes, long Samples)
 {
     /// <param name="heldBytes">Bytes the caller holds for the whole search besides (e.g. the dataset file read whole).</param>
-    public static SearchMemoryEstimate Of(OnnxModel model, IReadOnlyList<NpyArrayInfo> arrays, long activationCacheBytes, long heldBytes = 0)
+    /// <param name="sampleAxes">Sample axes given outright, by input name; the others follow <see cref="CalibrationSet"/>'s rule, and an
+    /// array of its input's whole fixed shape is a constant, held once rather than per sample.</param>
+    public static SearchMemoryEstimate Of(OnnxModel model, IReadOnlyList<NpyArrayInfo> arrays, long activationCacheBytes, long heldBytes = 0, IReadOnlyDictionary<string, int>? sampleAxes = null)
     {
         ArgumentNullException.ThrowIfNull(model);
         ArgumentNullException.ThrowIfNull(arrays);
-        long samples = arrays.Count == 0 ? 0 : arrays.Max(a => a.SampleCount);
-        double perSample = 0;
-        foreach (var array in arrays)
+        var inputs = arrays.Select(array => model.Inputs.FirstOrDefault(i => i.Name == array.Name) ?? (model.Inputs.Count == 1 && array.Name == DatasetReader.SingleArrayName ? model.Inputs[0] : null)).ToList();
+        var constant = arrays.Select((array, k) => inputs[k] is { } input && sampleAxes?.ContainsKey(input.Name) != true
+            && array.Shape.Count == input.Shape.Count && input.Shape.Select((d, a) => d is > 0 && array.Shape[a] == d).All(x => x)).ToList();
+        if (constant.Where((_, k) => inputs[k] is not null).All(c => c))
         {
-            var perArraySample = array.SampleCount > 0 ? array.ByteCount / (double)array.SampleCount : 0;
-            perSample += perArraySample;
-            var input = model.Inputs.FirstOrDefault(i => i.Name == array.Name) ?? (model.Inputs.Count == 1 && array.Name == DatasetReader.SingleArrayName ? model.Inputs[0] : null);
+            // Every array of its input's whole shape: one run of samples, not constants (CalibrationSet's rule).
+            constant = constant.Select((_, k) => inputs[k] is { Shape.Count: 0 }).ToList();
+        }
+
+        long samples = 0;
+        double perSample = 0, constantBytes = 0;
+        for (var k = 0; k < arrays.Count; k++)
+        {
+            var array = arrays[k];
+            var input = inputs[k];
+            if (constant[k])
+            {
+                constantBytes += array.ByteCount;
+                continue;
+            }
+
+            // A labels array or a sampled input: its samples lie along its input's sample axis (0 without an input).
+            var axis = input is null ? 0 : CalibrationSet.DefaultSampleAxis(input, sampleAxes) ?? 0;
+            var count = axis < array.Shape.Count ? array.Shape[axis] : array.SampleCount;
+            samples = Math.Max(samples, count);
+            perSample += count > 0 ? array.ByteCount / (double)count : 0;
             if (input is { ElementType: ElementType.Float32 } && array.ElementType is ElementType.Float16 or ElementType.Float64)
             {
-                var elements = array.Shape.Skip(1).Aggregate(1.0, (p, d) => p * d);
+                var elements = array.Shape.Where((_, a) => a != axis).Aggregate(1.0, (p, d) => p * d);
                 perSample += elements * sizeof(float);
             }
         }
 
         foreach (var output in model.Outputs)
         {
-            // Reference outputs plus the outputs of the trial being compared with them, FP32.
-            var elements = output.Shape.Skip(1).Aggregate(1.0, (p, d) => p * (d is > 0 ? d.Value : 1));
+            // Reference outputs plus the outputs of the trial being compared with them, FP32. With one dynamic
+            // axis (the batch, wherever it is) a sample holds every fixed axis; otherwise axis 0 is taken as the batch.
+            var dynamicAxes = output.Shape.Count(d => d is not > 0);
+            var elements = (dynamicAxes == 1 ? output.Shape : output.Shape.Skip(1)).Aggregate(1.0, (p, d) => p * (d is > 0 ? d.Value : 1));
             perSample += 2 * elements * sizeof(float);
         }
 
         var weights = model.Layers.Sum(l => (double)l.ParameterCount) * sizeof(float) * 3;
-        var fixedBytes = weights + activationCacheBytes + heldBytes;
+        var fixedBytes = weights + activationCacheBytes + heldBytes + constantBytes;
         var total = fixedBytes + (perSample * samples);
         return new SearchMemoryEstimate(Clamp(total), Clamp(Math.Ceiling(perSample)), Clamp(fixedBytes), samples);
     }

@@ -45,7 +45,7 @@ internal sealed class EngineAdapter(IOptions<BitbudgetOptions> options) : ISearc
         var loaded = OnnxModel.Load(model, "model", targetOpset);
         var headers = DatasetReader.Inspect(dataset, Limits, verifyData: false);
         // The job reads the dataset file whole before decoding it, so its size counts beside the estimate.
-        SearchMemoryEstimate.Of(loaded, headers, new TrialSessionOptions().MaxCachedActivationBytes, heldBytes: dataset.Length)
+        SearchMemoryEstimate.Of(loaded, headers, new TrialSessionOptions().MaxCachedActivationBytes, heldBytes: dataset.Length, sampleAxes: sampleAxes)
             .Check(options.Value.MaxSearchMemoryBytes, "Bitbudget:MaxSearchMemoryBytes");
         dataset.Position = 0;
         CalibrationSet.Create(DatasetReader.Read(dataset, Limits), loaded.Inputs, sampleAxes);

@@ -30,6 +30,29 @@ public sealed class SearchMemoryEstimateTests
     }
 
     [Fact]
+    public void AStateOnAxisOneCountsPerSampleAlongItsAxisAndAScalarConstantOnce()
+    {
+        // Streaming model: frame [n,8], state [2,n,6] (samples on axis 1), rate a 0-d int64 constant; outputs probability
+        // [n,1] and next_state [2,n,6]; layers 8x6 + 6x6 + 6x1 = 90 parameters.
+        var model = StreamingData.Model();
+        const long n = 10_000;
+        var estimate = SearchMemoryEstimate.Of(
+            model,
+            [
+                new NpyArrayInfo("frame", ElementType.Float32, [n, 8], n * 8 * 4),
+                new NpyArrayInfo("state", ElementType.Float32, [2, n, 6], 2 * n * 6 * 4),
+                new NpyArrayInfo("rate", ElementType.Int64, [], 8),
+            ],
+            Cache);
+
+        // Per sample: 32 + 48 bytes of inputs, 2 x (1 + 12) float32 outputs = 104 bytes; read along axis 0 the state
+        // would have counted as 2 samples of 240,000 bytes each.
+        Assert.Equal(n, estimate.Samples);
+        Assert.Equal(32 + 48 + 104, estimate.PerSampleBytes);
+        Assert.Equal(Cache + (90 * 4 * 3) + 8, estimate.FixedBytes);
+    }
+
+    [Fact]
     public void RefusalSaysHowManySamplesFitAndThatManyDo()
     {
         var model = SmallModels.Mlp();
