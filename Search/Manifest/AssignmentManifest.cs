@@ -23,8 +23,8 @@ public sealed record AssignmentManifest(
     IReadOnlyList<ManifestSkipped>? Skipped = null,
     ManifestHeldOut? HeldOut = null)
 {
-    /// <summary>The version this code writes (2: per-output metrics, budgets judged per output, held-out check, warnings).</summary>
-    public const int CurrentFormatVersion = 2;
+    /// <summary>The version this code writes (2: per-output metrics, budgets judged per output, held-out check, warnings; 3: sizes are the written file's, storage rule, modelFileBytes).</summary>
+    public const int CurrentFormatVersion = 3;
 }
 
 /// <summary>The model searched.</summary>
@@ -59,15 +59,23 @@ public sealed record ManifestSettings(
     IReadOnlyDictionary<string, int> Pins,
     IReadOnlyList<string> Excluded,
     IReadOnlyList<string>? Outputs = null,
-    string MetricSpace = "linear");
+    string MetricSpace = "linear",
+    string Storage = "container");
 
 /// <summary>The budget: an error bound on <see cref="Metric"/> (AtLeast or AtMost) or a size bound (Bytes or AverageBits).</summary>
 public sealed record ManifestBudget(string Kind, string Metric, double? AtLeast, double? AtMost, long? Bytes, double? AverageBits, string AdditiveModel);
 
 /// <summary>Whether the budget was met, and one sentence saying how.</summary>
-public sealed record ManifestOutcome(bool Feasible, string Message, int ValidationRounds);
+/// <param name="StorageNote">What the storage rule closed off (widths that save nothing, smaller choices with packed storage or opset 21); null when nothing.</param>
+public sealed record ManifestOutcome(bool Feasible, string Message, int ValidationRounds, string? StorageNote = null);
 
 /// <summary>Totals of the chosen assignment.</summary>
+/// <param name="Bytes">Predicted size of the model file, counted by <paramref name="Storage"/>.</param>
+/// <param name="Float32Bytes">Size of the model file with every weight in FP32 (BatchNormalization folded).</param>
+/// <param name="Compression"><paramref name="Float32Bytes"/> over <paramref name="ModelFileBytes"/>, the written file.</param>
+/// <param name="Storage">"container" (what the export writes at the model's opset) or "packed" (ideal packed bits).</param>
+/// <param name="ModelFileBytes">Size of the written quantized model file.</param>
+/// <param name="PredictedCompression"><paramref name="Float32Bytes"/> over <paramref name="Bytes"/>.</param>
 /// <param name="Predicted">The budget metric as the additive model predicts it; null when infinite (SQNR of an assignment with no predicted error, e.g. every layer kept FP32).</param>
 /// <param name="Measured">Every metric, measured end to end (pooled over outputs, and per output).</param>
 /// <param name="BudgetValue">The budget metric as judged: the worst judged output's value; null when infinite.</param>
@@ -80,7 +88,10 @@ public sealed record ManifestTotals(
     double? Predicted,
     ManifestMetrics Measured,
     double? BudgetValue = null,
-    string? BindingOutput = null);
+    string? BindingOutput = null,
+    string Storage = "container",
+    long? ModelFileBytes = null,
+    double PredictedCompression = 0);
 
 /// <summary>The chosen assignment run on a second, held-out dataset, beside the calibration figures.</summary>
 /// <param name="Samples">Samples in the held-out set.</param>
@@ -153,5 +164,5 @@ public sealed record ManifestActivation(string Consumer, string Tensor, float Sc
 public sealed record ManifestSensitivity(int Bits, long Bytes, double AdditiveError, ManifestMetrics Metrics);
 
 /// <summary>How the quantized model was written.</summary>
-/// <param name="Format">"qdq" (integer weights with DequantizeLinear) or "fake-quantized" (FP32 weights snapped to the grid).</param>
+/// <param name="Format">"qdq": integer weight initializers turned into FP32 by DequantizeLinear or, where the opset lacks it, by Cast/Sub/Mul.</param>
 public sealed record ManifestExport(string Format, long Opset, string? Note);

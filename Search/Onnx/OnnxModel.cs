@@ -72,6 +72,24 @@ public sealed class OnnxModel
     /// <summary>The normalised model.</summary>
     internal P.ModelProto Proto { get; }
 
+    /// <summary>Size of the normalised model written with every weight in FP32 (BatchNormalization folded), in bytes.</summary>
+    public long Float32FileBytes => Proto.CalculateSize();
+
+    /// <summary>
+    /// Bytes of the normalised model file that no layer weight takes: graph structure, biases and every other
+    /// tensor, which the export writes unchanged. Exact up to the few bytes of the graph's length prefix.
+    /// </summary>
+    public long OtherFileBytes => Float32FileBytes - Layers.Sum(Float32EntryBytes);
+
+    /// <summary>Bytes a layer's FP32 weight takes in the normalised file: its initializer and, for old IR versions, its graph-input entry.</summary>
+    public long Float32EntryBytes(WeightLayer layer)
+    {
+        ArgumentNullException.ThrowIfNull(layer);
+        var tensor = weightTensors[layer.Name];
+        var listed = Proto.Graph.Input.FirstOrDefault(i => i.Name == layer.WeightName);
+        return WeightStorage.EntryBytes(tensor) + (listed is null ? 0 : WeightStorage.EntryBytes(listed));
+    }
+
     /// <summary>
     /// Reads, checks and normalises a model; throws <see cref="EngineException"/> for anything the engine cannot quantize.
     /// With <paramref name="targetOpset"/>, the graph is first raised to that standard opset (see <see cref="OpsetRaiser"/>),

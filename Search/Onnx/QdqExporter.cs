@@ -5,24 +5,22 @@ using Onnx;
 namespace Bitbudget.Search.Onnx;
 
 /// <summary>
-/// Writes the quantized model in the ONNX QDQ form: each quantized weight becomes an integer
-/// initializer with its scale and zero point, and a DequantizeLinear node that yields the FP32
-/// weight the layer reads. Storage follows the ONNX operator set: per-axis DequantizeLinear needs
-/// opset 13, 4-bit integer types need opset 21, and the model's opset is never raised (raising it
-/// changes the meaning of other operators). Widths without their own type (3, 5, 6, 7 bits) are
-/// stored in the next wider type with the narrower range. A model whose opset is too old gets its
-/// weights snapped to the grid in FP32 instead, with a note saying why.
+/// Writes the quantized model with integer weights at the model's own opset: each quantized weight becomes an
+/// integer initializer with its scale (and, asymmetric, zero point) and standard operators that yield the FP32
+/// weight the layer reads (<see cref="WeightStorage"/> decides the form: DequantizeLinear where the opset has it,
+/// Cast/Sub/Mul below that). The model's opset is never raised here (raising it changes the meaning of other
+/// operators). Widths without their own type (3, 5, 6, 7 bits) are stored in the next wider type with the narrower range.
 /// </summary>
 public static class QdqExporter
 {
     /// <summary>First opset with DequantizeLinear.</summary>
-    public const long PerTensorOpset = 10;
+    public const long PerTensorOpset = WeightStorage.DequantizeOpset;
 
     /// <summary>First opset with the axis attribute of DequantizeLinear.</summary>
-    public const long PerAxisOpset = 13;
+    public const long PerAxisOpset = WeightStorage.PerAxisOpset;
 
     /// <summary>First opset with INT4/UINT4.</summary>
-    public const long Int4Opset = 21;
+    public const long Int4Opset = WeightStorage.Int4Opset;
 
     /// <summary>The ONNX Runtime session option that sets how a fused DequantizeLinear+MatMul computes.</summary>
     public const string MatMulAccuracyOption = "session.qdq_matmulnbits_accuracy_level";
@@ -33,7 +31,7 @@ public static class QdqExporter
     /// (observed with Microsoft.ML.OnnxRuntime 1.31; see QdqExporterTests).
     /// </summary>
     public const string MatMulNote =
-        "MatMul weights are stored as DequantizeLinear+MatMul. ONNX Runtime on CPU fuses that pair and, at its default accuracy level, " +
+        "MatMul weights (and Gemm weights read untransposed) are stored behind DequantizeLinear. ONNX Runtime on CPU fuses that pair and, at its default accuracy level, " +
         "also quantizes the MatMul's activations to 8 bits, which adds error beyond what was measured here (weights only). " +
         "To run as measured, set the session option " + MatMulAccuracyOption + "=1; otherwise re-measure with your runtime's settings.";
 
@@ -59,22 +57,11 @@ public static class QdqExporter
             throw new EngineException("settings-invalid", ActivationQuantization.OpsetMessage(model.Opset));
         }
 
-        var needsPerAxis = assignment.Values.Any(s => BitWidths.IsInteger(s.Bits) && s.Granularity == Granularity.PerChannel);
-        var required = needsPerAxis ? PerAxisOpset : PerTensorOpset;
-        if (assignment.Values.Any(s => BitWidths.IsInteger(s.Bits)) && model.Opset < required)
-        {
-            var note = $"The model's opset is {model.Opset}; QDQ with {(needsPerAxis ? "per-channel scales" : "DequantizeLinear")} needs opset {required}. " +
-                "The opset is not raised automatically because other operators change meaning across versions, so the weights are written in FP32, snapped to the quantization grid.";
-            var snapped = assignment.ToDictionary(
-                p => p.Key,
-                p => Snap(model, p.Key, p.Value),
-                StringComparer.Ordinal);
-            return new ExportedModel(model.BuildWithWeights(snapped), "fake-quantized", model.Opset, note);
-        }
-
         var proto = model.Proto.Clone();
         var graph = proto.Graph;
         var dequantizers = new List<NodeProto>();
+        var forms = new HashSet<string>(StringComparer.Ordinal);
+        var dequantized = new HashSet<string>(StringComparer.Ordinal);
         foreach (var layer in model.Layers)
         {
             if (!assignment.TryGetValue(layer.Name, out var setting) || setting.Bits == BitWidths.Float32)
@@ -82,49 +69,38 @@ public static class QdqExporter
                 continue;
             }
 
-            var index = FindInitializer(graph, layer.WeightName);
             var weight = model.GetWeight(layer);
-            graph.Initializer.RemoveAt(index);
-            if (setting.Bits == BitWidths.Float16)
+            graph.Initializer.RemoveAt(FindInitializer(graph, layer.WeightName));
+
+            // Old IR versions list initializers among the graph inputs; the weight is now computed, not fed.
+            var listed = graph.Input.FirstOrDefault(i => i.Name == layer.WeightName);
+            if (listed is not null)
             {
-                graph.Initializer.Add(HalfTensor(layer.WeightName + "_fp16", layer.Shape, weight));
-                dequantizers.Add(CastToFloat(layer));
-                continue;
+                graph.Input.Remove(listed);
             }
 
             var q = WeightQuantizer.Quantize(weight, layer.Shape, layer.ChannelAxis, setting);
-            var type = StorageType(setting, model.Opset);
-            if (type == TensorProto.Types.DataType.Int8 && quantizedActivations.Any(a => a.Layer == layer.Name))
+            var shifted = false;
+            if (setting.Bits != BitWidths.Float16 && StorageType(setting, model.Opset) == TensorProto.Types.DataType.Int8 && quantizedActivations.Any(a => a.Layer == layer.Name))
             {
                 // With uint8 activations ONNX Runtime fuses the QDQ pairs into integer kernels. On x86 CPUs
                 // without VNNI its uint8 x int8 kernel sums pairs of products in 16 bits and saturates
                 // (measured: relative MSE 1.05e-3 against the trial on an AVX2-only EPYC); its uint8 x uint8
                 // kernel widens first and matches the trial to 1e-14. Same values, unsigned storage.
                 q = q.ShiftedToUnsigned();
-                type = TensorProto.Types.DataType.Uint8;
+                shifted = true;
             }
 
-            graph.Initializer.Add(IntegerTensor(layer.WeightName + "_quantized", layer.Shape, q.Levels, type));
-            var perAxis = q.Axis >= 0;
-            long[] paramShape = perAxis ? [q.Scales.Length] : [];
-            var scale = new TensorProto { Name = layer.WeightName + "_scale", DataType = (int)TensorProto.Types.DataType.Float };
-            scale.Dims.AddRange(paramShape);
-            scale.FloatData.AddRange(q.Scales);
-            graph.Initializer.Add(scale);
-            graph.Initializer.Add(IntegerTensor(layer.WeightName + "_zero_point", paramShape, q.ZeroPoints, type));
-            var node = new NodeProto
+            var stored = setting.Bits == BitWidths.Float16
+                ? WeightStorage.Half(layer, weight)
+                : WeightStorage.Integer(layer, q, model.Opset, shifted);
+            graph.Initializer.AddRange(stored.Initializers);
+            dequantizers.AddRange(stored.Nodes);
+            forms.Add(stored.Form);
+            if (stored.Form == WeightStorage.DequantizeForm)
             {
-                Name = layer.Name + "/dequantize",
-                OpType = "DequantizeLinear",
-                Input = { layer.WeightName + "_quantized", layer.WeightName + "_scale", layer.WeightName + "_zero_point" },
-                Output = { layer.WeightName },
-            };
-            if (perAxis)
-            {
-                node.Attribute.Add(new AttributeProto { Name = "axis", Type = AttributeProto.Types.AttributeType.Int, I = q.Axis });
+                dequantized.Add(layer.WeightName);
             }
-
-            dequantizers.Add(node);
         }
 
         ActivationQdq.Insert(graph, quantizedActivations, switched: false);
@@ -135,32 +111,42 @@ public static class QdqExporter
             graph.Node.Insert(0, dequantizers[i]);
         }
 
-        // A table tied to an output MatMul is a Gather layer that a MatMul also reads: look at the readers, not the op.
-        var integerWeights = model.Layers.Where(l => assignment.TryGetValue(l.Name, out var s) && BitWidths.IsInteger(s.Bits)).Select(l => l.WeightName).ToHashSet(StringComparer.Ordinal);
-        var quantizedMatMul = ModelChecks.AllGraphs(graph).SelectMany(g => g.Node).Any(n => n.OpType == "MatMul" && n.Input.Any(integerWeights.Contains));
-        return new ExportedModel(proto.ToByteArray(), "qdq", model.Opset, quantizedMatMul ? MatMulNote : null);
-    }
-
-    /// <summary>The integer type a setting is stored in at a given opset.</summary>
-    public static TensorProto.Types.DataType StorageType(LayerSetting setting, long opset)
-    {
-        var signed = setting.Scheme == QuantizationScheme.Symmetric;
-        if (setting.Bits <= 4 && opset >= Int4Opset)
+        // ONNX Runtime fuses DequantizeLinear into the MatMul (or untransposed Gemm) that reads it. A table tied to an
+        // output MatMul is a Gather layer that a MatMul also reads: look at the readers, not the layer's op.
+        var dequantizedMatMul = ModelChecks.AllGraphs(graph).SelectMany(g => g.Node).Any(n => FusedByRuntime(n, dequantized));
+        var notes = new List<string>();
+        if (forms.Contains(WeightStorage.ScaleMultiplyForm))
         {
-            return signed ? TensorProto.Types.DataType.Int4 : TensorProto.Types.DataType.Uint4;
+            notes.Add(ScaleMultiplyNote(model.Opset));
         }
 
-        return signed ? TensorProto.Types.DataType.Int8 : TensorProto.Types.DataType.Uint8;
+        if (dequantizedMatMul)
+        {
+            notes.Add(MatMulNote);
+        }
+
+        return new ExportedModel(proto.ToByteArray(), "qdq", model.Opset, notes.Count == 0 ? null : string.Join(" ", notes));
     }
 
-    private static float[] Snap(OnnxModel model, string layerName, LayerSetting setting)
+    /// <summary>What the export note says when some weights are dequantized by Cast/Sub/Mul rather than DequantizeLinear.</summary>
+    public static string ScaleMultiplyNote(long opset) =>
+        $"The model's opset is {opset}, which has no {(opset < PerTensorOpset ? "DequantizeLinear" : "per-axis DequantizeLinear")}; " +
+        "those weights are stored as 8-bit integers and turned into FP32 by Cast, Sub (zero point, asymmetric only) and Mul (scale per channel), " +
+        "which gives s (q - z) exactly. The opset was not raised, because other operators change meaning across versions.";
+
+    /// <summary>
+    /// Nodes whose DequantizeLinear input ONNX Runtime's CPU provider fuses into a MatMul kernel: MatMul, and Gemm reading
+    /// B untransposed, which it rewrites to MatMul (observed with Microsoft.ML.OnnxRuntime 1.31; see WeightStorageTests).
+    /// </summary>
+    private static bool FusedByRuntime(NodeProto node, IReadOnlySet<string> dequantized) => node.OpType switch
     {
-        var layer = model.Layers.First(l => l.Name == layerName);
-        var weight = model.GetWeight(layer);
-        var snapped = new float[weight.Length];
-        WeightQuantizer.FakeQuantize(weight, layer.Shape, layer.ChannelAxis, setting, snapped);
-        return snapped;
-    }
+        "MatMul" => node.Input.Any(dequantized.Contains),
+        "Gemm" => node.Input.Count > 1 && dequantized.Contains(node.Input[1]) && !node.Attribute.Any(a => a.Name == "transB" && a.I == 1),
+        _ => false,
+    };
+
+    /// <summary>The integer type a setting is stored in at a given opset.</summary>
+    public static TensorProto.Types.DataType StorageType(LayerSetting setting, long opset) => WeightStorage.IntegerType(setting, opset);
 
     private static int FindInitializer(GraphProto graph, string name)
     {
@@ -174,55 +160,4 @@ public static class QdqExporter
 
         throw new InvalidOperationException($"The normalised model has no initializer '{name}'.");
     }
-
-    private static TensorProto IntegerTensor(string name, IReadOnlyList<long> shape, ReadOnlySpan<int> values, TensorProto.Types.DataType type)
-    {
-        var tensor = new TensorProto { Name = name, DataType = (int)type };
-        tensor.Dims.AddRange(shape);
-        byte[] raw;
-        if (type is TensorProto.Types.DataType.Int4 or TensorProto.Types.DataType.Uint4)
-        {
-            // ONNX packs 4-bit values two to a byte, the first element in the low nibble.
-            raw = new byte[(values.Length + 1) / 2];
-            for (var i = 0; i < values.Length; i++)
-            {
-                var nibble = (byte)(values[i] & 0x0F);
-                raw[i / 2] |= (byte)((i & 1) == 0 ? nibble : nibble << 4);
-            }
-        }
-        else
-        {
-            raw = new byte[values.Length];
-            for (var i = 0; i < values.Length; i++)
-            {
-                raw[i] = unchecked((byte)values[i]);
-            }
-        }
-
-        tensor.RawData = ByteString.CopyFrom(raw);
-        return tensor;
-    }
-
-    private static TensorProto HalfTensor(string name, IReadOnlyList<long> shape, ReadOnlySpan<float> values)
-    {
-        var tensor = new TensorProto { Name = name, DataType = (int)TensorProto.Types.DataType.Float16 };
-        tensor.Dims.AddRange(shape);
-        var raw = new byte[values.Length * 2];
-        for (var i = 0; i < values.Length; i++)
-        {
-            BitConverter.TryWriteBytes(raw.AsSpan(i * 2), BitConverter.HalfToUInt16Bits((Half)values[i]));
-        }
-
-        tensor.RawData = ByteString.CopyFrom(raw);
-        return tensor;
-    }
-
-    private static NodeProto CastToFloat(WeightLayer layer) => new()
-    {
-        Name = layer.Name + "/to_float",
-        OpType = "Cast",
-        Input = { layer.WeightName + "_fp16" },
-        Output = { layer.WeightName },
-        Attribute = { new AttributeProto { Name = "to", Type = AttributeProto.Types.AttributeType.Int, I = (long)TensorProto.Types.DataType.Float } },
-    };
 }

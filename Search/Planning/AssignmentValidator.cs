@@ -107,8 +107,8 @@ internal sealed class AssignmentValidator(
 
     public SearchDecision MeetSizeBudget(SizeBudget budget, SearchMethod method)
     {
-        var maxBytes = budget.Bytes ?? (long)Math.Floor(budget.AverageBits!.Value * problem.TotalParameters / 8.0);
-        var available = maxBytes - problem.ExcludedBytes;
+        var maxBytes = budget.Bytes ?? problem.TotalBytesForAverageBits(budget.AverageBits!.Value);
+        var available = maxBytes - problem.ExcludedBytes - problem.OtherBytes;
         var selection = available <= 0
             ? null
             : method == SearchMethod.Knapsack
@@ -116,7 +116,7 @@ internal sealed class AssignmentValidator(
                 : GreedySolver.MinimumError(problem.Layers, available);
         if (selection is null || problem.TotalBytes(selection) > maxBytes)
         {
-            var smallest = problem.ExcludedBytes + problem.Layers.Sum(l => l.Choices.Min(c => c.Bytes));
+            var smallest = problem.ExcludedBytes + problem.OtherBytes + problem.Layers.Sum(l => l.Choices.Min(c => c.Bytes));
             var message = $"Infeasible: the smallest assignment the candidates allow is {FormatBytes(smallest)}; the budget allows {FormatBytes(maxBytes)}. Add a lower candidate bit width or raise the size budget.";
             return new SearchDecision(false, message, null, _rounds, 0);
         }

@@ -3,8 +3,10 @@ using Bitbudget.Search.Quantization;
 namespace Bitbudget.Search.Planning;
 
 /// <summary>
-/// Storage cost of weights at a bit width: the packed integer payload plus its scales and zero points,
-/// or 2 / 4 bytes per parameter for FP16 / FP32. All results are in bytes unless named otherwise.
+/// Storage arithmetic of weights, in bytes unless named otherwise. <see cref="LayerBytes"/> is the ideal packed
+/// count (b bits per weight plus scales and zero points); what a search plans with is <see cref="ModelSizer"/>,
+/// which counts what the export writes (container widths, scales, zero points, nodes) or, under
+/// <see cref="StorageRule.Packed"/>, this packed payload in place of the container.
 /// </summary>
 public static class CostModel
 {
@@ -65,6 +67,9 @@ public static class CostModel
 
         return checked(payload + overhead);
     }
+
+    /// <summary>Bytes of <paramref name="parameters"/> values of <paramref name="bits"/> bits each, packed: ceil(parameters x bits / 8).</summary>
+    public static long PayloadBytes(long parameters, int bits) => checked((parameters * bits) + 7) / 8;
 
     /// <summary>Bytes of a weight kept in FP32 (4 per parameter).</summary>
     public static long Float32Bytes(long parameters) => checked(parameters * 4);

@@ -6,9 +6,10 @@ namespace Bitbudget.Search.Planning;
 
 /// <summary>
 /// The search as a multiple-choice knapsack: for each searched layer, its candidate settings with
-/// their bytes (cost model) and additive error (from its sensitivity trial). Excluded layers stay
-/// FP32 and only add bytes. A layer the calibration set does not reach (<see cref="LayerCoverage"/>) is
-/// planned with its highest candidate only, while its other measured candidates stay in the report.
+/// the bytes they take in the written file (<see cref="ModelSizer"/>) and additive error (from its
+/// sensitivity trial). Excluded layers stay FP32 and, with the rest of the file, only add bytes. A layer the
+/// calibration set does not reach (<see cref="LayerCoverage"/>) is planned with its highest candidate only,
+/// while its other measured candidates stay in the report.
 /// </summary>
 internal sealed class PlanningProblem
 {
@@ -19,7 +20,8 @@ internal sealed class PlanningProblem
         IReadOnlyList<PlanningLayer> candidates,
         IReadOnlyList<LayerCoverage> coverage,
         IReadOnlyList<WeightLayer> excluded,
-        IReadOnlyDictionary<string, MetricSet> sensitivity)
+        IReadOnlyDictionary<string, MetricSet> sensitivity,
+        ModelSizer sizer)
     {
         Candidates = candidates;
         Coverage = coverage;
@@ -33,9 +35,13 @@ internal sealed class PlanningProblem
         Layers = layers;
         Excluded = excluded;
         Sensitivity = sensitivity;
-        ExcludedBytes = excluded.Sum(l => CostModel.LayerBytes(l.ParameterCount, l.Channels, BitWidths.Float32, settings.Scheme, settings.Granularity));
+        Sizer = sizer;
+        ExcludedBytes = excluded.Sum(l => sizer.LayerBytes(l, LayerSetting.KeepFloat32));
         TotalParameters = searched.Sum(l => l.ParameterCount) + excluded.Sum(l => l.ParameterCount);
     }
+
+    /// <summary>How bytes are counted.</summary>
+    public ModelSizer Sizer { get; }
 
     public SearchSettings Settings { get; }
 
@@ -62,17 +68,23 @@ internal sealed class PlanningProblem
     /// <summary>Sensitivity trial metrics by trial key.</summary>
     public IReadOnlyDictionary<string, MetricSet> Sensitivity { get; }
 
+    /// <summary>Bytes of the excluded layers' FP32 weights in the file.</summary>
     public long ExcludedBytes { get; }
+
+    /// <summary>Bytes of the file no choice changes (graph, biases, other tensors).</summary>
+    public long OtherBytes => Sizer.OtherBytes;
 
     public long TotalParameters { get; }
 
-    public long Float32Bytes => TotalParameters * 4;
+    /// <summary>Size of the model file with every weight FP32.</summary>
+    public long Float32Bytes => Sizer.Float32FileBytes;
 
     public static PlanningProblem Build(
         OnnxModel model,
         SearchSettings settings,
         MetricSet reference,
         IReadOnlyDictionary<string, TrialRecord> sweep,
+        ModelSizer sizer,
         int? samples = null)
     {
         var metric = settings.Budget switch
@@ -91,7 +103,7 @@ internal sealed class PlanningProblem
             SensitivitySweep.CandidateBits(layer, settings).Select(bits =>
             {
                 var setting = SensitivitySweep.SettingFor(bits, settings);
-                var bytes = CostModel.LayerBytes(layer.ParameterCount, layer.Channels, bits, settings.Scheme, settings.Granularity);
+                var bytes = sizer.LayerBytes(layer, setting);
                 var error = bits == BitWidths.Float32
                     ? 0
                     : judge.ToAdditive(sensitivity[TrialKeys.Sensitivity(layer.Name, setting, SensitivitySweep.ActivationsFor(settings))], reference);
@@ -106,7 +118,7 @@ internal sealed class PlanningProblem
                 .ToList();
             return LayerCoverage.Judge(layer.Name, changed, count, widths.Max());
         }).ToList();
-        return new PlanningProblem(settings, judge, searched, layers, coverage, excluded, sensitivity);
+        return new PlanningProblem(settings, judge, searched, layers, coverage, excluded, sensitivity, sizer);
     }
 
     /// <summary>The assignment a selection stands for, by layer name.</summary>
@@ -148,6 +160,12 @@ internal sealed class PlanningProblem
         return new Selection(index, bytes, error);
     }
 
-    /// <summary>Total weight bytes of a selection, excluded layers included.</summary>
-    public long TotalBytes(Selection selection) => selection.Bytes + ExcludedBytes;
+    /// <summary>Predicted size of the model file under a selection: its layers, the excluded layers and everything else.</summary>
+    public long TotalBytes(Selection selection) => selection.Bytes + ExcludedBytes + OtherBytes;
+
+    /// <summary>Stored bits per quantizable weight for a file of <paramref name="totalBytes"/>: the layers' bytes (scales, zero points and nodes included) x 8 / parameters.</summary>
+    public double AverageBits(long totalBytes) => (totalBytes - OtherBytes) * 8.0 / TotalParameters;
+
+    /// <summary>The largest file size whose layers average at most <paramref name="averageBits"/> bits per weight.</summary>
+    public long TotalBytesForAverageBits(double averageBits) => (long)Math.Floor(averageBits * TotalParameters / 8.0) + OtherBytes;
 }

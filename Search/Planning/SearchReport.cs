@@ -22,7 +22,8 @@ internal sealed class SearchReport(
     OpsetRaiseComparison? raiseCheck,
     IReadOnlyDictionary<string, int?> outputAxes,
     HeldOutCheck? heldOut,
-    IReadOnlyList<string> warnings)
+    IReadOnlyList<string> warnings,
+    string? storageNote = null)
 {
     /// <summary>Most frontier points written; a longer frontier is thinned evenly (its ends kept).</summary>
     public const int MaxFrontierPoints = 400;
@@ -49,7 +50,10 @@ internal sealed class SearchReport(
             [.. Warnings(), .. warnings],
             heldOut?.Samples,
             heldOutValue,
-            heldOut is not null && settings.Budget is ErrorBudget error ? problem.Judge.Meets(error.Limit, heldOut.Measured, heldOut.Reference) : null);
+            heldOut is not null && settings.Budget is ErrorBudget error ? problem.Judge.Meets(error.Limit, heldOut.Measured, heldOut.Reference) : null,
+            exported?.FileBytes,
+            Wire(settings.Storage),
+            storageNote);
     }
 
     public AssignmentManifest BuildManifest(DateTimeOffset createdAt)
@@ -60,12 +64,15 @@ internal sealed class SearchReport(
         ManifestTotals? totals = chosen is null ? null : new ManifestTotals(
             chosen.Bytes,
             problem.Float32Bytes,
-            chosen.Bytes * 8.0 / problem.TotalParameters,
-            problem.Float32Bytes / (double)chosen.Bytes,
+            problem.AverageBits(chosen.Bytes),
+            problem.Float32Bytes / (double)(exported?.FileBytes ?? chosen.Bytes),
             Finite(AdditiveError.FromAdditive(metric, chosen.PredictedAdditive, reference)),
             Metrics(chosen.Measured),
             Finite(problem.Judge.Value(chosen.Measured, reference)),
-            problem.Judge.Binding(chosen.Measured)?.Name);
+            problem.Judge.Binding(chosen.Measured)?.Name,
+            Wire(settings.Storage),
+            exported?.FileBytes,
+            problem.Float32Bytes / (double)chosen.Bytes);
         ManifestHeldOut? held = heldOut is null ? null : new ManifestHeldOut(
             heldOut.Samples,
             Finite(problem.Judge.Value(heldOut.Measured, heldOut.Reference)),
@@ -92,9 +99,10 @@ internal sealed class SearchReport(
                 new SortedDictionary<string, int>((settings.Pins ?? new Dictionary<string, int>()).ToDictionary(), StringComparer.Ordinal),
                 (settings.Excluded ?? []).Order(StringComparer.Ordinal).ToList(),
                 settings.Outputs is { Count: > 0 } judged ? judged.ToList() : model.Outputs.Select(o => o.Name).ToList(),
-                Wire(settings.MetricSpace)),
+                Wire(settings.MetricSpace),
+                Wire(settings.Storage)),
             Budget(),
-            new ManifestOutcome(decision.Feasible, decision.Message, decision.Rounds.Count),
+            new ManifestOutcome(decision.Feasible, decision.Message, decision.Rounds.Count, storageNote),
             totals,
             Metrics(reference),
             layers,
@@ -161,7 +169,7 @@ internal sealed class SearchReport(
                 var bytes = problem.TotalBytes(p);
                 return new FrontierPoint(
                     bytes,
-                    bytes * 8.0 / problem.TotalParameters,
+                    problem.AverageBits(bytes),
                     p.Error,
                     Finite(AdditiveError.FromAdditive(metric, p.Error, reference)),
                     p.ChoiceIndex.Select((c, i) => problem.Layers[i].Choices[c].Bits).ToList());
@@ -195,7 +203,7 @@ internal sealed class SearchReport(
             Wire(granularity),
             granularity == Granularity.PerChannel ? layer.ChannelAxis : -1,
             Wire(settings.Clip),
-            bits is { } b ? CostModel.LayerBytes(layer.ParameterCount, layer.Channels, b, setting!.Scheme, setting.Granularity) : 0,
+            setting is not null ? problem.Sizer.LayerBytes(layer, setting) : 0,
             excluded,
             settings.Pins?.ContainsKey(layer.Name) ?? false,
             sensitivity,

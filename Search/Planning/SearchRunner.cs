@@ -32,6 +32,14 @@ public static class SearchRunner
         TrialSessionOptions? sessionOptions = null,
         CalibrationSet? holdout = null)
     {
+        ArgumentNullException.ThrowIfNull(model);
+        ArgumentNullException.ThrowIfNull(settings);
+        var bitsGiven = settings.Bits.Count > 0;
+        if (!bitsGiven)
+        {
+            settings = settings with { Bits = CandidateWidths.Defaults(settings.Storage, model.Opset) };
+        }
+
         SearchSettingsValidator.Validate(model, data, settings);
         progress?.Report(new SearchProgress(SearchStage.Reference, 0, 1));
         var options = (sessionOptions ?? new TrialSessionOptions()) with { Activations = SensitivitySweep.ActivationsFor(settings), MetricSpace = settings.MetricSpace };
@@ -45,7 +53,7 @@ public static class SearchRunner
 
         cancellationToken.ThrowIfCancellationRequested();
         progress?.Report(new SearchProgress(SearchStage.Search, 0, 1));
-        var problem = PlanningProblem.Build(model, settings, session.ReferenceMetrics, sweep, data.SampleCount);
+        var problem = PlanningProblem.Build(model, settings, session.ReferenceMetrics, sweep, new ModelSizer(model, settings.Storage), data.SampleCount);
         var frontier = KnapsackSolver.Frontier(problem.Layers);
         progress?.Report(new SearchProgress(SearchStage.Search, 1, 1));
 
@@ -69,7 +77,7 @@ public static class SearchRunner
         }
 
         var report = new SearchReport(
-            model, data, settings, session.ReferenceMetrics, problem, frontier, decision, exported, session.Activations, store.LoadAll().Count, raiseCheck, session.OutputAxes, heldOut, warnings);
+            model, data, settings, session.ReferenceMetrics, problem, frontier, decision, exported, session.Activations, store.LoadAll().Count, raiseCheck, session.OutputAxes, heldOut, warnings, StorageAdvice.Describe(model, problem, decision, bitsGiven));
         var result = report.ToResult();
         progress?.Report(new SearchProgress(SearchStage.Export, 1, 1));
         return result;

@@ -4,7 +4,7 @@ namespace Bitbudget.Search.Planning;
 
 /// <summary>Everything a search needs besides the model and the calibration set.</summary>
 /// <param name="Budget">The error or size budget.</param>
-/// <param name="Bits">Candidate bit widths (2..8, 16 for FP16, 32 to keep FP32).</param>
+/// <param name="Bits">Candidate bit widths (2..8, 16 for FP16, 32 to keep FP32); empty for the widths the storage tells apart (<see cref="CandidateWidths.Defaults"/>).</param>
 /// <param name="Pins">Layers forced to one bit width, by layer name.</param>
 /// <param name="Excluded">Layers kept in FP32 and left out of the search, by layer name.</param>
 /// <param name="QuantizeActivations">Per-tensor 8-bit activations on the inputs of quantized layers (opset 13 or later).</param>
@@ -12,6 +12,7 @@ namespace Bitbudget.Search.Planning;
 /// <param name="Outputs">The model outputs the budget judges, by name; null or empty for every output.</param>
 /// <param name="MetricSpace">Where SQNR and relative MSE are computed (linear, or logit for probability outputs).</param>
 /// <param name="SampleAxes">Sample axes given outright, by input name (see <see cref="Evaluation.CalibrationSet"/>); recorded in the manifest.</param>
+/// <param name="Storage">How sizes are counted: what the export writes (default) or ideal packed bits.</param>
 public sealed record SearchSettings(
     Budget Budget,
     IReadOnlyList<int> Bits,
@@ -25,8 +26,9 @@ public sealed record SearchSettings(
     long? TargetOpset = null,
     IReadOnlyList<string>? Outputs = null,
     Evaluation.MetricSpace MetricSpace = Evaluation.MetricSpace.Linear,
-    IReadOnlyDictionary<string, int>? SampleAxes = null)
+    IReadOnlyDictionary<string, int>? SampleAxes = null,
+    StorageRule Storage = StorageRule.Container)
 {
-    /// <summary>The candidate widths most teams start from (common practice).</summary>
+    /// <summary>The candidate widths most teams start from when sub-byte widths are packed (common practice).</summary>
     public static IReadOnlyList<int> DefaultBits { get; } = [2, 3, 4, 5, 6, 8];
 }

@@ -52,13 +52,16 @@ public sealed class ManifestSchemaTests
     [Fact]
     public void SizeBudgetManifestMatchesTheSchema()
     {
-        var result = Search(new SizeBudget(null, 4.5));
+        // Packed counting; average bits include scales and the nodes that dequantize, about 3 bits per weight on this tiny model.
+        var result = Search(new SizeBudget(null, 8), StorageRule.Packed);
         Assert.True(result.Feasible, result.Message);
         var manifest = Parse(result.ManifestJson);
         AssertValid(manifest);
         Assert.Equal("size", (string?)manifest["budget"]!["kind"]);
-        Assert.Equal(4.5, (double)manifest["budget"]!["averageBits"]!);
-        Assert.True((double)manifest["totals"]!["averageBits"]! <= 4.5);
+        Assert.Equal(8, (double)manifest["budget"]!["averageBits"]!);
+        Assert.True((double)manifest["totals"]!["averageBits"]! <= 8);
+        Assert.Equal("packed", (string?)manifest["totals"]!["storage"]);
+        Assert.Equal("packed", (string?)manifest["settings"]!["storage"]);
     }
 
     [Fact]
@@ -232,10 +235,10 @@ public sealed class ManifestSchemaTests
         Assert.Equal(first.ToJsonString(), second.ToJsonString());
     }
 
-    private static SearchResult Search(Budget budget)
+    private static SearchResult Search(Budget budget, StorageRule storage = StorageRule.Container)
     {
         var model = SmallModels.Mlp();
-        return SearchRunner.Run(model, SmallModels.MlpData(model), new SearchSettings(budget, [2, 4, 8]), new InMemoryTrialStore(), null, CancellationToken.None);
+        return SearchRunner.Run(model, SmallModels.MlpData(model), new SearchSettings(budget, [2, 4, 8], Storage: storage), new InMemoryTrialStore(), null, CancellationToken.None);
     }
 
     private static JsonNode Parse(byte[] json) => JsonNode.Parse(json) ?? throw new InvalidOperationException("The manifest JSON is null.");

