@@ -42,7 +42,10 @@ internal sealed record SearchResponse(
             result.Message,
             result.TrialCount,
             result is { HeldOutSamples: int samples, HeldOutMeasured: double held } ? new HeldOutResponse(samples, held, result.HeldOutMeetsBudget) : null,
-            result.Warnings()),
+            result.Warnings(),
+            result.ModelFileBytes,
+            result.Storage,
+            result.StorageNote),
         search.ErrorCode is null ? null : new ErrorResponse(search.ErrorCode, search.ErrorMessage ?? ""),
         search.Spec);
 }

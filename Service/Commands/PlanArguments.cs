@@ -20,6 +20,7 @@ internal sealed record PlanArguments(string Model, string Data, SearchSettings S
         var clip = ClipMethod.MinMax;
         var activations = false;
         long? targetOpset = null;
+        var storage = StorageRule.Container;
         var pins = new Dictionary<string, int>(StringComparer.Ordinal);
         var excluded = new List<string>();
         for (var i = 0; i < args.Length; i++)
@@ -37,6 +38,7 @@ internal sealed record PlanArguments(string Model, string Data, SearchSettings S
                 case "--scheme": scheme = Enum<QuantizationScheme>(name, Value()); break;
                 case "--granularity": granularity = Enum<Granularity>(name, Value()); break;
                 case "--clip": clip = Enum<ClipMethod>(name, Value()); break;
+                case "--storage": storage = Enum<StorageRule>(name, Value()); break;
                 case "--exclude": excluded.Add(Value()); break;
                 case "--activations": activations = true; break;
                 case "--target-opset":
@@ -83,13 +85,14 @@ internal sealed record PlanArguments(string Model, string Data, SearchSettings S
             throw new ArgumentException("--model, --data and --budget are required.");
         }
 
-        var candidates = bits is null
-            ? SearchSettings.DefaultBits
+        // No --bits: the engine takes the widths the storage tells apart at the model's opset.
+        IReadOnlyList<int> candidates = bits is null
+            ? []
             : bits.Split(',', StringSplitOptions.RemoveEmptyEntries | StringSplitOptions.TrimEntries)
                 .Select(b => int.TryParse(b, CultureInfo.InvariantCulture, out var v) ? v : throw new ArgumentException($"--bits takes a comma-separated list of widths, e.g. 2,3,4,6,8; '{b}' is not a number."))
                 .ToList();
         var settings = new SearchSettings(
-            BudgetText.Parse(budget), candidates, method, scheme, granularity, clip, activations, pins, excluded, targetOpset, outputs, metricSpace, sampleAxes.Count == 0 ? null : sampleAxes);
+            BudgetText.Parse(budget), candidates, method, scheme, granularity, clip, activations, pins, excluded, targetOpset, outputs, metricSpace, sampleAxes.Count == 0 ? null : sampleAxes, storage);
         return new PlanArguments(model, data, settings, outDir ?? "plan", holdout);
     }
 

@@ -13,7 +13,7 @@ namespace Bitbudget.Service.Commands;
 /// <c>plan --model M.onnx --data D.npz --budget "sqnr&gt;=30" [--bits 2,3,4,6,8] [--method knapsack|greedy]
 /// [--scheme symmetric|asymmetric] [--granularity per-channel|per-tensor] [--clip min-max|percentile|mse-optimal|analytic-laplace|analytic-gaussian]
 /// [--pin LAYER=BITS]... [--exclude LAYER]... [--activations] [--target-opset N] [--sample-axis INPUT=AXIS]... [--outputs A,B]
-/// [--metric-space linear|logit] [--holdout H.npz] [--out DIR]</c>: the whole search locally, writing the
+/// [--metric-space linear|logit] [--holdout H.npz] [--storage container|packed] [--out DIR]</c>: the whole search locally, writing the
 /// manifest, the quantized model, the sensitivity CSV and the frontier into DIR.
 /// </summary>
 internal static class PlanCommand
@@ -22,7 +22,7 @@ internal static class PlanCommand
         "usage: plan --model M.onnx --data D.npz --budget \"sqnr>=30\" [--bits 2,3,4,6,8] [--method knapsack|greedy] " +
         "[--scheme symmetric|asymmetric] [--granularity per-channel|per-tensor] [--clip min-max|percentile|mse-optimal|analytic-laplace|analytic-gaussian] " +
         "[--pin LAYER=BITS]... [--exclude LAYER]... [--activations] [--target-opset N] [--sample-axis INPUT=AXIS]... [--outputs A,B] " +
-        "[--metric-space linear|logit] [--holdout H.npz] [--out DIR]";
+        "[--metric-space linear|logit] [--holdout H.npz] [--storage container|packed] [--out DIR]";
 
     public static Task<int> RunAsync(string[] args)
     {
@@ -121,7 +121,13 @@ internal static class PlanCommand
 
         if (manifest.Totals is { } totals)
         {
-            text.AppendLine(CultureInfo.InvariantCulture, $"total: {totals.Bytes} bytes (FP32 {totals.Float32Bytes}), {totals.AverageBits:0.00} bits per weight, {totals.Compression:0.00}x smaller");
+            var counted = totals.Storage == "packed" ? "counted packed" : "predicted file";
+            text.AppendLine(CultureInfo.InvariantCulture, $"total: {totals.Bytes} bytes {counted} (FP32 file {totals.Float32Bytes}), {totals.AverageBits:0.00} bits per weight");
+            if (totals.ModelFileBytes is { } written)
+            {
+                text.AppendLine(CultureInfo.InvariantCulture, $"written: model.quantized.onnx {written} bytes, {totals.Compression:0.00}x smaller than the FP32 file");
+            }
+
             text.AppendLine(CultureInfo.InvariantCulture, $"{manifest.Budget.Metric}: predicted {result.PredictedError:0.####}, measured {result.MeasuredError:0.####}{Binding(totals.BindingOutput)}");
             Outputs(text, totals.Measured, manifest.HeldOut?.Measured);
             if (manifest.HeldOut is { } held)
@@ -132,6 +138,11 @@ internal static class PlanCommand
         }
 
         text.AppendLine(result.Message);
+        if (result.StorageNote is { } note)
+        {
+            text.AppendLine(note);
+        }
+
         foreach (var warning in result.Warnings ?? [])
         {
             text.AppendLine(CultureInfo.InvariantCulture, $"warning: {warning}");

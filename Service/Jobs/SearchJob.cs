@@ -85,7 +85,10 @@ internal sealed partial class SearchJob(
                 StoreJson.Write(result.Warnings ?? []),
                 result.HeldOutSamples,
                 result.HeldOutMeasured,
-                result.HeldOutMeetsBudget);
+                result.HeldOutMeetsBudget,
+                result.ModelFileBytes,
+                result.Storage,
+                result.StorageNote);
             if (searches.Complete(owner, record))
             {
                 LogSucceeded(logger, searchId, result.Feasible, result.Message);

@@ -1,7 +1,7 @@
 namespace Bitbudget.Service.Searches;
 
 /// <summary>The body of POST /v1/searches; everything but the ids and the budget has a default.</summary>
-/// <param name="Bits">Candidate bit widths: 2..8, 16 (half precision) or 32 (keep FP32). Default 2, 3, 4, 5, 6, 8.</param>
+/// <param name="Bits">Candidate bit widths: 2..8, 16 (half precision) or 32 (keep FP32). Default: the widths the storage tells apart (8, 16, 32 below opset 21; 4, 8, 16, 32 at 21; 2, 3, 4, 5, 6, 8 with packed storage).</param>
 /// <param name="Method">"knapsack" (default) or "greedy".</param>
 /// <param name="Scheme">"symmetric" (default) or "asymmetric".</param>
 /// <param name="Granularity">"per-channel" (default) or "per-tensor".</param>
@@ -14,6 +14,7 @@ namespace Bitbudget.Service.Searches;
 /// <param name="Outputs">The model outputs the budget judges (default: every output).</param>
 /// <param name="MetricSpace">"linear" (default) or "logit" (SQNR and relative MSE of probability outputs on their logits).</param>
 /// <param name="HoldoutDatasetId">A second uploaded dataset the chosen assignment is checked on.</param>
+/// <param name="Storage">"container" (default: sizes are what the written file stores at the model's opset) or "packed" (b-bit weights count b bits, for targets that pack sub-byte widths themselves).</param>
 internal sealed record SearchRequest(
     string? ModelId,
     string? DatasetId,
@@ -30,4 +31,5 @@ internal sealed record SearchRequest(
     IReadOnlyDictionary<string, int>? SampleAxes = null,
     IReadOnlyList<string>? Outputs = null,
     string? MetricSpace = null,
-    string? HoldoutDatasetId = null);
+    string? HoldoutDatasetId = null,
+    string? Storage = null);

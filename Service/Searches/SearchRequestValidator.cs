@@ -24,6 +24,7 @@ internal static class SearchRequestValidator
         var scheme = Choice(request.Scheme, "symmetric", SearchVocabulary.Schemes.Keys, "scheme", Add);
         var granularity = Choice(request.Granularity, "per-channel", SearchVocabulary.Granularities.Keys, "granularity", Add);
         var calibration = Choice(request.Calibration, "min-max", SearchVocabulary.Calibrations.Keys, "calibration", Add);
+        var storage = Choice(request.Storage, "container", SearchVocabulary.Storages.Keys, "storage", Add);
 
         var layerNames = model.Summary.Layers.Select(l => l.Name).ToHashSet(StringComparer.Ordinal);
         var pin = new SortedDictionary<string, int>(StringComparer.Ordinal);
@@ -109,7 +110,7 @@ internal static class SearchRequestValidator
         }
 
         return new SearchSpec(
-            budget, bits!, method!, scheme!, granularity!, calibration!, request.Activations ?? false, pin, exclude, request.TargetOpset, sampleAxes, outputs, metricSpace!, holdout?.Id);
+            budget, bits, method!, scheme!, granularity!, calibration!, request.Activations ?? false, pin, exclude, request.TargetOpset, sampleAxes, outputs, metricSpace!, holdout?.Id, storage!);
     }
 
     private static SortedDictionary<string, int>? ValidateSampleAxes(IReadOnlyDictionary<string, int>? given, ModelRecord model, Action<string, string> add)
@@ -260,12 +261,13 @@ internal static class SearchRequestValidator
     {
         if (bits is null)
         {
-            return [.. Search.Planning.SearchSettings.DefaultBits];
+            // The engine picks the widths the storage tells apart at the model's opset.
+            return null;
         }
 
         if (bits.Count == 0)
         {
-            add("bits", "bits must list at least one candidate bit width (default: 2, 3, 4, 5, 6, 8).");
+            add("bits", "bits must list at least one candidate bit width, or be left out for the widths the storage tells apart.");
             return null;
         }
 

@@ -1,9 +1,11 @@
 namespace Bitbudget.Service.Searches;
 
 /// <summary>A validated search request with every default filled in, as the store keeps it and the API echoes it.</summary>
+/// <param name="Bits">The candidate widths as given; null for the widths the storage tells apart at the model's opset (the manifest lists them).</param>
+/// <param name="Storage">"container" (sizes as the export writes them) or "packed" (ideal packed bits).</param>
 internal sealed record SearchSpec(
     BudgetSpec Budget,
-    IReadOnlyList<int> Bits,
+    IReadOnlyList<int>? Bits,
     string Method,
     string Scheme,
     string Granularity,
@@ -15,4 +17,5 @@ internal sealed record SearchSpec(
     IReadOnlyDictionary<string, int>? SampleAxes = null,
     IReadOnlyList<string>? Outputs = null,
     string MetricSpace = "linear",
-    string? HoldoutDatasetId = null);
+    string? HoldoutDatasetId = null,
+    string Storage = "container");

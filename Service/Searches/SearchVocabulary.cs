@@ -36,6 +36,12 @@ internal static class SearchVocabulary
         ["per-tensor"] = Granularity.PerTensor,
     };
 
+    public static IReadOnlyDictionary<string, StorageRule> Storages { get; } = new Dictionary<string, StorageRule>(StringComparer.Ordinal)
+    {
+        ["container"] = StorageRule.Container,
+        ["packed"] = StorageRule.Packed,
+    };
+
     public static IReadOnlyDictionary<string, ClipMethod> Calibrations { get; } = new Dictionary<string, ClipMethod>(StringComparer.Ordinal)
     {
         ["min-max"] = ClipMethod.MinMax,
@@ -65,7 +71,7 @@ internal static class SearchVocabulary
             : new ErrorBudget(Metrics[budget.Metric!].Metric, (budget.AtLeast ?? budget.AtMost)!.Value);
         return new SearchSettings(
             engineBudget,
-            spec.Bits,
+            spec.Bits ?? [],
             Methods[spec.Method],
             Schemes[spec.Scheme],
             Granularities[spec.Granularity],
@@ -76,6 +82,7 @@ internal static class SearchVocabulary
             spec.TargetOpset,
             spec.Outputs,
             MetricSpaces[spec.MetricSpace],
-            spec.SampleAxes);
+            spec.SampleAxes,
+            Storages[spec.Storage]);
     }
 }

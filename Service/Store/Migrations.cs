@@ -77,5 +77,10 @@ internal static class Migrations
             ALTER TABLE results ADD COLUMN held_out_measured REAL;
             ALTER TABLE results ADD COLUMN held_out_meets INTEGER;
             """),
+        (4, """
+            ALTER TABLE results ADD COLUMN model_file_bytes INTEGER;
+            ALTER TABLE results ADD COLUMN storage TEXT NOT NULL DEFAULT 'container';
+            ALTER TABLE results ADD COLUMN storage_note TEXT;
+            """),
     ];
 }

@@ -5,6 +5,9 @@ namespace Bitbudget.Service.Store;
 /// stored so the record compares by value; null for results stored before warnings existed.</param>
 /// <param name="Measured">The budget metric on the calibration set (worst judged output).</param>
 /// <param name="HeldOutMeasured">The same on the held-out set; null without one.</param>
+/// <param name="Bytes">Predicted model file size, counted by <paramref name="Storage"/>.</param>
+/// <param name="Compression">FP32 model file size over <paramref name="ModelFileBytes"/>.</param>
+/// <param name="ModelFileBytes">Size of the written quantized model file; null when none was written.</param>
 internal sealed record ResultRecord(
     string SearchId,
     bool Feasible,
@@ -22,7 +25,10 @@ internal sealed record ResultRecord(
     string? WarningsJson = null,
     int? HeldOutSamples = null,
     double? HeldOutMeasured = null,
-    bool? HeldOutMeetsBudget = null)
+    bool? HeldOutMeetsBudget = null,
+    long? ModelFileBytes = null,
+    string Storage = "container",
+    string? StorageNote = null)
 {
     /// <summary>The warnings, one sentence each; empty when there are none (or none were stored).</summary>
     public IReadOnlyList<string> Warnings() => WarningsJson is null ? [] : StoreJson.Read<List<string>>(WarningsJson);

@@ -152,9 +152,9 @@ internal sealed class SearchStore(Database database)
             insert.CommandText = """
                 INSERT INTO results (search_id, feasible, message, manifest_sha256, model_sha256, sensitivity_sha256,
                     frontier_sha256, bytes, average_bits, compression, predicted, measured, trial_count, warnings_json, created_at,
-                    held_out_samples, held_out_measured, held_out_meets)
+                    held_out_samples, held_out_measured, held_out_meets, model_file_bytes, storage, storage_note)
                 VALUES ($id, $feasible, $message, $manifest, $model, $csv, $frontier, $bytes, $bits, $compression,
-                    $predicted, $measured, $trials, $warnings, $now, $heldSamples, $heldMeasured, $heldMeets)
+                    $predicted, $measured, $trials, $warnings, $now, $heldSamples, $heldMeasured, $heldMeets, $fileBytes, $storage, $storageNote)
                 ON CONFLICT(search_id) DO NOTHING;
                 """;
             insert.Parameters.AddWithValue("$id", result.SearchId);
@@ -171,6 +171,9 @@ internal sealed class SearchStore(Database database)
             insert.Parameters.AddWithValue("$measured", result.Measured);
             insert.Parameters.AddWithValue("$trials", result.TrialCount);
             insert.Parameters.AddWithValue("$warnings", (object?)result.WarningsJson ?? DBNull.Value);
+            insert.Parameters.AddWithValue("$fileBytes", (object?)result.ModelFileBytes ?? DBNull.Value);
+            insert.Parameters.AddWithValue("$storage", result.Storage);
+            insert.Parameters.AddWithValue("$storageNote", (object?)result.StorageNote ?? DBNull.Value);
             insert.Parameters.AddWithValue("$now", now);
             insert.Parameters.AddWithValue("$heldSamples", (object?)result.HeldOutSamples ?? DBNull.Value);
             insert.Parameters.AddWithValue("$heldMeasured", (object?)result.HeldOutMeasured ?? DBNull.Value);
@@ -228,7 +231,7 @@ internal sealed class SearchStore(Database database)
         command.CommandText = """
             SELECT search_id, feasible, message, manifest_sha256, model_sha256, sensitivity_sha256, frontier_sha256,
                 bytes, average_bits, compression, predicted, measured, trial_count, warnings_json,
-                held_out_samples, held_out_measured, held_out_meets
+                held_out_samples, held_out_measured, held_out_meets, model_file_bytes, storage, storage_note
             FROM results WHERE search_id = $id;
             """;
         command.Parameters.AddWithValue("$id", searchId);
@@ -255,7 +258,10 @@ internal sealed class SearchStore(Database database)
             reader.IsDBNull(13) ? null : reader.GetString(13),
             reader.IsDBNull(14) ? null : reader.GetInt32(14),
             reader.IsDBNull(15) ? null : reader.GetDouble(15),
-            reader.IsDBNull(16) ? null : reader.GetInt64(16) != 0);
+            reader.IsDBNull(16) ? null : reader.GetInt64(16) != 0,
+            reader.IsDBNull(17) ? null : reader.GetInt64(17),
+            reader.GetString(18),
+            reader.IsDBNull(19) ? null : reader.GetString(19));
     }
 
     public int CountResults(string searchId)
