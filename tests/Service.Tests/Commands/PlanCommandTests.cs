@@ -129,5 +129,45 @@ public sealed class PlanCommandTests(PlanDemoFixture fixture) : IClassFixture<Pl
         Assert.Equal(8, layer.GetProperty("bits").GetInt32());
     }
 
+    [Fact]
+    public async Task AtOpset21TheCountedBytesAreTheFileAndThreeBitLayersAreStoredAsInt4()
+    {
+        // The demo model is opset 21 (HiveNetExporter). fc1 is pinned to 3 bits so a 3-bit layer is always there.
+        var outFolder = Path.Combine(fixture.Folder, "opset21");
+        var run = await CommandRun.RunAsync(
+            "plan", "--model", fixture.ModelPath, "--data", fixture.CalibrationPath, "--budget", "sqnr>=20", "--bits", "2,3,4,6,8", "--pin", "fc1=3", "--out", outFolder);
+        Assert.True(run.ExitCode == 0, run.ToString());
+
+        using var manifest = JsonDocument.Parse(File.ReadAllBytes(Path.Combine(outFolder, "manifest.json")));
+        var totals = manifest.RootElement.GetProperty("totals");
+        var written = new FileInfo(Path.Combine(outFolder, "model.quantized.onnx")).Length;
+        var counted = totals.GetProperty("bytes").GetInt64();
+        Assert.Equal("container", totals.GetProperty("storage").GetString());
+        Assert.Equal(written, totals.GetProperty("modelFileBytes").GetInt64());
+        Assert.True(Math.Abs(counted - written) <= written / 100, $"counted {counted} B, wrote {written} B");
+        var fp32 = totals.GetProperty("float32Bytes").GetInt64();
+        Assert.Equal(fp32 / (double)written, totals.GetProperty("compression").GetDouble(), 9);
+        Assert.Contains($"written: model.quantized.onnx {written} bytes", run.Out, StringComparison.Ordinal);
+
+        // Every layer at 2-4 bits is int4 (ONNX IR: two values per byte), 5-8 bits int8.
+        var proto = P.ModelProto.Parser.ParseFrom(File.ReadAllBytes(Path.Combine(outFolder, "model.quantized.onnx")));
+        foreach (var layer in manifest.RootElement.GetProperty("layers").EnumerateArray())
+        {
+            var bits = layer.GetProperty("bits").GetInt32();
+            var stored = proto.Graph.Initializer.Single(t => t.Name == layer.GetProperty("weight").GetString() + "_quantized");
+            Assert.Equal((int)(bits <= 4 ? P.TensorProto.Types.DataType.Int4 : P.TensorProto.Types.DataType.Int8), stored.DataType);
+            var parameters = layer.GetProperty("parameters").GetInt64();
+            Assert.Equal(bits <= 4 ? (parameters + 1) / 2 : parameters, stored.RawData.Length);
+        }
+
+        Assert.Equal(3, manifest.RootElement.GetProperty("layers").EnumerateArray().Single(l => l.GetProperty("name").GetString() == "fc1").GetProperty("bits").GetInt32());
+
+        // 2 and 3 bits save nothing over int4, 6 nothing over int8: the summary says so.
+        var note = manifest.RootElement.GetProperty("outcome").GetProperty("storageNote").GetString();
+        Assert.NotNull(note);
+        Assert.StartsWith("Widths 2, 3, 6 save nothing at opset 21", note, StringComparison.Ordinal);
+        Assert.Contains(note, run.Out, StringComparison.Ordinal);
+    }
+
     private JsonDocument ReadJson(string name) => JsonDocument.Parse(File.ReadAllBytes(Path.Combine(fixture.PlanFolder, name)));
 }
