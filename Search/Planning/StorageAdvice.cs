@@ -7,9 +7,10 @@ namespace Bitbudget.Search.Planning;
 /// <summary>
 /// What the storage rule cost the search, in one or two sentences: candidate widths that save nothing under
 /// container storage, and how much smaller the plan could be if sub-byte widths were packed (<c>--storage packed</c>)
-/// or stored as int4 (<c>--target-opset 21</c>). When the search measured widths below 8 bits, the packed figure
-/// comes from the same sensitivities (the smallest packed assignment with the chosen plan's predicted error);
-/// otherwise it is the size of 4 bits on every searched layer, whose error this search did not measure.
+/// or stored as int4 (<c>--target-opset 21</c>). When the search measured widths below 8 bits under an error budget,
+/// the packed figure comes from the same sensitivities (the additive model's smallest packed assignment within the
+/// budget, not validated); otherwise it is the size of 4 bits (2 bits at opset 21) on every searched layer, whose
+/// error this search did not measure.
 /// </summary>
 internal static class StorageAdvice
 {
@@ -37,37 +38,48 @@ internal static class StorageAdvice
         }
 
         var packed = new ModelSizer(model, StorageRule.Packed, opset);
-        var measuredSmall = problem.Layers.Any(l => l.Choices.Any(c => BitWidths.IsInteger(c.Bits) && c.Bits < BitWidths.MaxInteger));
-        if (measuredSmall)
+        if (PackedFrontierBytes(problem, packed, chosen) is { } fits && fits < chosen.Bytes)
         {
-            var layers = problem.Layers.Select((layer, i) => new PlanningLayer(
-                layer.Name,
-                layer.Choices.Select(c => c with { Bytes = packed.LayerBytes(problem.Searched[i], SensitivitySweep.SettingFor(c.Bits, settings)) }).ToList())).ToList();
-            if (KnapsackSolver.MinimumBytes(layers, chosen.PredictedAdditive) is { } smallest)
-            {
-                var bytes = smallest.Bytes + problem.ExcludedBytes + problem.OtherBytes;
-                if (bytes < chosen.Bytes)
-                {
-                    sentences.Add($"With --storage packed (a target that packs sub-byte widths itself), the same predicted error fits in {Format(bytes)} counted packed, against {Format(chosen.Bytes)} for this plan.");
-                }
-            }
-        }
-        else
-        {
-            var four = new LayerSetting(4, settings.Scheme, settings.Granularity, settings.Clip);
-            var packedFour = problem.ExcludedBytes + problem.OtherBytes + problem.Searched.Sum(l => packed.LayerBytes(l, four));
-            var text = $"Smaller widths are closed by the storage: 4 bits on every searched layer would take {Format(packedFour)} with --storage packed";
-            if (opset < WeightStorage.Int4Opset)
-            {
-                var int4 = new ModelSizer(model, StorageRule.Container, WeightStorage.Int4Opset);
-                var int4Four = problem.ExcludedBytes + problem.OtherBytes + problem.Searched.Sum(l => int4.LayerBytes(l, four));
-                text += $" or {Format(int4Four)} stored as int4 with --target-opset 21";
-            }
-
-            sentences.Add(text + $", against {Format(chosen.Bytes)} for this plan; this search did not measure their error (give --bits 2,3,4,6,8 to measure it).");
+            sentences.Add($"With --storage packed (a target that packs sub-byte widths itself), the additive model fits the budget in {Format(fits)} counted packed (before validation), against {Format(chosen.Bytes)} for this plan.");
+            return string.Join(" ", sentences);
         }
 
+        // Nothing measured here would shrink: say what the closed widths would weigh, without claiming their error.
+        var bits = opset >= WeightStorage.Int4Opset ? 2 : 4;
+        var uniform = new LayerSetting(bits, settings.Scheme, settings.Granularity, settings.Clip);
+        var fixedBytes = problem.ExcludedBytes + problem.OtherBytes;
+        var text = $"Smaller widths are closed by the storage: {bits} bits on every searched layer would take {Format(fixedBytes + problem.Searched.Sum(l => packed.LayerBytes(l, uniform)))} with --storage packed";
+        if (opset < WeightStorage.Int4Opset)
+        {
+            var int4 = new ModelSizer(model, StorageRule.Container, WeightStorage.Int4Opset);
+            text += $" or {Format(fixedBytes + problem.Searched.Sum(l => int4.LayerBytes(l, uniform)))} stored as int4 with --target-opset 21";
+        }
+
+        sentences.Add(text + $", against {Format(chosen.Bytes)} for this plan; this search did not measure their error (give candidate bits such as 2,3,4,6,8 to measure it).");
         return sentences.Count == 0 ? null : string.Join(" ", sentences);
+    }
+
+    /// <summary>
+    /// The smallest packed-count file whose predicted error is within the error budget (or the chosen plan's predicted
+    /// error, when the validation loop steered above the budget), from the measured sensitivities; null for a size
+    /// budget or when none fits.
+    /// </summary>
+    private static long? PackedFrontierBytes(PlanningProblem problem, ModelSizer packed, AssignmentMeasurement chosen)
+    {
+        if (problem.Settings.Budget is not ErrorBudget budget
+            || !problem.Layers.Any(l => l.Choices.Any(c => BitWidths.IsInteger(c.Bits) && c.Bits < BitWidths.MaxInteger)))
+        {
+            return null;
+        }
+
+        var target = Math.Max(chosen.PredictedAdditive, AdditiveError.LimitToAdditive(budget.Metric, budget.Limit));
+
+        var layers = problem.Layers.Select((layer, i) => new PlanningLayer(
+            layer.Name,
+            layer.Choices.Select(c => c with { Bytes = packed.LayerBytes(problem.Searched[i], SensitivitySweep.SettingFor(c.Bits, problem.Settings)) }).ToList())).ToList();
+        return KnapsackSolver.MinimumBytes(layers, target) is { } smallest
+            ? smallest.Bytes + problem.ExcludedBytes + problem.OtherBytes
+            : null;
     }
 
     private static string Format(long bytes) => bytes.ToString("N0", CultureInfo.InvariantCulture) + " B";
