@@ -124,6 +124,13 @@ internal sealed class FakeSearchEngine : ISearchEngine
         CancellationToken cancellationToken,
         byte[]? holdout = null)
     {
+        // No bits given: the real engine takes the widths its storage tells apart at the model's opset; this fake has
+        // no opset and takes the packed default list, whose trial counts the job tests are written against.
+        if (settings.Bits.Count == 0)
+        {
+            settings = settings with { Bits = SearchSettings.DefaultBits };
+        }
+
         Runs.AddOrUpdate(modelName, 1, (_, n) => n + 1);
         Settings[modelName] = settings;
         var measured = Measured.GetOrAdd(modelName, _ => new ConcurrentQueue<string>());
