@@ -79,21 +79,27 @@ public static class QdqExporter
                 graph.Input.Remove(listed);
             }
 
-            var q = WeightQuantizer.Quantize(weight, layer.Shape, layer.ChannelAxis, setting);
-            var shifted = false;
-            if (setting.Bits != BitWidths.Float16 && StorageType(setting, model.Opset) == TensorProto.Types.DataType.Int8 && quantizedActivations.Any(a => a.Layer == layer.Name))
+            StoredWeight stored;
+            if (setting.Bits == BitWidths.Float16)
             {
-                // With uint8 activations ONNX Runtime fuses the QDQ pairs into integer kernels. On x86 CPUs
-                // without VNNI its uint8 x int8 kernel sums pairs of products in 16 bits and saturates
-                // (measured: relative MSE 1.05e-3 against the trial on an AVX2-only EPYC); its uint8 x uint8
-                // kernel widens first and matches the trial to 1e-14. Same values, unsigned storage.
-                q = q.ShiftedToUnsigned();
-                shifted = true;
+                stored = WeightStorage.Half(layer, weight);
+            }
+            else
+            {
+                var q = WeightQuantizer.Quantize(weight, layer.Shape, layer.ChannelAxis, setting);
+                var shifted = StorageType(setting, model.Opset) == TensorProto.Types.DataType.Int8 && quantizedActivations.Any(a => a.Layer == layer.Name);
+                if (shifted)
+                {
+                    // With uint8 activations ONNX Runtime fuses the QDQ pairs into integer kernels. On x86 CPUs
+                    // without VNNI its uint8 x int8 kernel sums pairs of products in 16 bits and saturates
+                    // (measured: relative MSE 1.05e-3 against the trial on an AVX2-only EPYC); its uint8 x uint8
+                    // kernel widens first and matches the trial to 1e-14. Same values, unsigned storage.
+                    q = q.ShiftedToUnsigned();
+                }
+
+                stored = WeightStorage.Integer(layer, q, model.Opset, shifted);
             }
 
-            var stored = setting.Bits == BitWidths.Float16
-                ? WeightStorage.Half(layer, weight)
-                : WeightStorage.Integer(layer, q, model.Opset, shifted);
             graph.Initializer.AddRange(stored.Initializers);
             dequantizers.AddRange(stored.Nodes);
             forms.Add(stored.Form);

@@ -36,6 +36,7 @@ public sealed class SearchValidationTests(ServiceFactory factory) : IClassFixtur
     [InlineData("\"scheme\":\"log\"", "scheme", "Unknown scheme")]
     [InlineData("\"granularity\":\"per-group\"", "granularity", "per-channel, per-tensor")]
     [InlineData("\"calibration\":\"entropy\"", "calibration", "min-max")]
+    [InlineData("\"storage\":\"bits\"", "storage", "container, packed")]
     [InlineData("\"pin\":{\"conv9\":4}", "pin.conv9", "no layer 'conv9'")]
     [InlineData("\"pin\":{\"fc\":12}", "pin.fc", "Bit width 12")]
     [InlineData("\"exclude\":[\"nope\"]", "exclude", "no layer 'nope'")]
