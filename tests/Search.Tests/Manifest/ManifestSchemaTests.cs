@@ -198,7 +198,7 @@ public sealed class ManifestSchemaTests
     public void ManifestWithAnotherFormatVersionOrAnUnknownFieldFailsTheSchema()
     {
         var newer = Parse(ErrorBudgetResult.Value.ManifestJson);
-        newer["formatVersion"] = 3;
+        newer["formatVersion"] = 4;
         AssertInvalid(newer);
 
         var extra = Parse(ErrorBudgetResult.Value.ManifestJson);
