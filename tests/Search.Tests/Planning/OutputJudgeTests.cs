@@ -13,13 +13,14 @@ namespace Bitbudget.Search.Tests.Planning;
 /// </summary>
 public sealed class OutputJudgeTests
 {
+    // Packed counting, so the widths below 8 bits save bytes and the judged output decides how low each layer goes.
     private static readonly int[] Bits = [2, 3, 4, 6, 8];
 
     [Fact]
     public void BudgetOnTheWeakOutputHoldsWhenReMeasuredInOnnxRuntime()
     {
         var model = StreamingData.Model();
-        var settings = new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 30), Bits, Outputs: ["probability"]);
+        var settings = new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 30), Bits, Outputs: ["probability"], Storage: StorageRule.Packed);
 
         var result = SearchRunner.Run(model, StreamingData.Set(model), settings, new InMemoryTrialStore(), null, CancellationToken.None);
 
@@ -39,7 +40,7 @@ public sealed class OutputJudgeTests
     public void JudgingOnlyTheStateLeavesTheProbabilityBelowTheBudgetItWouldNeed()
     {
         var model = StreamingData.Model();
-        var settings = new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 30), Bits, Outputs: ["next_state"]);
+        var settings = new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 30), Bits, Outputs: ["next_state"], Storage: StorageRule.Packed);
 
         var result = SearchRunner.Run(model, StreamingData.Set(model), settings, new InMemoryTrialStore(), null, CancellationToken.None);
 
@@ -73,7 +74,7 @@ public sealed class OutputJudgeTests
     public void HeldOutFiguresStandBesideTheCalibrationFiguresAndMatchOnnxRuntime()
     {
         var model = StreamingData.Model();
-        var settings = new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 30), Bits);
+        var settings = new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 30), Bits, Storage: StorageRule.Packed);
         var holdout = StreamingData.Set(model, "streaming_holdout.npz");
 
         var result = SearchRunner.Run(model, StreamingData.Set(model), settings, new InMemoryTrialStore(), null, CancellationToken.None, holdout: holdout);
@@ -96,7 +97,7 @@ public sealed class OutputJudgeTests
     public void HeldOutMissIsWarnedWithBothFigures()
     {
         var model = StreamingData.Model();
-        var settings = new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 30), Bits);
+        var settings = new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 30), Bits, Storage: StorageRule.Packed);
         var calibration = StreamingData.Set(model);
         // The held-out set is the calibration set with the state 30 times larger: the recurrent path
         // then dominates and a width chosen for the quiet calibration state no longer holds.
