@@ -104,7 +104,7 @@ internal static class SearchesApi
         {
             return ProblemResults.Of(
                 StatusCodes.Status409Conflict,
-                ProblemTypes.NoQuantizedModel,
+                ProblemTypes.BudgetInfeasible,
                 $"Search {id} wrote no quantized model because the budget cannot be met: {result.Message}");
         }
 

@@ -14,7 +14,7 @@ internal static class ProblemTypes
     public const string PayloadTooLarge = "payload-too-large";
     public const string SearchNotReady = "search-not-ready";
     public const string SearchFinished = "search-finished";
-    public const string NoQuantizedModel = "no-quantized-model";
+    public const string BudgetInfeasible = "budget-infeasible";
     public const string IdempotencyKeyReused = "idempotency-key-reused";
     public const string MethodNotAllowed = "method-not-allowed";
     public const string UnsupportedMediaType = "unsupported-media-type";

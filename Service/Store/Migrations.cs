@@ -82,5 +82,80 @@ internal static class Migrations
             ALTER TABLE results ADD COLUMN storage TEXT NOT NULL DEFAULT 'container';
             ALTER TABLE results ADD COLUMN storage_note TEXT;
             """),
+        // Results of an infeasible search have no assignment, so its size and errors are NULL (SQLite
+        // cannot hold NaN); failures count failed runs, not restarts; counters kept by triggers in the
+        // writing transaction let /metrics read a few rows instead of scanning the trials table.
+        (5, """
+            CREATE TABLE results_v2 (
+                search_id TEXT PRIMARY KEY REFERENCES searches(id),
+                feasible INTEGER NOT NULL,
+                message TEXT NOT NULL,
+                manifest_sha256 TEXT NOT NULL,
+                model_sha256 TEXT,
+                sensitivity_sha256 TEXT NOT NULL,
+                frontier_sha256 TEXT NOT NULL,
+                bytes INTEGER,
+                average_bits REAL,
+                compression REAL,
+                predicted REAL,
+                measured REAL,
+                trial_count INTEGER NOT NULL,
+                created_at TEXT NOT NULL,
+                warnings_json TEXT,
+                held_out_samples INTEGER,
+                held_out_measured REAL,
+                held_out_meets INTEGER,
+                model_file_bytes INTEGER,
+                storage TEXT NOT NULL DEFAULT 'container',
+                storage_note TEXT);
+            INSERT INTO results_v2 SELECT search_id, feasible, message, manifest_sha256, model_sha256, sensitivity_sha256,
+                frontier_sha256, bytes, average_bits, compression, predicted, measured, trial_count, created_at, warnings_json,
+                held_out_samples, held_out_measured, held_out_meets,
+                model_file_bytes, storage, storage_note FROM results;
+            DROP TABLE results;
+            ALTER TABLE results_v2 RENAME TO results;
+
+            ALTER TABLE searches ADD COLUMN failures INTEGER NOT NULL DEFAULT 0;
+
+            CREATE TABLE search_counts (state TEXT PRIMARY KEY, count INTEGER NOT NULL);
+            INSERT INTO search_counts (state, count) SELECT state, COUNT(*) FROM searches GROUP BY state;
+            CREATE TRIGGER search_counted AFTER INSERT ON searches BEGIN
+                INSERT INTO search_counts (state, count) VALUES (NEW.state, 1)
+                    ON CONFLICT(state) DO UPDATE SET count = count + 1;
+            END;
+            CREATE TRIGGER search_recounted AFTER UPDATE OF state ON searches WHEN OLD.state <> NEW.state BEGIN
+                UPDATE search_counts SET count = count - 1 WHERE state = OLD.state;
+                INSERT INTO search_counts (state, count) VALUES (NEW.state, 1)
+                    ON CONFLICT(state) DO UPDATE SET count = count + 1;
+            END;
+            CREATE TRIGGER search_uncounted AFTER DELETE ON searches BEGIN
+                UPDATE search_counts SET count = count - 1 WHERE state = OLD.state;
+            END;
+
+            -- Bucket i holds trials with duration in (bound[i-1], bound[i]] ms; bucket 11 is above 30 s.
+            CREATE TABLE trial_buckets (bucket INTEGER PRIMARY KEY, count INTEGER NOT NULL, sum_ms REAL NOT NULL);
+            WITH RECURSIVE b(i) AS (SELECT 0 UNION ALL SELECT i + 1 FROM b WHERE i < 11)
+                INSERT INTO trial_buckets (bucket, count, sum_ms) SELECT i, 0, 0 FROM b;
+            CREATE VIEW trial_bucket_of (bucket, duration_ms) AS SELECT
+                CASE WHEN duration_ms <= 10 THEN 0 WHEN duration_ms <= 25 THEN 1 WHEN duration_ms <= 50 THEN 2
+                     WHEN duration_ms <= 100 THEN 3 WHEN duration_ms <= 250 THEN 4 WHEN duration_ms <= 500 THEN 5
+                     WHEN duration_ms <= 1000 THEN 6 WHEN duration_ms <= 2500 THEN 7 WHEN duration_ms <= 5000 THEN 8
+                     WHEN duration_ms <= 10000 THEN 9 WHEN duration_ms <= 30000 THEN 10 ELSE 11 END,
+                duration_ms
+                FROM trials;
+            UPDATE trial_buckets SET
+                count = (SELECT COUNT(*) FROM trial_bucket_of t WHERE t.bucket = trial_buckets.bucket),
+                sum_ms = (SELECT COALESCE(SUM(t.duration_ms), 0) FROM trial_bucket_of t WHERE t.bucket = trial_buckets.bucket);
+            DROP VIEW trial_bucket_of;
+            CREATE TRIGGER trial_counted AFTER INSERT ON trials BEGIN
+                UPDATE trial_buckets SET count = count + 1, sum_ms = sum_ms + NEW.duration_ms
+                WHERE bucket = CASE WHEN NEW.duration_ms <= 10 THEN 0 WHEN NEW.duration_ms <= 25 THEN 1 WHEN NEW.duration_ms <= 50 THEN 2
+                     WHEN NEW.duration_ms <= 100 THEN 3 WHEN NEW.duration_ms <= 250 THEN 4 WHEN NEW.duration_ms <= 500 THEN 5
+                     WHEN NEW.duration_ms <= 1000 THEN 6 WHEN NEW.duration_ms <= 2500 THEN 7 WHEN NEW.duration_ms <= 5000 THEN 8
+                     WHEN NEW.duration_ms <= 10000 THEN 9 WHEN NEW.duration_ms <= 30000 THEN 10 ELSE 11 END;
+            END;
+
+            CREATE TABLE store_probe (id INTEGER PRIMARY KEY CHECK (id = 1), written_at TEXT NOT NULL);
+            """),
     ];
 }

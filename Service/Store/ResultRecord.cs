@@ -1,6 +1,9 @@
 namespace Bitbudget.Service.Store;
 
 /// <summary>A finished search's totals and the blobs (by SHA-256) of its artifacts.</summary>
+/// <param name="ModelSha256">Null when no quantized model was written (infeasible budget).</param>
+/// <param name="Bytes">Null, like the other totals, when the budget cannot be met: there is no chosen assignment to measure.</param>
+/// <param name="Predicted">May be infinite (an SQNR with no predicted error); never NaN.</param>
 /// <param name="WarningsJson">The engine's warnings (e.g. layers the calibration set does not exercise) as a JSON array of strings, kept as
 /// stored so the record compares by value; null for results stored before warnings existed.</param>
 /// <param name="Measured">The budget metric on the calibration set (worst judged output).</param>
@@ -16,11 +19,11 @@ internal sealed record ResultRecord(
     string? ModelSha256,
     string SensitivitySha256,
     string FrontierSha256,
-    long Bytes,
-    double AverageBits,
-    double Compression,
-    double Predicted,
-    double Measured,
+    long? Bytes,
+    double? AverageBits,
+    double? Compression,
+    double? Predicted,
+    double? Measured,
     int TrialCount,
     string? WarningsJson = null,
     int? HeldOutSamples = null,

@@ -164,11 +164,11 @@ internal sealed class SearchStore(Database database)
             insert.Parameters.AddWithValue("$model", (object?)result.ModelSha256 ?? DBNull.Value);
             insert.Parameters.AddWithValue("$csv", result.SensitivitySha256);
             insert.Parameters.AddWithValue("$frontier", result.FrontierSha256);
-            insert.Parameters.AddWithValue("$bytes", result.Bytes);
-            insert.Parameters.AddWithValue("$bits", result.AverageBits);
-            insert.Parameters.AddWithValue("$compression", result.Compression);
-            insert.Parameters.AddWithValue("$predicted", result.Predicted);
-            insert.Parameters.AddWithValue("$measured", result.Measured);
+            insert.Parameters.AddWithValue("$bytes", (object?)result.Bytes ?? DBNull.Value);
+            insert.Parameters.AddWithValue("$bits", Real(result.AverageBits));
+            insert.Parameters.AddWithValue("$compression", Real(result.Compression));
+            insert.Parameters.AddWithValue("$predicted", Real(result.Predicted));
+            insert.Parameters.AddWithValue("$measured", Real(result.Measured));
             insert.Parameters.AddWithValue("$trials", result.TrialCount);
             insert.Parameters.AddWithValue("$warnings", (object?)result.WarningsJson ?? DBNull.Value);
             insert.Parameters.AddWithValue("$fileBytes", (object?)result.ModelFileBytes ?? DBNull.Value);
@@ -249,11 +249,11 @@ internal sealed class SearchStore(Database database)
             reader.IsDBNull(4) ? null : reader.GetString(4),
             reader.GetString(5),
             reader.GetString(6),
-            reader.GetInt64(7),
-            reader.GetDouble(8),
-            reader.GetDouble(9),
-            reader.GetDouble(10),
-            reader.GetDouble(11),
+            reader.IsDBNull(7) ? null : reader.GetInt64(7),
+            reader.IsDBNull(8) ? null : reader.GetDouble(8),
+            reader.IsDBNull(9) ? null : reader.GetDouble(9),
+            reader.IsDBNull(10) ? null : reader.GetDouble(10),
+            reader.IsDBNull(11) ? null : reader.GetDouble(11),
             reader.GetInt32(12),
             reader.IsDBNull(13) ? null : reader.GetString(13),
             reader.IsDBNull(14) ? null : reader.GetInt32(14),
@@ -273,13 +273,14 @@ internal sealed class SearchStore(Database database)
         return Convert.ToInt32(command.ExecuteScalar(), System.Globalization.CultureInfo.InvariantCulture);
     }
 
-    /// <summary>How many searches are in each state (every state listed, zero included).</summary>
+    /// <summary>How many searches are in each state (every state listed, zero included), from the counters the triggers keep.</summary>
     public IReadOnlyDictionary<string, long> CountByState()
     {
         var counts = SearchStates.All.ToDictionary(s => s, _ => 0L, StringComparer.Ordinal);
         using var connection = database.Open();
         using var command = connection.CreateCommand();
-        command.CommandText = "SELECT state, COUNT(*) FROM searches GROUP BY state;";
+        // Kept by triggers as searches change state (migration 2): a scrape reads a few rows, never the table.
+        command.CommandText = "SELECT state, count FROM search_counts;";
         using var reader = command.ExecuteReader();
         while (reader.Read())
         {
@@ -288,6 +289,9 @@ internal sealed class SearchStore(Database database)
 
         return counts;
     }
+
+    /// <summary>SQLite keeps infinities in a REAL column but refuses NaN ("no number"), which is stored as NULL.</summary>
+    private static object Real(double? value) => value is { } v && !double.IsNaN(v) ? v : DBNull.Value;
 
     private int Execute(string sql, params (string Name, object? Value)[] parameters)
     {

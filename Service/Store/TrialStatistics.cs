@@ -1,37 +1,39 @@
-using System.Globalization;
-using System.Text;
-
 namespace Bitbudget.Service.Store;
 
-/// <summary>Aggregates over every stored trial, for the metrics endpoint.</summary>
+/// <summary>
+/// The trial duration histogram for the metrics endpoint, read from counters that a trigger updates in
+/// the transaction that stores each trial (migration 2), so a scrape reads twelve rows however many
+/// trials are stored.
+/// </summary>
 internal sealed class TrialStatistics(Database database)
 {
-    /// <summary>Upper bounds of the trial duration histogram, in seconds (common practice: roughly x2.5 steps).</summary>
+    /// <summary>
+    /// Upper bounds of the trial duration histogram, in seconds (common practice: roughly x2.5 steps).
+    /// The trigger <c>trial_counted</c> of migration 2 holds the same bounds in milliseconds.
+    /// </summary>
     public static IReadOnlyList<double> BucketsSeconds { get; } = [0.01, 0.025, 0.05, 0.1, 0.25, 0.5, 1, 2.5, 5, 10, 30];
 
     /// <summary>Cumulative counts per bucket (one per bound, then +Inf), the total count and the sum of durations in seconds.</summary>
     public (long[] Cumulative, long Count, double SumSeconds) DurationHistogram()
     {
-        var sql = new StringBuilder("SELECT COUNT(*), COALESCE(SUM(duration_ms), 0)");
-        foreach (var bound in BucketsSeconds)
-        {
-            sql.Append(CultureInfo.InvariantCulture, $", COALESCE(SUM(CASE WHEN duration_ms <= {bound * 1000} THEN 1 ELSE 0 END), 0)");
-        }
-
-        sql.Append(" FROM trials;");
         using var connection = database.Open();
         using var command = connection.CreateCommand();
-        command.CommandText = sql.ToString();
+        command.CommandText = "SELECT bucket, count, sum_ms FROM trial_buckets ORDER BY bucket;";
         using var reader = command.ExecuteReader();
-        reader.Read();
-        var count = reader.GetInt64(0);
         var cumulative = new long[BucketsSeconds.Count + 1];
-        for (var i = 0; i < BucketsSeconds.Count; i++)
+        var sumMs = 0.0;
+        while (reader.Read())
         {
-            cumulative[i] = reader.GetInt64(2 + i);
+            var bucket = Math.Min(reader.GetInt32(0), cumulative.Length - 1);
+            cumulative[bucket] += reader.GetInt64(1);
+            sumMs += reader.GetDouble(2);
         }
 
-        cumulative[^1] = count;
-        return (cumulative, count, reader.GetDouble(1) / 1000);
+        for (var i = 1; i < cumulative.Length; i++)
+        {
+            cumulative[i] += cumulative[i - 1];
+        }
+
+        return (cumulative, cumulative[^1], sumMs / 1000);
     }
 }

@@ -223,7 +223,7 @@ public sealed class SearchesApiTests(ServiceFactory factory) : IClassFixture<Ser
         var done = await client.WaitForStateAsync(id, "succeeded");
 
         Assert.False(done.GetProperty("summary").GetProperty("feasible").GetBoolean());
-        await (await client.GetAsync($"/v1/searches/{id}/model")).AssertProblemAsync(HttpStatusCode.Conflict, "no-quantized-model");
+        await (await client.GetAsync($"/v1/searches/{id}/model")).AssertProblemAsync(HttpStatusCode.Conflict, "budget-infeasible");
         Assert.Equal(HttpStatusCode.OK, (await client.GetAsync($"/v1/searches/{id}/manifest")).StatusCode);
     }
 
