@@ -12,14 +12,17 @@ internal static partial class OperationsApi
 {
     public static IEndpointRouteBuilder MapOperationsApi(this IEndpointRouteBuilder app)
     {
-        app.MapGet("/healthz", Health).WithTags("Operations").WithName("Health").WithSummary("Whether the store and the job queue answer").ProducesProblem(503);
+        app.MapGet("/healthz", Health).WithTags("Operations").WithName("Health").WithSummary("Whether the store and the job queue answer, and the store takes a write").ProducesProblem(503);
         app.MapGet("/metrics", Metrics).WithTags("Operations").WithName("Metrics").WithSummary("Prometheus text exposition: searches by state, trials, trial durations");
         return app;
     }
 
-    public static Results<Ok<HealthResponse>, ProblemHttpResult> Health(Database database, SearchQueue queue, ILoggerFactory loggers)
+    public static Results<Ok<HealthResponse>, ProblemHttpResult> Health(Database database, SearchQueue queue, StoreProbe probe, ILoggerFactory loggers)
     {
         var store = Check(database.SchemaVersion);
+        // A full or read-only disk still answers reads: only a write tells whether uploads and searches can be stored.
+        var unwritable = store is null ? probe.Probe() : null;
+        store ??= unwritable is null ? null : "unwritable: " + unwritable;
         var jobs = Check(queue.Ping);
         if (store is null && jobs is null)
         {
@@ -29,8 +32,9 @@ internal static partial class OperationsApi
         LogUnhealthy(loggers.CreateLogger("Bitbudget.Service.Health"), store ?? "ok", jobs ?? "ok");
         return ProblemResults.Of(
             StatusCodes.Status503ServiceUnavailable,
-            ProblemTypes.Unhealthy,
-            $"Store: {store ?? "ok"}; queue: {jobs ?? "ok"}. Check the data folder's disk and permissions.");
+            unwritable is not null ? ProblemTypes.StoreUnavailable : ProblemTypes.Unhealthy,
+            $"Store: {store ?? "ok"}; queue: {jobs ?? "ok"}. Check the data folder's disk (free space) and permissions.",
+            new Dictionary<string, object?> { ["store"] = store ?? "ok", ["queue"] = jobs ?? "ok" });
     }
 
     public static ContentHttpResult Metrics(SearchStore searches, TrialStatistics trials)

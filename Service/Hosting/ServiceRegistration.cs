@@ -19,6 +19,7 @@ internal static class ServiceRegistration
 {
     public static WebApplicationBuilder AddBitbudgetServices(this WebApplicationBuilder builder)
     {
+        PrivateFiles.Apply();
         var services = builder.Services;
         var configured = builder.Configuration.GetSection(BitbudgetOptions.Section).Get<BitbudgetOptions>() ?? new BitbudgetOptions();
         services.AddOptions<BitbudgetOptions>().BindConfiguration(BitbudgetOptions.Section).ValidateDataAnnotations().ValidateOnStart();
@@ -71,13 +72,15 @@ internal static class ServiceRegistration
         services.AddSingleton(provider =>
         {
             var data = provider.GetRequiredService<IOptions<BitbudgetOptions>>().Value.DataPath;
-            Directory.CreateDirectory(data);
+            DataFolder.CreateDirectory(data);
+            DataFolder.CreatePrivateFile(Path.Combine(data, "bitbudget.db"));
             return new Database(Path.Combine(data, "bitbudget.db"));
         });
         services.AddSingleton(provider => new BlobStore(Path.Combine(provider.GetRequiredService<IOptions<BitbudgetOptions>>().Value.DataPath, "blobs")));
         services.AddSingleton<CatalogStore>();
         services.AddSingleton<SearchStore>();
         services.AddSingleton<TrialStatistics>();
+        services.AddSingleton<StoreProbe>();
         return services;
     }
 
@@ -86,7 +89,8 @@ internal static class ServiceRegistration
         services.AddHangfire((provider, hangfire) =>
         {
             var options = provider.GetRequiredService<IOptions<BitbudgetOptions>>().Value;
-            Directory.CreateDirectory(options.DataPath);
+            DataFolder.CreateDirectory(options.DataPath);
+            DataFolder.CreatePrivateFile(Path.Combine(options.DataPath, "jobs.db"));
             hangfire
                 .SetDataCompatibilityLevel(CompatibilityLevel.Version_180)
                 .UseSimpleAssemblyNameTypeSerializer()
@@ -114,6 +118,7 @@ internal static class ServiceRegistration
         app.UseBitbudgetProblems();
         app.UseAuthentication();
         app.UseAuthorization();
+        app.UseStoreWriteGate();
         app.UseRequestTimeouts();
         return app;
     }

@@ -16,6 +16,9 @@ internal sealed class SearchCancellations
         return new Registration(this, searchId, source);
     }
 
+    /// <summary>True while a run of the search is in progress in this process.</summary>
+    public bool IsRunningHere(string searchId) => running.TryGetValue(searchId, out var sources) && !sources.IsEmpty;
+
     public void Cancel(string searchId)
     {
         if (running.TryGetValue(searchId, out var sources))

@@ -20,10 +20,14 @@ internal sealed partial class SearchJob(
     Database database,
     ISearchEngine engine,
     SearchCancellations cancellations,
+    StoreProbe probe,
     IOptions<BitbudgetOptions> options,
     ILogger<SearchJob> logger)
 {
-    /// <summary>Total runs of one search before an unexpected error fails it (Hangfire's retries plus the first run).</summary>
+    /// <summary>
+    /// Runs of one search that may end in an unexpected error before the search is failed. Restarts after a
+    /// crash or a shutdown and faults of the data folder are not the search's failures and do not count.
+    /// </summary>
     public const int MaxAttempts = 3;
 
 
@@ -117,20 +121,45 @@ internal sealed partial class SearchJob(
             searches.Fail(searchId, owner, e.Code, e.Message);
             LogEngineRefused(logger, searchId, e.Code, e.Message);
         }
+        catch (Exception e) when (IsStorageFault(e))
+        {
+            // The disk, not the search: hand it back uncounted. If even that write fails, the lease lapses and
+            // the recovery loop queues the search again once the store can be written.
+            TryRelease(searchId, owner);
+            LogStorageFault(logger, e, searchId);
+            throw;
+        }
         catch (Exception e)
         {
             var code = e is EngineException engineError ? engineError.Code : "search-crashed";
-            if (search.Attempts >= MaxAttempts)
+            var failures = search.Failures + 1;
+            if (failures >= MaxAttempts)
             {
-                searches.Fail(searchId, owner, code, $"The search failed {MaxAttempts} times; the last error was: {e.Message}");
+                searches.Fail(searchId, owner, code, $"The search failed {failures} times; the last error was: {e.Message}");
             }
             else
             {
-                searches.Release(searchId, owner, code, $"Attempt {search.Attempts} of {MaxAttempts} failed ({e.Message}); retrying.");
+                searches.Release(searchId, owner, code, $"Run failed ({e.Message}); retrying: failure {failures} of the {MaxAttempts} allowed.", failed: true);
             }
 
-            LogAttemptFailed(logger, e, searchId, search.Attempts, MaxAttempts);
+            LogAttemptFailed(logger, e, searchId, failures, MaxAttempts);
             throw;
+        }
+    }
+
+    /// <summary>A fault of the data folder: SQLite's disk-full or read-only codes, or an I/O error the store probe confirms.</summary>
+    private bool IsStorageFault(Exception e) =>
+        e is not EngineException && (StorageFault.Is(e) || (e is IOException && probe.Probe() is not null));
+
+    private void TryRelease(string searchId, string owner)
+    {
+        try
+        {
+            searches.Release(searchId, owner);
+        }
+        catch (Exception e) when (StorageFault.Is(e))
+        {
+            LogHeartbeatFailed(logger, e);
         }
     }
 
@@ -190,8 +219,11 @@ internal sealed partial class SearchJob(
     [LoggerMessage(EventId = 3005, Level = LogLevel.Warning, Message = "Search {SearchId} failed: {Code}: {Reason}")]
     private static partial void LogEngineRefused(ILogger logger, string searchId, string code, string reason);
 
-    [LoggerMessage(EventId = 3006, Level = LogLevel.Error, Message = "Search {SearchId} attempt {Attempt} of {MaxAttempts} failed")]
-    private static partial void LogAttemptFailed(ILogger logger, Exception exception, string searchId, int attempt, int maxAttempts);
+    [LoggerMessage(EventId = 3006, Level = LogLevel.Error, Message = "Search {SearchId} failed (failure {Failures} of the {MaxAttempts} allowed)")]
+    private static partial void LogAttemptFailed(ILogger logger, Exception exception, string searchId, int failures, int maxAttempts);
+
+    [LoggerMessage(EventId = 3010, Level = LogLevel.Error, Message = "Search {SearchId} interrupted: the data folder cannot be written; it will be queued again, uncounted, once it can")]
+    private static partial void LogStorageFault(ILogger logger, Exception exception, string searchId);
 
     [LoggerMessage(EventId = 3007, Level = LogLevel.Information, Message = "Search {SearchId} is already finished; nothing to do")]
     private static partial void LogAlreadyFinished(ILogger logger, string searchId);

@@ -6,9 +6,11 @@ namespace Bitbudget.Service.Jobs;
 /// <summary>
 /// Re-queues searches that nothing will run any more: queued or running searches whose Hangfire job is
 /// gone (lost queue, expired job, crash between store and queue), and running searches whose job is still
-/// marked processing while their lease has lapsed (live runs renew it every few seconds, so the worker died).
+/// marked processing while no run holds them: the lease lapsed (live runs renew it every few seconds, so the
+/// worker died) or was given up by a run that then could not tell the queue (a failed attempt during a
+/// disk-full blip leaves its job "processing" with nobody behind it).
 /// </summary>
-internal sealed partial class SearchRecovery(SearchStore searches, SearchQueue queue, ILogger<SearchRecovery> logger)
+internal sealed partial class SearchRecovery(SearchStore searches, SearchQueue queue, SearchCancellations local, ILogger<SearchRecovery> logger)
 {
     /// <returns>How many searches were re-queued.</returns>
     public int Run()
@@ -19,7 +21,8 @@ internal sealed partial class SearchRecovery(SearchStore searches, SearchQueue q
         {
             var orphaned = search.JobId is not null
                 && search.State == SearchStates.Running
-                && search.LeaseUntil is { } until && until < now
+                && (search.LeaseUntil is not { } until || until < now)
+                && !local.IsRunningHere(search.Id)
                 && queue.IsProcessing(search.JobId);
             if (search.JobId is not null && queue.IsAlive(search.JobId) && !orphaned)
             {

@@ -1,4 +1,5 @@
 using Bitbudget.Search;
+using Bitbudget.Service.Store;
 using Microsoft.AspNetCore.Diagnostics;
 using Microsoft.AspNetCore.Mvc;
 
@@ -6,12 +7,25 @@ namespace Bitbudget.Service.Problems;
 
 /// <summary>
 /// Turns exceptions that escape a handler into problem responses: the engine's and the service's own
-/// refusals keep their codes; anything else is a 500 that names the trace id and never the stack.
+/// refusals keep their codes; a data folder that cannot be written is a 503 the client may retry; anything
+/// else is a 500 that names the trace id and never the stack.
 /// </summary>
-internal sealed partial class ProblemExceptionHandler(IProblemDetailsService problems, ILogger<ProblemExceptionHandler> logger) : IExceptionHandler
+internal sealed partial class ProblemExceptionHandler(IProblemDetailsService problems, StoreProbe probe, ILogger<ProblemExceptionHandler> logger) : IExceptionHandler
 {
     public async ValueTask<bool> TryHandleAsync(HttpContext httpContext, Exception exception, CancellationToken cancellationToken)
     {
+        if (exception is not BadHttpRequestException && StoreFault(exception) is { } fault)
+        {
+            LogStoreFault(logger, exception, httpContext.Request.Path);
+            StoreUnavailableResponse.Prepare(httpContext);
+            return await problems.TryWriteAsync(new ProblemDetailsContext
+            {
+                HttpContext = httpContext,
+                ProblemDetails = StoreUnavailableResponse.Problem(fault),
+                Exception = exception,
+            }).ConfigureAwait(false);
+        }
+
         var (status, code, detail, errors) = exception switch
         {
             ServiceException e => (e.Status, e.Code, e.Message, e.Errors),
@@ -36,6 +50,20 @@ internal sealed partial class ProblemExceptionHandler(IProblemDetailsService pro
         return await problems.TryWriteAsync(new ProblemDetailsContext { HttpContext = httpContext, ProblemDetails = problem, Exception = exception })
             .ConfigureAwait(false);
     }
+
+    /// <summary>What cannot be written, when the exception is a fault of the data folder (SQLite's disk codes, or an I/O error the probe confirms).</summary>
+    private string? StoreFault(Exception exception)
+    {
+        if (!StorageFault.Is(exception) && exception is not IOException)
+        {
+            return null;
+        }
+
+        return probe.Probe() ?? (StorageFault.Is(exception) ? exception.Message : null);
+    }
+
+    [LoggerMessage(EventId = 1001, Level = LogLevel.Error, Message = "The data folder could not be written while serving {Path}")]
+    private static partial void LogStoreFault(ILogger logger, Exception exception, string path);
 
     [LoggerMessage(EventId = 1000, Level = LogLevel.Error, Message = "Unexpected error while serving {Path}")]
     private static partial void LogUnexpected(ILogger logger, Exception exception, string path);

@@ -20,6 +20,7 @@ internal static class ProblemTypes
     public const string UnsupportedMediaType = "unsupported-media-type";
     public const string Timeout = "request-timeout";
     public const string Unhealthy = "unhealthy";
+    public const string StoreUnavailable = "store-unavailable";
     public const string InternalError = "internal-error";
 
     public static string Uri(string code) => Base + code;

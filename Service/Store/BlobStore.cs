@@ -4,10 +4,14 @@ namespace Bitbudget.Service.Store;
 
 /// <summary>
 /// Content-addressed files under &lt;data&gt;/blobs: a blob's name is the SHA-256 of its bytes, so a write
-/// is idempotent and a reader never sees a half-written file.
+/// is idempotent and a reader never sees a half-written file. Files are readable by the service's user
+/// only (0600, folders 0700): models and calibration data are often confidential.
 /// </summary>
 internal sealed class BlobStore
 {
+    /// <summary>Staged files older than this are left over from a crashed write (a live write takes seconds) and are removed at start.</summary>
+    public static readonly TimeSpan StaleStagedAge = TimeSpan.FromHours(1);
+
     private readonly string root;
     private readonly string staging;
 
@@ -15,7 +19,44 @@ internal sealed class BlobStore
     {
         this.root = root;
         staging = System.IO.Path.Combine(root, "tmp");
-        Directory.CreateDirectory(staging);
+        DataFolder.CreateDirectory(root);
+        DataFolder.CreateDirectory(staging);
+    }
+
+    /// <summary>
+    /// Deletes staged files a crashed write left behind (a kill -9 between create and rename skips the
+    /// finally that removes them). Only old ones: another process on the same folder may be writing now.
+    /// </summary>
+    /// <returns>How many were removed.</returns>
+    public int RemoveStaleStagedFiles(DateTimeOffset now)
+    {
+        var removed = 0;
+        foreach (var file in Directory.EnumerateFiles(staging, "*.part"))
+        {
+            if (now - File.GetLastWriteTimeUtc(file) > StaleStagedAge)
+            {
+                File.Delete(file);
+                removed++;
+            }
+        }
+
+        return removed;
+    }
+
+    /// <summary>Writes, flushes and deletes a small file where blobs are staged; throws when the folder cannot take a write.</summary>
+    public void ProbeWrite()
+    {
+        var probe = System.IO.Path.Combine(staging, $"probe.{Guid.NewGuid():N}.part");
+        try
+        {
+            using var stream = new FileStream(probe, DataFolder.NewFile(FileMode.CreateNew, FileAccess.Write, bufferSize: 1));
+            stream.Write("probe"u8);
+            stream.Flush(flushToDisk: true);
+        }
+        finally
+        {
+            File.Delete(probe);
+        }
     }
 
     public static string Sha256Hex(ReadOnlySpan<byte> bytes) => Convert.ToHexStringLower(SHA256.HashData(bytes));
@@ -31,11 +72,11 @@ internal sealed class BlobStore
             return sha;
         }
 
-        Directory.CreateDirectory(System.IO.Path.GetDirectoryName(target)!);
+        DataFolder.CreateDirectory(System.IO.Path.GetDirectoryName(target)!);
         var temp = System.IO.Path.Combine(staging, $"{sha}.{Guid.NewGuid():N}.part");
         try
         {
-            using (var stream = new FileStream(temp, FileMode.CreateNew, FileAccess.Write, FileShare.None, 1 << 16, FileOptions.None))
+            using (var stream = new FileStream(temp, DataFolder.NewFile(FileMode.CreateNew, FileAccess.Write, bufferSize: 1 << 16)))
             {
                 stream.Write(bytes);
                 // Data must reach the disk before the rename makes it visible under its final name.

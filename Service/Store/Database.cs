@@ -58,6 +58,19 @@ internal sealed class Database(string path)
         return current;
     }
 
+    /// <summary>Writes the one row of <c>store_probe</c>; throws when the file cannot take a write (disk full, read-only).</summary>
+    public void ProbeWrite()
+    {
+        using var connection = Open();
+        using var command = connection.CreateCommand();
+        command.CommandText = """
+            INSERT INTO store_probe (id, written_at) VALUES (1, $at)
+            ON CONFLICT(id) DO UPDATE SET written_at = excluded.written_at;
+            """;
+        command.Parameters.AddWithValue("$at", DateTimeOffset.UtcNow.ToString("O"));
+        command.ExecuteNonQuery();
+    }
+
     public int SchemaVersion()
     {
         using var connection = Open();

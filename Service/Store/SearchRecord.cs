@@ -2,6 +2,8 @@ using Bitbudget.Service.Searches;
 
 namespace Bitbudget.Service.Store;
 
+/// <param name="Attempts">Runs that took the search (restarts after a crash included), for the log.</param>
+/// <param name="Failures">Runs that ended in an error of the search itself; these, not restarts, use up the retry budget.</param>
 internal sealed record SearchRecord(
     string Id,
     string ModelId,
@@ -21,4 +23,5 @@ internal sealed record SearchRecord(
     DateTimeOffset CreatedAt,
     DateTimeOffset? StartedAt,
     DateTimeOffset? FinishedAt,
-    DateTimeOffset? LeaseUntil);
+    DateTimeOffset? LeaseUntil,
+    int Failures);

@@ -10,9 +10,12 @@ namespace Bitbudget.Service.Store;
 /// </summary>
 internal sealed class SearchStore(Database database)
 {
+    /// <summary>How long a released search is left to its queued retry before recovery may queue it again.</summary>
+    public static readonly TimeSpan ReleaseGrace = TimeSpan.FromSeconds(10);
+
     private const string Columns = """
         id, model_id, dataset_id, settings_json, state, stage, progress_done, progress_total, eta_seconds,
-        error_code, error_message, job_id, attempts, idempotency_key, request_hash, created_at, started_at, finished_at, lease_until
+        error_code, error_message, job_id, attempts, idempotency_key, request_hash, created_at, started_at, finished_at, lease_until, failures
         """;
 
     /// <summary>Adds a queued search, or returns the one already stored under the same idempotency key.</summary>
@@ -191,7 +194,7 @@ internal sealed class SearchStore(Database database)
             """
             UPDATE searches
             SET state = 'failed', error_code = $code, error_message = $message, finished_at = $now,
-                eta_seconds = NULL, lease_owner = NULL, lease_until = NULL
+                eta_seconds = NULL, lease_owner = NULL, lease_until = NULL, failures = failures + 1
             WHERE id = $id AND state = 'running' AND lease_owner = $owner;
             """,
             ("$id", id),
@@ -200,17 +203,29 @@ internal sealed class SearchStore(Database database)
             ("$message", message),
             ("$now", Clock.Format(DateTimeOffset.UtcNow))) == 1;
 
-    /// <summary>Gives the lease up so another run can take over at once (shutdown, or a retry after an error).</summary>
-    public void Release(string id, string owner, string? errorCode = null, string? errorMessage = null) =>
+    /// <summary>
+    /// Gives the lease up so another run can take over at once: after a shutdown or a storage fault (which
+    /// are not the search's fault, <paramref name="failed"/> false), or after an error of the search that
+    /// it will be retried from (<paramref name="failed"/> true counts it against the retry budget).
+    /// </summary>
+    /// <remarks>
+    /// Any run may claim a released search at once (no owner), but <c>lease_until</c> stays a few seconds
+    /// ahead: that is the time the queue takes to record the retry, during which recovery must not see the
+    /// search as abandoned and queue it a second time.
+    /// </remarks>
+    public void Release(string id, string owner, string? errorCode = null, string? errorMessage = null, bool failed = false) =>
         Execute(
             """
-            UPDATE searches SET lease_owner = NULL, lease_until = NULL, error_code = $code, error_message = $message
+            UPDATE searches SET lease_owner = NULL, lease_until = $until, error_code = $code, error_message = $message,
+                failures = failures + $failed
             WHERE id = $id AND state = 'running' AND lease_owner = $owner;
             """,
             ("$id", id),
             ("$owner", owner),
+            ("$until", Clock.Format(DateTimeOffset.UtcNow + ReleaseGrace)),
             ("$code", errorCode),
-            ("$message", errorMessage));
+            ("$message", errorMessage),
+            ("$failed", failed ? 1 : 0));
 
     /// <summary>Cancels a queued or running search.</summary>
     /// <returns>False when the search had already finished.</returns>
@@ -339,7 +354,8 @@ internal sealed class SearchStore(Database database)
                 Clock.Parse(reader.GetString(15)),
                 Clock.ParseOrNull(reader.IsDBNull(16) ? null : reader.GetString(16)),
                 Clock.ParseOrNull(reader.IsDBNull(17) ? null : reader.GetString(17)),
-                Clock.ParseOrNull(reader.IsDBNull(18) ? null : reader.GetString(18))));
+                Clock.ParseOrNull(reader.IsDBNull(18) ? null : reader.GetString(18)),
+                reader.GetInt32(19)));
         }
 
         return list;

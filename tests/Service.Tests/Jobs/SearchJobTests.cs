@@ -86,7 +86,8 @@ public sealed class SearchJobTests : IDisposable
             var retrying = Store().Find(id)!;
             Assert.Equal("running", retrying.State);
             Assert.Equal("search-crashed", retrying.ErrorCode);
-            Assert.Contains($"Attempt {attempt} of 3 failed", retrying.ErrorMessage, StringComparison.Ordinal);
+            Assert.Contains($"failure {attempt} of the 3 allowed", retrying.ErrorMessage, StringComparison.Ordinal);
+            Assert.Equal(attempt, retrying.Failures);
         }
 
         await Assert.ThrowsAsync<InvalidOperationException>(() => Job().RunAsync(id, CancellationToken.None));
@@ -99,6 +100,72 @@ public sealed class SearchJobTests : IDisposable
         // The double crashes after the reference and the 18 sweep trials; reruns measured none of them again.
         Assert.Equal(1 + 18, Trials(id).Page(0, 100).Total);
         Assert.Equal(1 + 18, factory.Engine.Measured["crash"].Count);
+    }
+
+    [Fact]
+    public async Task RestartsAfterACrashDoNotUseUpTheRetryBudget()
+    {
+        var id = await QueueAsync("restarts", FakeSearchEngine.Model("restarts", options: "crash"));
+        // Three kill -9 restarts: each run claimed the search, then died without a word; the next took over once the lease lapsed.
+        for (var restart = 0; restart < 3; restart++)
+        {
+            Assert.Equal(ClaimOutcome.Claimed, Store().TryClaim(id, $"killed-{restart}", TimeSpan.FromMilliseconds(-1)));
+        }
+
+        await Assert.ThrowsAsync<InvalidOperationException>(() => Job().RunAsync(id, CancellationToken.None));
+
+        // The first real failure of the search: retried, and the message counts failures, not runs.
+        var retrying = Store().Find(id)!;
+        Assert.Equal("running", retrying.State);
+        Assert.Equal(4, retrying.Attempts);
+        Assert.Equal(1, retrying.Failures);
+        Assert.Contains("failure 1 of the 3 allowed", retrying.ErrorMessage, StringComparison.Ordinal);
+    }
+
+    [Fact]
+    public async Task ASearchInterruptedByAFullDiskIsQueuedAgainUncountedAndThenSucceeds()
+    {
+        var id = await QueueAsync("disk-full", FakeSearchEngine.Model("disk-full", options: "disk-full-once"));
+        var job = Store().Find(id)!.JobId!;
+        MarkProcessing(job);
+
+        await Assert.ThrowsAsync<Microsoft.Data.Sqlite.SqliteException>(() => Job().RunAsync(id, CancellationToken.None));
+
+        var interrupted = Store().Find(id)!;
+        Assert.Equal("running", interrupted.State);
+        Assert.Equal(0, interrupted.Failures);
+        // The queue could not record the retry either (same full disk), so the job is still "processing" with
+        // nobody running it. Within the release grace recovery leaves it to the queue's retry ...
+        var recovery = factory.Services.GetRequiredService<SearchRecovery>();
+        Assert.Equal(0, recovery.Run());
+        // ... and once the grace has passed (moved into the past here rather than waited for), it queues it again.
+        ExecuteSql($"UPDATE searches SET lease_until = '{Clock.Format(DateTimeOffset.UtcNow.AddSeconds(-1))}' WHERE id = '{id}';");
+        Assert.Equal(1, recovery.Run());
+        Assert.Equal(0, recovery.Run());
+        Assert.NotEqual(job, Store().Find(id)!.JobId);
+
+        await Job().RunAsync(id, CancellationToken.None);
+        Assert.Equal("succeeded", Store().Find(id)!.State);
+        var measured = factory.Engine.Measured["disk-full"].ToList();
+        Assert.Equal(measured.Count, measured.Distinct().Count());
+    }
+
+    [Fact]
+    public async Task RecoveryLeavesASearchThisProcessIsRunningAlone()
+    {
+        var id = await QueueAsync("running-here");
+        MarkProcessing(Store().Find(id)!.JobId!);
+        var hold = factory.Engine.HoldRun("running-here");
+        var run = Job().RunAsync(id, CancellationToken.None);
+        await hold.Started.Task.WaitAsync(TimeSpan.FromSeconds(30));
+        // A lease that looks lapsed (a slow disk delayed the renewal), while the run is alive in this process.
+        ExecuteSql($"UPDATE searches SET lease_until = '{Clock.Format(DateTimeOffset.UtcNow.AddSeconds(-1))}' WHERE id = '{id}';");
+
+        Assert.Equal(0, factory.Services.GetRequiredService<SearchRecovery>().Run());
+
+        hold.Release();
+        await run.WaitAsync(TimeSpan.FromSeconds(30));
+        Assert.Equal("succeeded", Store().Find(id)!.State);
     }
 
     [Fact]
@@ -165,13 +232,7 @@ public sealed class SearchJobTests : IDisposable
         var id = await QueueAsync("orphan");
         var recovery = factory.Services.GetRequiredService<SearchRecovery>();
         var job = Store().Find(id)!.JobId!;
-        using (var connection = factory.Services.GetRequiredService<JobStorage>().GetConnection())
-        using (var transaction = connection.CreateWriteTransaction())
-        {
-            // As a worker leaves it when its process dies mid-job.
-            transaction.SetJobState(job, new ProcessingMark());
-            transaction.Commit();
-        }
+        MarkProcessing(job);
 
         Store().TryClaim(id, "worker", TimeSpan.FromMinutes(1));
         Assert.Equal(0, recovery.Run());
@@ -218,6 +279,23 @@ public sealed class SearchJobTests : IDisposable
         var search = await client.StartSearchAsync(new { modelId, datasetId, budget = new { metric = "sqnr", atLeast = 20 } });
         Assert.Equal("queued", search.GetProperty("state").GetString());
         return search.GetProperty("id").GetString()!;
+    }
+
+    /// <summary>Leaves the job "processing", as a worker does when its process dies mid-job or the queue cannot record what came next.</summary>
+    private void MarkProcessing(string job)
+    {
+        using var connection = factory.Services.GetRequiredService<JobStorage>().GetConnection();
+        using var transaction = connection.CreateWriteTransaction();
+        transaction.SetJobState(job, new ProcessingMark());
+        transaction.Commit();
+    }
+
+    private void ExecuteSql(string sql)
+    {
+        using var connection = factory.Services.GetRequiredService<Database>().Open();
+        using var command = connection.CreateCommand();
+        command.CommandText = sql;
+        command.ExecuteNonQuery();
     }
 
     private static TimeSpan ProgressReporterMinInterval() => ProgressReporter.MinInterval + TimeSpan.FromMilliseconds(50);

@@ -35,7 +35,7 @@ internal sealed class FakeSearchEngine : ISearchEngine
     /// <summary>
     /// A fake model: "layer NAME OP PARAMETERS" lines; options: "opset N", "quantized" (refused as already
     /// quantized), "fail CODE" (RunSearch throws a non-retryable EngineException), "crash" (RunSearch throws
-    /// a plain exception).
+    /// a plain exception), "disk-full-once" (the first run throws SQLite's "database or disk is full" after the sweep).
     /// </summary>
     public static byte[] Model(string tag, int opset = 13, string input = "image", IEnumerable<string>? layers = null, params string[] options)
     {
@@ -179,6 +179,12 @@ internal sealed class FakeSearchEngine : ISearchEngine
         if (lines.FirstOrDefault(l => l.StartsWith("fail ", StringComparison.Ordinal)) is { } fail)
         {
             throw new EngineException(fail[5..], "Even 8 bits everywhere cannot run this model on the calibration set.");
+        }
+
+        if (lines.Contains("disk-full-once") && Runs[modelName] == 1)
+        {
+            // What Microsoft.Data.Sqlite throws when a write meets a full disk: SQLITE_FULL, result code 13 (sqlite.org/rescode.html).
+            throw new Microsoft.Data.Sqlite.SqliteException("SQLite Error 13: 'database or disk is full'.", 13);
         }
 
         if (lines.Contains("crash"))
