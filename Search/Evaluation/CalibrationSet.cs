@@ -292,6 +292,29 @@ public sealed class CalibrationSet
         return DatasetErrors.FormatShape(index);
     }
 
+    /// <summary>
+    /// Throws <c>dataset-labels-out-of-range</c> unless every label is a class of the judged output: an
+    /// index in [0, <paramref name="classes"/>), the length of that output's last axis. A label outside
+    /// can never match the output's argmax, so accuracy (and any accuracy budget) would be silently wrong.
+    /// </summary>
+    public void CheckLabels(long classes, string outputName)
+    {
+        if (Labels is not { } labels || classes <= 0)
+        {
+            return;
+        }
+
+        for (var i = 0; i < labels.Count; i++)
+        {
+            if (labels[i] >= classes)
+            {
+                throw new EngineException(
+                    DatasetErrors.LabelsOutOfRangeCode,
+                    $"Array '{LabelsName}' holds {labels[i]} at index {i}, but the model's output '{outputName}', on which accuracy is judged, has {classes} classes: labels must lie in [0, {classes}). Check that the labels are class indices of this model.");
+            }
+        }
+    }
+
     private static long[] ReadLabels(NpyArray array, long samples)
     {
         if (array.Shape.Count != 1)

@@ -15,6 +15,9 @@ internal static class DatasetErrors
     /// <summary>The dataset does not fit the model's inputs.</summary>
     public const string MismatchCode = "dataset-mismatch";
 
+    /// <summary>A label is not a class of the output accuracy is judged on.</summary>
+    public const string LabelsOutOfRangeCode = "dataset-labels-out-of-range";
+
     /// <summary>A calibration array holds NaN or infinity.</summary>
     public const string NonFiniteCode = "dataset-non-finite";
 

@@ -86,6 +86,8 @@ public sealed class TrialSession : IDisposable
         var pass = Stopwatch.StartNew();
         ReferenceOutputs = Run(_full, _full.OutputNames, feedsOverride: null, extraFeeds: null);
         ForwardPassMilliseconds = pass.Elapsed.TotalMilliseconds;
+        // Accuracy compares labels with the argmax over the first output's last axis: a label past it never matches.
+        data.CheckLabels(ReferenceOutputs[0].Shape is [.., var classes] ? classes : 1, ReferenceOutputs[0].Name);
         ReferenceMetrics = Compare(ReferenceOutputs);
 
         if (options.SuffixRuns)

@@ -12,8 +12,8 @@ internal static partial class OperationsApi
 {
     public static IEndpointRouteBuilder MapOperationsApi(this IEndpointRouteBuilder app)
     {
-        app.MapGet("/healthz", Health).WithTags("Operations").WithName("Health").WithSummary("Whether the store and the job queue answer, and the store takes a write").ProducesProblem(503);
-        app.MapGet("/metrics", Metrics).WithTags("Operations").WithName("Metrics").WithSummary("Prometheus text exposition: searches by state, trials, trial durations");
+        app.MapGet("/healthz", Health).AllowAnonymous().WithTags("Operations").WithName("Health").WithSummary("Whether the store and the job queue answer, and the store takes a write").ProducesProblem(503);
+        app.MapGet("/metrics", Metrics).AllowAnonymous().WithTags("Operations").WithName("Metrics").WithSummary("Prometheus text exposition: searches by state, trials, trial durations");
         return app;
     }
 

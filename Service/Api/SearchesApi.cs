@@ -53,7 +53,7 @@ internal static class SearchesApi
         }
         catch (JsonException e)
         {
-            throw ServiceException.Invalid("body", $"The body is not a valid search request: {e.Message}");
+            throw JsonBodyError.From(e, typeof(SearchRequest), "search request");
         }
 
         if (body is null)

@@ -48,7 +48,12 @@ internal sealed class EngineAdapter(IOptions<BitbudgetOptions> options) : ISearc
         SearchMemoryEstimate.Of(loaded, headers, new TrialSessionOptions().MaxCachedActivationBytes, heldBytes: dataset.Length, sampleAxes: sampleAxes)
             .Check(options.Value.MaxSearchMemoryBytes, "Bitbudget:MaxSearchMemoryBytes");
         dataset.Position = 0;
-        CalibrationSet.Create(DatasetReader.Read(dataset, Limits), loaded.Inputs, sampleAxes);
+        var data = CalibrationSet.Create(DatasetReader.Read(dataset, Limits), loaded.Inputs, sampleAxes);
+        // When the judged output's class count is in the graph, refuse labels beyond it now rather than at search start.
+        if (loaded.Outputs is [{ Shape: [.., long classes] } judged, ..])
+        {
+            data.CheckLabels(classes, judged.Name);
+        }
     }
 
     public SearchResult RunSearch(

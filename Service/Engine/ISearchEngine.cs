@@ -17,7 +17,8 @@ internal interface ISearchEngine
 
     /// <summary>
     /// Throws <c>search-too-large</c> when a search would need more memory than the service allows,
-    /// <c>dataset-mismatch</c> when the dataset cannot feed the model's inputs, and the raise's codes
+    /// <c>dataset-mismatch</c> when the dataset cannot feed the model's inputs, <c>dataset-labels-out-of-range</c>
+    /// when a label is not a class of the model's first output, and the raise's codes
     /// (<c>opset-raise-*</c>) when <paramref name="targetOpset"/> is given and the model cannot be raised to it.
     /// </summary>
     /// <param name="sampleAxes">Sample axes given outright, by input name.</param>

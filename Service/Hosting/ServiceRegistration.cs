@@ -23,6 +23,7 @@ internal static class ServiceRegistration
         var services = builder.Services;
         var configured = builder.Configuration.GetSection(BitbudgetOptions.Section).Get<BitbudgetOptions>() ?? new BitbudgetOptions();
         services.AddOptions<BitbudgetOptions>().BindConfiguration(BitbudgetOptions.Section).ValidateDataAnnotations().ValidateOnStart();
+        builder.AddRequestSizeLimits();
         if (string.IsNullOrEmpty(builder.Configuration["urls"]))
         {
             builder.WebHost.UseUrls(configured.Listen);
@@ -116,9 +117,11 @@ internal static class ServiceRegistration
     public static WebApplication UseBitbudgetPipeline(this WebApplication app)
     {
         app.UseBitbudgetProblems();
+        app.UseRequestSizeGate();
         app.UseAuthentication();
         app.UseAuthorization();
         app.UseStoreWriteGate();
+        app.UseDashboardFormGuard();
         app.UseRequestTimeouts();
         return app;
     }
@@ -126,7 +129,7 @@ internal static class ServiceRegistration
     /// <summary>The OpenAPI document at /openapi/v1.json and, when enabled, the Hangfire dashboard at /jobs behind the API keys.</summary>
     public static WebApplication MapBitbudgetExtras(this WebApplication app)
     {
-        app.MapOpenApi();
+        app.MapOpenApi().AllowAnonymous();
         if (app.Services.GetRequiredService<IOptions<BitbudgetOptions>>().Value.Dashboard)
         {
             app.MapHangfireDashboard("/jobs", new DashboardOptions { Authorization = [], AsyncAuthorization = [] }).RequireAuthorization();

@@ -32,6 +32,8 @@ internal sealed partial class ProblemExceptionHandler(IProblemDetailsService pro
             EngineException e => (StatusCodes.Status422UnprocessableEntity, e.Code, e.Message, null),
             BadHttpRequestException { StatusCode: StatusCodes.Status413PayloadTooLarge } =>
                 (413, ProblemTypes.PayloadTooLarge, "The request body is larger than this endpoint accepts.", null),
+            BadHttpRequestException e when BindingError.Describe(e) is { } binding =>
+                (400, ProblemTypes.InvalidRequest, binding.Message, new Dictionary<string, string[]> { [binding.Field] = [binding.Message] }),
             BadHttpRequestException e => (e.StatusCode, ProblemTypes.ForStatus(e.StatusCode), "The request could not be read: " + e.Message, null),
             _ => (500, ProblemTypes.InternalError, $"The service hit an unexpected error; its log has the details under trace id {httpContext.TraceIdentifier}.", (IReadOnlyDictionary<string, string[]>?)null),
         };

@@ -23,6 +23,8 @@ internal static class ProblemRegistration
             problem.Extensions.Remove("exception");
         });
         services.AddExceptionHandler<ProblemExceptionHandler>();
+        // Binding failures throw (instead of a bare 400) so the handler can say which parameter and what it takes.
+        services.Configure<RouteHandlerOptions>(options => options.ThrowOnBadRequest = true);
         return services;
     }
 

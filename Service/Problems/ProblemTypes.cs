@@ -18,6 +18,8 @@ internal static class ProblemTypes
     public const string IdempotencyKeyReused = "idempotency-key-reused";
     public const string MethodNotAllowed = "method-not-allowed";
     public const string UnsupportedMediaType = "unsupported-media-type";
+    public const string UriTooLong = "uri-too-long";
+    public const string HeadersTooLarge = "headers-too-large";
     public const string Timeout = "request-timeout";
     public const string Unhealthy = "unhealthy";
     public const string StoreUnavailable = "store-unavailable";
@@ -40,7 +42,9 @@ internal static class ProblemTypes
         404 => NotFound,
         405 => MethodNotAllowed,
         413 => PayloadTooLarge,
+        414 => UriTooLong,
         415 => UnsupportedMediaType,
+        431 => HeadersTooLarge,
         503 => Unhealthy,
         504 => Timeout,
         _ => status >= 500 ? InternalError : InvalidRequest,

@@ -7,6 +7,24 @@ namespace Bitbudget.Search.Tests.Evaluation;
 public sealed class TrialSessionTests
 {
     [Fact]
+    public void LabelsBeyondTheJudgedOutputsClassesAreRefusedAtOpenNamingTheFirstBadOne()
+    {
+        // The MLP's logits have 10 classes; label 999999 (as sent by mistake for a 3-class model) can never be an argmax.
+        var model = SmallModels.Mlp();
+        var x = new float[4 * 16];
+        var data = CalibrationSet.Create(
+            [new NpyArray("x", ElementType.Float32, [4, 16], x), new NpyArray("labels", ElementType.Int64, [4], new long[] { 3, 9, 10, 999999 })],
+            model.Inputs);
+
+        var error = Assert.Throws<EngineException>(() => TrialSession.Open(model, data));
+
+        Assert.Equal("dataset-labels-out-of-range", error.Code);
+        Assert.Contains("holds 10 at index 2", error.Message, StringComparison.Ordinal);
+        Assert.Contains("'logits'", error.Message, StringComparison.Ordinal);
+        Assert.Contains("[0, 10)", error.Message, StringComparison.Ordinal);
+    }
+
+    [Fact]
     public void FullRunWithFp32WeightsReproducesTheReferenceExactly()
     {
         var model = SmallModels.Mlp();
