@@ -14,18 +14,32 @@ if (CommandLine.UnknownVerb(args) is { } unknown)
     return 2;
 }
 
-var builder = WebApplication.CreateBuilder(CommandLine.HostArguments(args));
-builder.AddBitbudgetServices();
+try
+{
+    var builder = WebApplication.CreateBuilder(CommandLine.HostArguments(args));
+    builder.AddBitbudgetServices();
 
-var app = builder.Build();
-app.UseBitbudgetPipeline();
-app.MapOperationsApi();
-app.MapModelsApi();
-app.MapDatasetsApi();
-app.MapSearchesApi();
-app.MapBitbudgetExtras();
-await app.RunAsync();
-return 0;
+    var app = builder.Build();
+    app.UseBitbudgetPipeline();
+    app.MapOperationsApi();
+    app.MapModelsApi();
+    app.MapDatasetsApi();
+    app.MapSearchesApi();
+    app.MapBitbudgetExtras();
+    await app.RunAsync();
+    return 0;
+}
+catch (Exception e) when (System.Reflection.Assembly.GetEntryAssembly() == typeof(Program).Assembly && StartupFailure.Describe(e) is { } lines)
+{
+    // A setting out of range or a key file others can read: one line each, and an exit code, not a core dump.
+    // (Hosted by another program, such as the functional tests' WebApplicationFactory, the exception goes to it.)
+    foreach (var line in lines)
+    {
+        await Console.Error.WriteLineAsync("error: " + line);
+    }
+
+    return StartupFailure.ExitCode;
+}
 
 /// <summary>Entry point type, public so functional tests can host it.</summary>
 public partial class Program;

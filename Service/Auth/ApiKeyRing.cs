@@ -49,6 +49,12 @@ internal sealed partial class ApiKeyRing
     {
         if (File.Exists(path))
         {
+            if (!OperatingSystem.IsWindows() && (File.GetUnixFileMode(path) & Store.DataFolder.SharedBits) != 0)
+            {
+                throw new Hosting.StartupRefusedException(
+                    $"The API key file {path} can be read or changed by other users (mode {Convert.ToString((int)File.GetUnixFileMode(path), 8)}); make it private with: chmod 600 {path}");
+            }
+
             var existing = File.ReadAllText(path).Trim();
             if (existing.Length > 0)
             {

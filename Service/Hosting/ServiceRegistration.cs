@@ -22,7 +22,8 @@ internal static class ServiceRegistration
         PrivateFiles.Apply();
         var services = builder.Services;
         var configured = builder.Configuration.GetSection(BitbudgetOptions.Section).Get<BitbudgetOptions>() ?? new BitbudgetOptions();
-        services.AddOptions<BitbudgetOptions>().BindConfiguration(BitbudgetOptions.Section).ValidateDataAnnotations().ValidateOnStart();
+        services.AddOptions<BitbudgetOptions>().BindConfiguration(BitbudgetOptions.Section).ValidateOnStart();
+        services.AddSingleton<IValidateOptions<BitbudgetOptions>, BitbudgetOptionsValidator>();
         builder.AddRequestSizeLimits();
         if (string.IsNullOrEmpty(builder.Configuration["urls"]))
         {
@@ -33,6 +34,8 @@ internal static class ServiceRegistration
             .ReadFrom.Configuration(builder.Configuration)
             .MinimumLevel.Override("Microsoft.AspNetCore", Serilog.Events.LogEventLevel.Warning)
             .MinimumLevel.Override("Hangfire", Serilog.Events.LogEventLevel.Information)
+            // A start-up refused for its configuration is told in one line by Program.cs, not with a stack trace here.
+            .MinimumLevel.Override("Microsoft.Extensions.Hosting.Internal.Host", Serilog.Events.LogEventLevel.Fatal)
             .MinimumLevel.Override(typeof(Auth.ApiKeyAuthenticationHandler).FullName!, Serilog.Events.LogEventLevel.Warning)
             .Enrich.FromLogContext()
             .WriteTo.Console(outputTemplate: "[{Timestamp:HH:mm:ss} {Level:u3}] {SearchId} {Message:lj}{NewLine}{Exception}")

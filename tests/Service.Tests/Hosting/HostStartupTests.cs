@@ -1,4 +1,6 @@
 using System.Net;
+using Bitbudget.Service.Hosting;
+using Bitbudget.Service.Store;
 using Bitbudget.Service.Tests.Support;
 using Microsoft.Extensions.Options;
 
@@ -50,6 +52,75 @@ public sealed class HostStartupTests
         var error = Assert.Throws<OptionsValidationException>(() => factory.CreateClient());
 
         Assert.Contains("QueuePollIntervalMs", error.Message, StringComparison.Ordinal);
+    }
+
+    [Fact]
+    [System.Runtime.Versioning.UnsupportedOSPlatform("windows")]
+    public void AnApiKeyFileOthersCanReadIsRefusedWithTheCommandThatFixesIt()
+    {
+        using var factory = new ServiceFactory(workers: 0, configureKey: false);
+        var keyFile = Path.Combine(factory.DataFolder, "api-key");
+        File.WriteAllText(keyFile, "bb_shared_key\n");
+        File.SetUnixFileMode(keyFile, UnixFileMode.UserRead | UnixFileMode.UserWrite | UnixFileMode.GroupRead | UnixFileMode.OtherRead);
+
+        var error = Assert.Throws<StartupRefusedException>(() => factory.CreateClient());
+
+        Assert.Contains($"chmod 600 {keyFile}", error.Message, StringComparison.Ordinal);
+        Assert.Contains("mode 644", error.Message, StringComparison.Ordinal);
+        Assert.DoesNotContain('\n', error.Message);
+    }
+
+    [Fact]
+    [System.Runtime.Versioning.UnsupportedOSPlatform("windows")]
+    public async Task TheDataFolderAndEverythingInItAreReadableByTheServicesUserOnly()
+    {
+        var root = Path.Combine(Path.GetTempPath(), "bitbudget-tests", Guid.NewGuid().ToString("N"));
+        var data = Path.Combine(root, "data");
+        try
+        {
+            using (var factory = new ServiceFactory(workers: 1, configureKey: false, new Dictionary<string, string> { ["Bitbudget:DataFolder"] = data }))
+            {
+                using var anonymous = factory.CreateClient();
+                var key = (await File.ReadAllTextAsync(Path.Combine(data, "api-key"))).Trim();
+                using var client = factory.CreateAuthorizedClient(key);
+                var (modelId, datasetId) = await client.UploadAsync("private");
+                var id = (await client.StartSearchAsync(new { modelId, datasetId, budget = new { metric = "sqnr", atLeast = 20 } })).GetProperty("id").GetString()!;
+                await client.WaitForStateAsync(id, "succeeded");
+            }
+
+            Assert.Equal(UnixFileMode.UserRead | UnixFileMode.UserWrite | UnixFileMode.UserExecute, File.GetUnixFileMode(data));
+            var entries = Directory.GetFileSystemEntries(data, "*", SearchOption.AllDirectories);
+            // The store, its -wal/-shm, the job queue, the key, the logs and the blobs of the model, dataset and artifacts.
+            Assert.Contains(entries, e => e.EndsWith("bitbudget.db", StringComparison.Ordinal));
+            Assert.Contains(entries, e => e.EndsWith("jobs.db", StringComparison.Ordinal));
+            Assert.Contains(entries, e => e.Contains(Path.Combine(data, "logs"), StringComparison.Ordinal));
+            Assert.True(entries.Count(e => e.Contains(Path.Combine(data, "blobs"), StringComparison.Ordinal)) >= 6);
+            Assert.All(entries, entry => Assert.True(
+                (File.GetUnixFileMode(entry) & DataFolder.SharedBits) == 0,
+                $"{entry} has mode {Convert.ToString((int)File.GetUnixFileMode(entry), 8)}"));
+        }
+        finally
+        {
+            Directory.Delete(root, recursive: true);
+        }
+    }
+
+    [Fact]
+    public void StagedFilesACrashedWriteLeftBehindAreRemovedAtStartButNotOnesBeingWritten()
+    {
+        using var factory = new ServiceFactory(workers: 0, configureKey: true);
+        var staging = Path.Combine(factory.DataFolder, "blobs", "tmp");
+        Directory.CreateDirectory(staging);
+        var crashed = Path.Combine(staging, new string('a', 64) + ".0123.part");
+        var live = Path.Combine(staging, new string('b', 64) + ".4567.part");
+        File.WriteAllText(crashed, "half a model");
+        File.SetLastWriteTimeUtc(crashed, DateTime.UtcNow - BlobStore.StaleStagedAge - TimeSpan.FromMinutes(1));
+        File.WriteAllText(live, "a model on its way");
+
+        using var client = factory.CreateClient();
+
+        Assert.False(File.Exists(crashed));
+        Assert.True(File.Exists(live));
     }
 
     private static string ReadShared(string path)

@@ -1,0 +1,36 @@
+using System.ComponentModel.DataAnnotations;
+using System.Globalization;
+using System.Reflection;
+using Microsoft.Extensions.Options;
+
+namespace Bitbudget.Service.Hosting;
+
+/// <summary>
+/// Checks every setting against its [Range]/[Required] attribute and says, one line per bad setting, its
+/// full configuration key, the allowed range and the value it got ("Bitbudget:RecoveryIntervalSeconds must
+/// lie between 5 and 3600; got 2.").
+/// </summary>
+internal sealed class BitbudgetOptionsValidator : IValidateOptions<BitbudgetOptions>
+{
+    public ValidateOptionsResult Validate(string? name, BitbudgetOptions options)
+    {
+        ArgumentNullException.ThrowIfNull(options);
+        var failures = new List<string>();
+        foreach (var property in typeof(BitbudgetOptions).GetProperties(BindingFlags.Public | BindingFlags.Instance).Where(p => p.CanWrite))
+        {
+            var key = $"{BitbudgetOptions.Section}:{property.Name}";
+            var value = property.GetValue(options);
+            if (property.GetCustomAttribute<RequiredAttribute>() is not null && (value is null || value is string { Length: 0 }))
+            {
+                failures.Add($"{key} is required.");
+            }
+
+            if (property.GetCustomAttribute<RangeAttribute>() is { } range && !range.IsValid(value))
+            {
+                failures.Add(string.Create(CultureInfo.InvariantCulture, $"{key} must lie between {range.Minimum} and {range.Maximum}; got {value}."));
+            }
+        }
+
+        return failures.Count == 0 ? ValidateOptionsResult.Success : ValidateOptionsResult.Fail(failures);
+    }
+}
