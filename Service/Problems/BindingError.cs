@@ -28,7 +28,7 @@ internal static partial class BindingError
         return null;
     }
 
-    private static string Kind(string type) => type.TrimEnd('?') switch
+    private static string Kind(string type) => type.Replace("Nullable<", "", StringComparison.Ordinal).TrimEnd('>', '?') switch
     {
         "int" or "long" or "short" or "Int32" or "Int64" => "a whole number",
         "double" or "float" or "decimal" or "Double" => "a number",

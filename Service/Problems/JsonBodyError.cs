@@ -17,8 +17,11 @@ internal static partial class JsonBodyError
         var field = FieldName(exception.Path);
         if (UnknownMember().Match(exception.Message) is { Success: true } unknown)
         {
-            var name = field is null ? unknown.Groups["name"].Value : $"{field}.{unknown.Groups["name"].Value}";
-            var known = string.Join(", ", JsonNames(TypeAt(root, ParentPath(exception.Path)) ?? root));
+            // The reader's path already ends at the unknown member; its parent is the object that lacks it.
+            var member = unknown.Groups["name"].Value;
+            var name = field is null ? member : field.EndsWith(member, StringComparison.Ordinal) ? field : $"{field}.{member}";
+            var parent = field is not null && field.EndsWith(member, StringComparison.Ordinal) ? ParentPath(exception.Path) : exception.Path;
+            var known = string.Join(", ", JsonNames(TypeAt(root, parent) ?? root));
             return ServiceException.Invalid(name, $"Unknown field '{name}' in the {what}; the fields are {known}.");
         }
 

@@ -66,8 +66,8 @@ public sealed class SearchValidationTests(ServiceFactory factory) : IClassFixtur
 
     [Theory]
     [InlineData("{not json", "body")]
-    [InlineData("""{"budget":{"metric":"sqnr","atLeast":30},"budjet":1}""", "body")]
-    [InlineData("""{"budget":{"metric":"sqnr","atLeast":"high"}}""", "body")]
+    [InlineData("""{"budget":{"metric":"sqnr","atLeast":30},"budjet":1}""", "budjet")]
+    [InlineData("""{"budget":{"metric":"sqnr","atLeast":"high"}}""", "budget.atLeast")]
     public async Task UnreadableBodyIsAnInvalidRequest(string tail, string field)
     {
         var json = tail.StartsWith('{') && !tail.StartsWith("{not", StringComparison.Ordinal)

@@ -43,6 +43,29 @@ public sealed class ApiKeyAuthenticationTests(ServiceFactory factory) : IClassFi
         Assert.False(Directory.Exists(Path.Combine(factory.DataFolder, "blobs")) && Directory.EnumerateFiles(Path.Combine(factory.DataFolder, "blobs"), "*", SearchOption.AllDirectories).Any());
     }
 
+    [Theory]
+    [InlineData("POST", "/v1/models", "application/json")]
+    [InlineData("POST", "/v1/datasets", "text/plain")]
+    [InlineData("POST", "/v1/searches", "application/octet-stream")]
+    [InlineData("PUT", "/v1/models", "application/octet-stream")]
+    public async Task TheKeyIsAskedForBeforeTheContentTypeOrMethodIsJudged(string method, string path, string contentType)
+    {
+        using var request = new HttpRequestMessage(new HttpMethod(method), path) { Content = new ByteArrayContent("{}"u8.ToArray()) };
+        request.Content.Headers.ContentType = new System.Net.Http.Headers.MediaTypeHeaderValue(contentType);
+
+        // Before, routing answered 415 (or 405) to anyone, telling an anonymous caller what the API takes.
+        await (await factory.CreateClient().SendAsync(request)).AssertProblemAsync(HttpStatusCode.Unauthorized, "unauthorized");
+    }
+
+    [Fact]
+    public async Task WithTheKeyAWrongContentTypeIsStillA415()
+    {
+        using var content = new ByteArrayContent("{}"u8.ToArray());
+        content.Headers.ContentType = new System.Net.Http.Headers.MediaTypeHeaderValue("application/json");
+
+        await (await factory.CreateAuthorizedClient().PostAsync("/v1/models", content)).AssertProblemAsync(HttpStatusCode.UnsupportedMediaType, "unsupported-media-type");
+    }
+
     [Fact]
     public async Task RightKeyIsAccepted()
     {
@@ -56,5 +79,6 @@ public sealed class ApiKeyAuthenticationTests(ServiceFactory factory) : IClassFi
         var client = factory.CreateClient();
         Assert.Equal(HttpStatusCode.OK, (await client.GetAsync("/healthz")).StatusCode);
         Assert.Equal(HttpStatusCode.OK, (await client.GetAsync("/openapi/v1.json")).StatusCode);
+        Assert.Equal(HttpStatusCode.OK, (await client.GetAsync("/metrics")).StatusCode);
     }
 }
