@@ -12,6 +12,25 @@ public sealed class SearchRunnerTests
     private static readonly int[] Bits = [2, 4, 8];
 
     [Fact]
+    public void TopOnePredictedAndMeasuredAreBothAgreementFractions()
+    {
+        var model = SmallModels.Mlp();
+        var result = SearchRunner.Run(
+            model, SmallModels.MlpData(model), new SearchSettings(new ErrorBudget(BudgetMetric.Top1Agreement, 0.9), Bits), new InMemoryTrialStore(), null, CancellationToken.None);
+        Assert.True(result.Feasible, result.Message);
+        var manifest = ManifestJson.Deserialize(result.ManifestJson);
+
+        // The additive model sums disagreement (1 - agreement) over the chosen layers; the prediction is
+        // reported as agreement, 1 - that sum, like the measurement, never as the sum itself.
+        var disagreement = manifest.Layers.Sum(l => l.Sensitivity.Single(c => c.Bits == l.Bits).AdditiveError);
+        Assert.Equal(Math.Max(0, 1 - disagreement), result.PredictedError, 12);
+        Assert.Equal(manifest.Totals!.Predicted, result.PredictedError);
+        Assert.Equal(manifest.Totals.Measured.Top1Agreement, result.MeasuredError);
+        Assert.InRange(result.MeasuredError, 0.9, 1);
+        Assert.All(manifest.Layers, l => Assert.All(l.Sensitivity, c => Assert.Equal(1 - c.Metrics.Top1Agreement, c.AdditiveError, 12)));
+    }
+
+    [Fact]
     public void KnapsackChoiceIsTheBestAssignmentUnderTheAdditiveModelByBruteForce()
     {
         var model = SmallModels.Mlp();
