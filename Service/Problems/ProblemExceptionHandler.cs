@@ -53,15 +53,15 @@ internal sealed partial class ProblemExceptionHandler(IProblemDetailsService pro
             .ConfigureAwait(false);
     }
 
-    /// <summary>What cannot be written, when the exception is a fault of the data folder (SQLite's disk codes, or an I/O error the probe confirms).</summary>
+    /// <summary>What cannot be written, when the exception is a fault of the data folder (SQLite's disk codes, a disk errno, or an I/O error the probe confirms).</summary>
     private string? StoreFault(Exception exception)
     {
-        if (!StorageFault.Is(exception) && exception is not IOException)
+        if (StorageFault.Is(exception))
         {
-            return null;
+            return probe.Probe() ?? exception.Message;
         }
 
-        return probe.Probe() ?? (StorageFault.Is(exception) ? exception.Message : null);
+        return exception is IOException && exception.GetType() != typeof(BadHttpRequestException) ? probe.Probe() : null;
     }
 
     [LoggerMessage(EventId = 1001, Level = LogLevel.Error, Message = "The data folder could not be written while serving {Path}")]
