@@ -116,7 +116,7 @@ internal sealed class BlobStore
             return sha256;
         }
 
-        Directory.CreateDirectory(System.IO.Path.GetDirectoryName(target)!);
+        DataFolder.CreateDirectory(System.IO.Path.GetDirectoryName(target)!);
         try
         {
             File.Move(stagedPath, target, overwrite: false);
