@@ -25,8 +25,13 @@ internal static partial class JsonBodyError
             return ServiceException.Invalid(name, $"Unknown field '{name}' in the {what}; the fields are {known}.");
         }
 
-        if (field is not null && exception.Message.Contains("could not be converted", StringComparison.Ordinal))
+        if (exception.Message.Contains("could not be converted", StringComparison.Ordinal))
         {
+            if (field is null)
+            {
+                return ServiceException.Invalid("body", $"The body is not a valid {what}: it must be {JsonKind(root)}.");
+            }
+
             var expected = TypeAt(root, exception.Path) is { } type ? JsonKind(type) : "another JSON type";
             return ServiceException.Invalid(field, $"{field} must be {expected}.");
         }
@@ -34,7 +39,7 @@ internal static partial class JsonBodyError
         var where = exception.LineNumber is { } line
             ? $" at line {line + 1}, byte {exception.BytePositionInLine + 1}"
             : "";
-        return ServiceException.Invalid("body", $"The {what} is not valid JSON{where}: {Sentence(exception.Message)}");
+        return ServiceException.Invalid("body", $"The body is not a valid {what}: it is not valid JSON{where}: {Sentence(exception.Message)}");
     }
 
     /// <summary>"$.budget.bytes" gives "budget.bytes", "$.bits[2]" gives "bits[2]"; null for the whole body.</summary>

@@ -40,6 +40,14 @@ public sealed class ProblemExceptionHandlerTests(ServiceFactory factory) : IClas
     }
 
     [Fact]
+    public async Task ABodyThatIsNotAnObjectSaysWhatItMustBe()
+    {
+        var problem = await PostSearchAsync("[1, 2, 3]");
+
+        Assert.StartsWith("The body is not a valid search request: it must be an object with the fields modelId, datasetId, budget,", problem.GetProperty("detail").GetString(), StringComparison.Ordinal);
+    }
+
+    [Fact]
     public async Task AnUnknownFieldIsNamedWithTheFieldsThereAre()
     {
         var problem = await PostSearchAsync("""{"modelId": "m", "budgte": {}}""");
@@ -55,7 +63,7 @@ public sealed class ProblemExceptionHandlerTests(ServiceFactory factory) : IClas
         var problem = await PostSearchAsync("{\"modelId\": \"m\",\n \"budget\": {]}");
 
         var detail = problem.GetProperty("detail").GetString()!;
-        Assert.StartsWith("The search request is not valid JSON at line 2, byte ", detail, StringComparison.Ordinal);
+        Assert.StartsWith("The body is not a valid search request: it is not valid JSON at line 2, byte ", detail, StringComparison.Ordinal);
         Assert.DoesNotContain("System.", detail, StringComparison.Ordinal);
         Assert.DoesNotContain("Bitbudget.", detail, StringComparison.Ordinal);
     }
