@@ -43,16 +43,25 @@ internal sealed partial class ApiKeyRing
         return match;
     }
 
+    /// <summary>Whether the service would read its key from the file in the data folder (no key configured).</summary>
+    public static bool UsesKeyFile(BitbudgetOptions options, IConfiguration configuration) =>
+        string.IsNullOrWhiteSpace(configuration[EnvironmentVariable]) && options.ApiKeys.All(string.IsNullOrWhiteSpace);
+
+    /// <summary>One line saying how to fix a key file that other users can read or change; null when it is private or absent.</summary>
+    public static string? SharedKeyFileProblem(string path) =>
+        !OperatingSystem.IsWindows() && File.Exists(path) && (File.GetUnixFileMode(path) & Store.DataFolder.SharedBits) != 0
+            ? $"The API key file {path} can be read or changed by other users (mode {Convert.ToString((int)File.GetUnixFileMode(path), 8)}); make it private with: chmod 600 {path}"
+            : null;
+
     private static byte[] Hash(string key) => SHA256.HashData(Encoding.UTF8.GetBytes(key));
 
     private static string LoadOrCreateKeyFile(string path, ILogger logger)
     {
         if (File.Exists(path))
         {
-            if (!OperatingSystem.IsWindows() && (File.GetUnixFileMode(path) & Store.DataFolder.SharedBits) != 0)
+            if (SharedKeyFileProblem(path) is { } problem)
             {
-                throw new Hosting.StartupRefusedException(
-                    $"The API key file {path} can be read or changed by other users (mode {Convert.ToString((int)File.GetUnixFileMode(path), 8)}); make it private with: chmod 600 {path}");
+                throw new Hosting.StartupRefusedException(problem);
             }
 
             var existing = File.ReadAllText(path).Trim();

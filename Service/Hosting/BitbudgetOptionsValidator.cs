@@ -10,7 +10,8 @@ namespace Bitbudget.Service.Hosting;
 /// full configuration key, the allowed range and the value it got ("Bitbudget:RecoveryIntervalSeconds must
 /// lie between 5 and 3600; got 2.").
 /// </summary>
-internal sealed class BitbudgetOptionsValidator : IValidateOptions<BitbudgetOptions>
+/// <remarks>The API key file's permissions are checked here too, so a shared key file stops start-up before anything runs.</remarks>
+internal sealed class BitbudgetOptionsValidator(IConfiguration configuration) : IValidateOptions<BitbudgetOptions>
 {
     public ValidateOptionsResult Validate(string? name, BitbudgetOptions options)
     {
@@ -29,6 +30,12 @@ internal sealed class BitbudgetOptionsValidator : IValidateOptions<BitbudgetOpti
             {
                 failures.Add(string.Create(CultureInfo.InvariantCulture, $"{key} must lie between {range.Minimum} and {range.Maximum}; got {value}."));
             }
+        }
+
+        if (failures.Count == 0 && Auth.ApiKeyRing.UsesKeyFile(options, configuration)
+            && Auth.ApiKeyRing.SharedKeyFileProblem(Path.Combine(options.DataPath, Auth.ApiKeyRing.KeyFileName)) is { } keyFile)
+        {
+            failures.Add(keyFile);
         }
 
         return failures.Count == 0 ? ValidateOptionsResult.Success : ValidateOptionsResult.Fail(failures);

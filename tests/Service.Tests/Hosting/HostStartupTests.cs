@@ -63,11 +63,12 @@ public sealed class HostStartupTests
         File.WriteAllText(keyFile, "bb_shared_key\n");
         File.SetUnixFileMode(keyFile, UnixFileMode.UserRead | UnixFileMode.UserWrite | UnixFileMode.GroupRead | UnixFileMode.OtherRead);
 
-        var error = Assert.Throws<StartupRefusedException>(() => factory.CreateClient());
+        var error = Assert.Throws<OptionsValidationException>(() => factory.CreateClient());
 
-        Assert.Contains($"chmod 600 {keyFile}", error.Message, StringComparison.Ordinal);
-        Assert.Contains("mode 644", error.Message, StringComparison.Ordinal);
-        Assert.DoesNotContain('\n', error.Message);
+        var line = Assert.Single(error.Failures);
+        Assert.Contains($"chmod 600 {keyFile}", line, StringComparison.Ordinal);
+        Assert.Contains("mode 644", line, StringComparison.Ordinal);
+        Assert.DoesNotContain('\n', line);
     }
 
     [Fact]
