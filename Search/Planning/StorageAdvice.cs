@@ -38,13 +38,17 @@ internal static class StorageAdvice
         }
 
         var packed = new ModelSizer(model, StorageRule.Packed, opset);
-        if (PackedFrontierBytes(problem, packed, chosen) is { } fits && fits < chosen.Bytes)
+        var measuredSmall = problem.Layers.Any(l => l.Choices.Any(c => BitWidths.IsInteger(c.Bits) && c.Bits < BitWidths.MaxInteger));
+        if (measuredSmall)
         {
-            sentences.Add($"With --storage packed (a target that packs sub-byte widths itself), the additive model fits the budget in {Format(fits)} counted packed (before validation), against {Format(chosen.Bytes)} for this plan.");
+            var fits = PackedFrontierBytes(problem, packed, chosen);
+            sentences.Add(fits is { } smaller && smaller < chosen.Bytes
+                ? $"With --storage packed (a target that packs sub-byte widths itself), the additive model fits the budget in {Format(smaller)} counted packed (before validation), against {Format(chosen.Bytes)} for this plan."
+                : "With --storage packed, the widths measured here give no smaller plan within the budget.");
             return string.Join(" ", sentences);
         }
 
-        // Nothing measured here would shrink: say what the closed widths would weigh, without claiming their error.
+        // No width below 8 bits was measured: say what the closed widths would weigh, without claiming their error.
         var bits = opset >= WeightStorage.Int4Opset ? 2 : 4;
         var uniform = new LayerSetting(bits, settings.Scheme, settings.Granularity, settings.Clip);
         var fixedBytes = problem.ExcludedBytes + problem.OtherBytes;
@@ -66,8 +70,7 @@ internal static class StorageAdvice
     /// </summary>
     private static long? PackedFrontierBytes(PlanningProblem problem, ModelSizer packed, AssignmentMeasurement chosen)
     {
-        if (problem.Settings.Budget is not ErrorBudget budget
-            || !problem.Layers.Any(l => l.Choices.Any(c => BitWidths.IsInteger(c.Bits) && c.Bits < BitWidths.MaxInteger)))
+        if (problem.Settings.Budget is not ErrorBudget budget)
         {
             return null;
         }

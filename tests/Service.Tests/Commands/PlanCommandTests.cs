@@ -166,6 +166,10 @@ public sealed class PlanCommandTests(PlanDemoFixture fixture) : IClassFixture<Pl
         var note = manifest.RootElement.GetProperty("outcome").GetProperty("storageNote").GetString();
         Assert.NotNull(note);
         Assert.StartsWith("Widths 2, 3, 6 save nothing at opset 21", note, StringComparison.Ordinal);
+
+        // Those widths were measured, so the note speaks of the measured plan under packed storage, not of unmeasured ones.
+        Assert.Contains("With --storage packed", note, StringComparison.Ordinal);
+        Assert.DoesNotContain("did not measure", note, StringComparison.Ordinal);
         Assert.Contains(note, run.Out, StringComparison.Ordinal);
     }
 
