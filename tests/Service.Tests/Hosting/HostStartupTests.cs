@@ -96,9 +96,22 @@ public sealed class HostStartupTests
             Assert.Contains(entries, e => e.EndsWith("jobs.db", StringComparison.Ordinal));
             Assert.Contains(entries, e => e.Contains(Path.Combine(data, "logs"), StringComparison.Ordinal));
             Assert.True(entries.Count(e => e.Contains(Path.Combine(data, "blobs"), StringComparison.Ordinal)) >= 6);
-            Assert.All(entries, entry => Assert.True(
-                (File.GetUnixFileMode(entry) & DataFolder.SharedBits) == 0,
-                $"{entry} has mode {Convert.ToString((int)File.GetUnixFileMode(entry), 8)}"));
+            // SQLite may still remove a -wal/-shm file as the job queue's last connection closes after the host has
+            // gone; a file that is gone exposes nothing, so only files that still exist are checked.
+            foreach (var entry in entries)
+            {
+                UnixFileMode mode;
+                try
+                {
+                    mode = File.GetUnixFileMode(entry);
+                }
+                catch (FileNotFoundException)
+                {
+                    continue;
+                }
+
+                Assert.True((mode & DataFolder.SharedBits) == 0, $"{entry} has mode {Convert.ToString((int)mode, 8)}");
+            }
         }
         finally
         {
