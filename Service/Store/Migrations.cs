@@ -69,23 +69,11 @@ internal static class Migrations
                 trial_count INTEGER NOT NULL,
                 created_at TEXT NOT NULL);
             """),
+        // Results of an infeasible search have no assignment, so its size and errors are NULL (SQLite cannot
+        // hold NaN); results also carry warnings, held-out figures and the written file's size. Failures count
+        // failed runs, not restarts. Counters kept by triggers in the writing transaction let /metrics read a
+        // few rows instead of scanning the trials table.
         (2, """
-            ALTER TABLE results ADD COLUMN warnings_json TEXT;
-            """),
-        (3, """
-            ALTER TABLE results ADD COLUMN held_out_samples INTEGER;
-            ALTER TABLE results ADD COLUMN held_out_measured REAL;
-            ALTER TABLE results ADD COLUMN held_out_meets INTEGER;
-            """),
-        (4, """
-            ALTER TABLE results ADD COLUMN model_file_bytes INTEGER;
-            ALTER TABLE results ADD COLUMN storage TEXT NOT NULL DEFAULT 'container';
-            ALTER TABLE results ADD COLUMN storage_note TEXT;
-            """),
-        // Results of an infeasible search have no assignment, so its size and errors are NULL (SQLite
-        // cannot hold NaN); failures count failed runs, not restarts; counters kept by triggers in the
-        // writing transaction let /metrics read a few rows instead of scanning the trials table.
-        (5, """
             CREATE TABLE results_v2 (
                 search_id TEXT PRIMARY KEY REFERENCES searches(id),
                 feasible INTEGER NOT NULL,
@@ -108,10 +96,10 @@ internal static class Migrations
                 model_file_bytes INTEGER,
                 storage TEXT NOT NULL DEFAULT 'container',
                 storage_note TEXT);
-            INSERT INTO results_v2 SELECT search_id, feasible, message, manifest_sha256, model_sha256, sensitivity_sha256,
-                frontier_sha256, bytes, average_bits, compression, predicted, measured, trial_count, created_at, warnings_json,
-                held_out_samples, held_out_measured, held_out_meets,
-                model_file_bytes, storage, storage_note FROM results;
+            INSERT INTO results_v2 (search_id, feasible, message, manifest_sha256, model_sha256, sensitivity_sha256,
+                frontier_sha256, bytes, average_bits, compression, predicted, measured, trial_count, created_at)
+                SELECT search_id, feasible, message, manifest_sha256, model_sha256, sensitivity_sha256,
+                frontier_sha256, bytes, average_bits, compression, predicted, measured, trial_count, created_at FROM results;
             DROP TABLE results;
             ALTER TABLE results_v2 RENAME TO results;
 
@@ -132,28 +120,22 @@ internal static class Migrations
                 UPDATE search_counts SET count = count - 1 WHERE state = OLD.state;
             END;
 
-            -- Bucket i holds trials with duration in (bound[i-1], bound[i]] ms; bucket 11 is above 30 s.
-            CREATE TABLE trial_buckets (bucket INTEGER PRIMARY KEY, count INTEGER NOT NULL, sum_ms REAL NOT NULL);
-            WITH RECURSIVE b(i) AS (SELECT 0 UNION ALL SELECT i + 1 FROM b WHERE i < 11)
-                INSERT INTO trial_buckets (bucket, count, sum_ms) SELECT i, 0, 0 FROM b;
-            CREATE VIEW trial_bucket_of (bucket, duration_ms) AS SELECT
-                CASE WHEN duration_ms <= 10 THEN 0 WHEN duration_ms <= 25 THEN 1 WHEN duration_ms <= 50 THEN 2
-                     WHEN duration_ms <= 100 THEN 3 WHEN duration_ms <= 250 THEN 4 WHEN duration_ms <= 500 THEN 5
-                     WHEN duration_ms <= 1000 THEN 6 WHEN duration_ms <= 2500 THEN 7 WHEN duration_ms <= 5000 THEN 8
-                     WHEN duration_ms <= 10000 THEN 9 WHEN duration_ms <= 30000 THEN 10 ELSE 11 END,
-                duration_ms
-                FROM trials;
-            UPDATE trial_buckets SET
-                count = (SELECT COUNT(*) FROM trial_bucket_of t WHERE t.bucket = trial_buckets.bucket),
-                sum_ms = (SELECT COALESCE(SUM(t.duration_ms), 0) FROM trial_bucket_of t WHERE t.bucket = trial_buckets.bucket);
-            DROP VIEW trial_bucket_of;
+            -- Bucket i holds trials with duration in (upper_ms of bucket i-1, upper_ms of bucket i]; the last
+            -- bucket has no upper bound. The bounds live only here, so seeding and the trigger cannot disagree.
+            CREATE TABLE trial_buckets (bucket INTEGER PRIMARY KEY, upper_ms REAL, count INTEGER NOT NULL, sum_ms REAL NOT NULL);
+            INSERT INTO trial_buckets (bucket, upper_ms, count, sum_ms) VALUES
+                (0, 10, 0, 0), (1, 25, 0, 0), (2, 50, 0, 0), (3, 100, 0, 0), (4, 250, 0, 0), (5, 500, 0, 0),
+                (6, 1000, 0, 0), (7, 2500, 0, 0), (8, 5000, 0, 0), (9, 10000, 0, 0), (10, 30000, 0, 0), (11, NULL, 0, 0);
             CREATE TRIGGER trial_counted AFTER INSERT ON trials BEGIN
                 UPDATE trial_buckets SET count = count + 1, sum_ms = sum_ms + NEW.duration_ms
-                WHERE bucket = CASE WHEN NEW.duration_ms <= 10 THEN 0 WHEN NEW.duration_ms <= 25 THEN 1 WHEN NEW.duration_ms <= 50 THEN 2
-                     WHEN NEW.duration_ms <= 100 THEN 3 WHEN NEW.duration_ms <= 250 THEN 4 WHEN NEW.duration_ms <= 500 THEN 5
-                     WHEN NEW.duration_ms <= 1000 THEN 6 WHEN NEW.duration_ms <= 2500 THEN 7 WHEN NEW.duration_ms <= 5000 THEN 8
-                     WHEN NEW.duration_ms <= 10000 THEN 9 WHEN NEW.duration_ms <= 30000 THEN 10 ELSE 11 END;
+                WHERE bucket = (SELECT MIN(bucket) FROM trial_buckets WHERE upper_ms IS NULL OR NEW.duration_ms <= upper_ms);
             END;
+            WITH placed (bucket, duration_ms) AS (
+                SELECT (SELECT MIN(b.bucket) FROM trial_buckets b WHERE b.upper_ms IS NULL OR t.duration_ms <= b.upper_ms), t.duration_ms
+                FROM trials t)
+            UPDATE trial_buckets SET
+                count = (SELECT COUNT(*) FROM placed p WHERE p.bucket = trial_buckets.bucket),
+                sum_ms = (SELECT COALESCE(SUM(p.duration_ms), 0) FROM placed p WHERE p.bucket = trial_buckets.bucket);
 
             CREATE TABLE store_probe (id INTEGER PRIMARY KEY CHECK (id = 1), written_at TEXT NOT NULL);
             """),

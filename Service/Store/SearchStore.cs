@@ -294,7 +294,7 @@ internal sealed class SearchStore(Database database)
         var counts = SearchStates.All.ToDictionary(s => s, _ => 0L, StringComparer.Ordinal);
         using var connection = database.Open();
         using var command = connection.CreateCommand();
-        // Kept by triggers as searches change state (migration 5): a scrape reads a few rows, never the table.
+        // Kept by triggers as searches change state (migration 2): a scrape reads a few rows, never the table.
         command.CommandText = "SELECT state, count FROM search_counts;";
         using var reader = command.ExecuteReader();
         while (reader.Read())

@@ -2,14 +2,14 @@ namespace Bitbudget.Service.Store;
 
 /// <summary>
 /// The trial duration histogram for the metrics endpoint, read from counters that a trigger updates in
-/// the transaction that stores each trial (migration 5), so a scrape reads twelve rows however many
+/// the transaction that stores each trial (migration 2), so a scrape reads twelve rows however many
 /// trials are stored.
 /// </summary>
 internal sealed class TrialStatistics(Database database)
 {
     /// <summary>
     /// Upper bounds of the trial duration histogram, in seconds (common practice: roughly x2.5 steps).
-    /// The trigger <c>trial_counted</c> of migration 5 holds the same bounds in milliseconds.
+    /// Migration 2 holds the same bounds in milliseconds in <c>trial_buckets.upper_ms</c>.
     /// </summary>
     public static IReadOnlyList<double> BucketsSeconds { get; } = [0.01, 0.025, 0.05, 0.1, 0.25, 0.5, 1, 2.5, 5, 10, 30];
 
