@@ -13,15 +13,6 @@ namespace Bitbudget.Search.Onnx;
 /// </summary>
 public static class QdqExporter
 {
-    /// <summary>First opset with DequantizeLinear.</summary>
-    public const long PerTensorOpset = WeightStorage.DequantizeOpset;
-
-    /// <summary>First opset with the axis attribute of DequantizeLinear.</summary>
-    public const long PerAxisOpset = WeightStorage.PerAxisOpset;
-
-    /// <summary>First opset with INT4/UINT4.</summary>
-    public const long Int4Opset = WeightStorage.Int4Opset;
-
     /// <summary>The ONNX Runtime session option that sets how a fused DequantizeLinear+MatMul computes.</summary>
     public const string MatMulAccuracyOption = "session.qdq_matmulnbits_accuracy_level";
 
@@ -87,8 +78,7 @@ public static class QdqExporter
             else
             {
                 var q = WeightQuantizer.Quantize(weight, layer.Shape, layer.ChannelAxis, setting);
-                var shifted = StorageType(setting, model.Opset) == TensorProto.Types.DataType.Int8 && quantizedActivations.Any(a => a.Layer == layer.Name);
-                if (shifted)
+                if (WeightStorage.IntegerType(setting, model.Opset) == TensorProto.Types.DataType.Int8 && quantizedActivations.Any(a => a.Layer == layer.Name))
                 {
                     // With uint8 activations ONNX Runtime fuses the QDQ pairs into integer kernels. On x86 CPUs
                     // without VNNI its uint8 x int8 kernel sums pairs of products in 16 bits and saturates
@@ -97,7 +87,7 @@ public static class QdqExporter
                     q = q.ShiftedToUnsigned();
                 }
 
-                stored = WeightStorage.Integer(layer, q, model.Opset, shifted);
+                stored = WeightStorage.Integer(layer, q, model.Opset);
             }
 
             graph.Initializer.AddRange(stored.Initializers);
@@ -136,7 +126,7 @@ public static class QdqExporter
 
     /// <summary>What the export note says when some weights are dequantized by Cast/Sub/Mul rather than DequantizeLinear.</summary>
     public static string ScaleMultiplyNote(long opset) =>
-        $"The model's opset is {opset}, which has no {(opset < PerTensorOpset ? "DequantizeLinear" : "per-axis DequantizeLinear")}; " +
+        $"The model's opset is {opset}, which has no {(opset < WeightStorage.DequantizeOpset ? "DequantizeLinear" : "per-axis DequantizeLinear")}; " +
         "those weights are stored as 8-bit integers and turned into FP32 by Cast, Sub (zero point, asymmetric only) and Mul (scale per channel), " +
         "which gives s (q - z) exactly. The opset was not raised, because other operators change meaning across versions.";
 
@@ -150,9 +140,6 @@ public static class QdqExporter
         "Gemm" => node.Input.Count > 1 && dequantized.Contains(node.Input[1]) && !node.Attribute.Any(a => a.Name == "transB" && a.I == 1),
         _ => false,
     };
-
-    /// <summary>The integer type a setting is stored in at a given opset.</summary>
-    public static TensorProto.Types.DataType StorageType(LayerSetting setting, long opset) => WeightStorage.IntegerType(setting, opset);
 
     private static int FindInitializer(GraphProto graph, string name)
     {

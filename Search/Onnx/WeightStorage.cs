@@ -66,15 +66,14 @@ internal static class WeightStorage
         : 8;
 
     /// <summary>The initializers and nodes that write a quantized weight (2..8 bits).</summary>
-    /// <param name="shiftedToUnsigned">The levels were moved to uint8 (<see cref="QuantizedWeight.ShiftedToUnsigned"/>): stored as uint8 with their zero points.</param>
-    public static StoredWeight Integer(WeightLayer layer, QuantizedWeight q, long opset, bool shiftedToUnsigned = false)
+    public static StoredWeight Integer(WeightLayer layer, QuantizedWeight q, long opset)
     {
         var setting = new LayerSetting(q.Bits, q.Scheme, q.Axis >= 0 ? Granularity.PerChannel : Granularity.PerTensor);
-        var type = shiftedToUnsigned ? TensorProto.Types.DataType.Uint8 : IntegerType(setting, opset);
+        var type = IntegerType(setting, opset);
         var stem = layer.WeightName;
         var initializers = new List<TensorProto> { IntegerTensor(stem + "_quantized", layer.Shape, q.Levels, type) };
         var nodes = new List<NodeProto>();
-        var asymmetric = q.Scheme == QuantizationScheme.Asymmetric || shiftedToUnsigned;
+        var asymmetric = q.Scheme == QuantizationScheme.Asymmetric;
         if (UsesDequantizeLinear(setting, opset))
         {
             long[] paramShape = q.Axis >= 0 ? [q.Scales.Length] : [];

@@ -19,10 +19,12 @@ public sealed record QuantizedWeight(
     /// <summary>
     /// The same dequantized values on the uint8 grid: levels and zero points moved up by 128, so
     /// s * ((q + 128) - (z + 128)) = s * (q - z). Used where a runtime's int8 kernel is less exact than its
-    /// uint8 one (see <see cref="Onnx.QdqExporter"/>).
+    /// uint8 one (see <see cref="Onnx.QdqExporter"/>). The result is affine (a non-zero zero point), so it is
+    /// stored as uint8 with its zero points like any asymmetric weight.
     /// </summary>
     public QuantizedWeight ShiftedToUnsigned() => this with
     {
+        Scheme = QuantizationScheme.Asymmetric,
         ZeroPoints = Array.ConvertAll(ZeroPoints, z => z + 128),
         Levels = Array.ConvertAll(Levels, q => q + 128),
     };
