@@ -58,7 +58,7 @@ public static class CostModel
             scales = channels;
         }
 
-        long payload = checked((parameters * bits) + 7) / 8;
+        long payload = PayloadBytes(parameters, bits);
         long overhead = scales * ScaleBytes;
         if (scheme == QuantizationScheme.Asymmetric)
         {
@@ -70,9 +70,6 @@ public static class CostModel
 
     /// <summary>Bytes of <paramref name="parameters"/> values of <paramref name="bits"/> bits each, packed: ceil(parameters x bits / 8).</summary>
     public static long PayloadBytes(long parameters, int bits) => checked((parameters * bits) + 7) / 8;
-
-    /// <summary>Bytes of a weight kept in FP32 (4 per parameter).</summary>
-    public static long Float32Bytes(long parameters) => checked(parameters * 4);
 
     /// <summary>Average stored bits per quantizable weight, scales and zero points included: 8 x bytes / parameters.</summary>
     public static double AverageBits(long quantizedBytes, long quantizedParameters)
@@ -102,28 +99,6 @@ public static class CostModel
         }
 
         return (long)Math.Floor(averageBits * quantizedParameters / 8.0);
-    }
-
-    /// <summary>
-    /// Totals of a model: the quantizable layers' bytes plus the tensors that stay as they are
-    /// (biases, norms, excluded layers), which count once and unchanged on both sides of the
-    /// compression ratio. Average bits cover the quantizable weights only.
-    /// </summary>
-    /// <param name="quantizedBytes">Sum of <see cref="LayerBytes"/> over the searched layers.</param>
-    /// <param name="quantizedParameters">Parameters of the searched layers.</param>
-    /// <param name="otherTensorBytes">Bytes of every other stored tensor, as stored.</param>
-    public static SizeTotals Totals(long quantizedBytes, long quantizedParameters, long otherTensorBytes)
-    {
-        if (quantizedBytes < 0 || otherTensorBytes < 0)
-        {
-            ThrowInvalid("invalid-byte-count", $"Byte counts cannot be negative; got {quantizedBytes} and {otherTensorBytes}.");
-        }
-
-        long bytes = checked(quantizedBytes + otherTensorBytes);
-        long float32Bytes = checked(Float32Bytes(quantizedParameters) + otherTensorBytes);
-        double averageBits = AverageBits(quantizedBytes, quantizedParameters);
-        double compression = bytes == 0 ? 1.0 : (double)float32Bytes / bytes;
-        return new SizeTotals(bytes, float32Bytes, averageBits, compression);
     }
 
     private static void ThrowInvalid(string code, string message) => throw new EngineException(code, message);

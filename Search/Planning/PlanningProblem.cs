@@ -98,6 +98,7 @@ internal sealed class PlanningProblem
         var searched = model.Layers.Where(l => !excludedNames.Contains(l.Name)).ToList();
         var excluded = model.Layers.Where(l => excludedNames.Contains(l.Name)).ToList();
         var sensitivity = sweep.ToDictionary(p => p.Key, p => p.Value.Metrics, StringComparer.Ordinal);
+        var activations = SensitivitySweep.ActivationsFor(settings);
         var layers = searched.Select(layer => new PlanningLayer(
             layer.Name,
             SensitivitySweep.CandidateBits(layer, settings).Select(bits =>
@@ -106,10 +107,9 @@ internal sealed class PlanningProblem
                 var bytes = sizer.LayerBytes(layer, setting);
                 var error = bits == BitWidths.Float32
                     ? 0
-                    : judge.ToAdditive(sensitivity[TrialKeys.Sensitivity(layer.Name, setting, SensitivitySweep.ActivationsFor(settings))], reference);
+                    : judge.ToAdditive(sensitivity[TrialKeys.Sensitivity(layer.Name, setting, activations)], reference);
                 return new PlanningChoice(bits, bytes, error);
             }).ToList())).ToList();
-        var activations = SensitivitySweep.ActivationsFor(settings);
         var coverage = samples is not { } count ? [] : searched.Select(layer =>
         {
             var widths = SensitivitySweep.CandidateBits(layer, settings);
@@ -164,8 +164,8 @@ internal sealed class PlanningProblem
     public long TotalBytes(Selection selection) => selection.Bytes + ExcludedBytes + OtherBytes;
 
     /// <summary>Stored bits per quantizable weight for a file of <paramref name="totalBytes"/>: the layers' bytes (scales, zero points and nodes included) x 8 / parameters.</summary>
-    public double AverageBits(long totalBytes) => (totalBytes - OtherBytes) * 8.0 / TotalParameters;
+    public double AverageBits(long totalBytes) => CostModel.AverageBits(totalBytes - OtherBytes, TotalParameters);
 
     /// <summary>The largest file size whose layers average at most <paramref name="averageBits"/> bits per weight.</summary>
-    public long TotalBytesForAverageBits(double averageBits) => (long)Math.Floor(averageBits * TotalParameters / 8.0) + OtherBytes;
+    public long TotalBytesForAverageBits(double averageBits) => CostModel.LayerBytesForAverageBits(averageBits, TotalParameters) + OtherBytes;
 }

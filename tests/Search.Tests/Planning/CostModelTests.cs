@@ -53,20 +53,6 @@ public class CostModelTests
     }
 
     [Fact]
-    public void TotalsCountUnchangedTensorsOnceOnBothSides()
-    {
-        // Two layers: 1728 params at 4 bits per-channel (1120 B) and 4096 params at 8 bits per-tensor (4100 B);
-        // 64 + 128 bias values stay FP32 (768 B).
-        long quantized = 1120 + 4100;
-        SizeTotals totals = CostModel.Totals(quantized, 1728 + 4096, 768);
-
-        Assert.Equal(quantized + 768, totals.Bytes);
-        Assert.Equal(((1728 + 4096) * 4) + 768, totals.Float32Bytes);
-        Assert.Equal(8.0 * quantized / (1728 + 4096), totals.AverageBits, 12);
-        Assert.Equal((double)totals.Float32Bytes / totals.Bytes, totals.Compression, 12);
-    }
-
-    [Fact]
     public void AverageBitsBudgetRoundsDownToWholeBytes()
     {
         Assert.Equal(1000, CostModel.LayerBytesForAverageBits(4.0, 2000));
