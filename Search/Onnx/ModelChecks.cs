@@ -146,6 +146,10 @@ internal static class ModelChecks
         }
     }
 
+    /// <summary>The node's attribute called <paramref name="name"/>, or null when it has none.</summary>
+    public static P.AttributeProto? Attribute(P.NodeProto node, string name) =>
+        node.Attribute.FirstOrDefault(a => a.Name == name);
+
     /// <summary>How error messages name a node: its name, else its first output, else its operator.</summary>
     public static string Label(P.NodeProto node) =>
         node.Name.Length > 0 ? node.Name : node.Output.FirstOrDefault(o => o.Length > 0) ?? node.OpType;

@@ -115,7 +115,7 @@ internal sealed class ModelNormaliser
     /// <summary>A layer op whose weight is not a constant: a note (as before) and an entry in the skipped list.</summary>
     private void NotLayer(P.NodeProto node, string label, string input, string reason)
     {
-        notes.Add(node.OpType == "MatMul" && reason.StartsWith("it multiplies", StringComparison.Ordinal)
+        notes.Add(node.OpType == "MatMul"
             ? $"MatMul '{label}' multiplies two activations; not a weight layer."
             : $"{node.OpType} '{label}' is not a weight layer: {reason}.");
         skipped.Add(new SkippedWeight(label, node.OpType, input, 0, $"{node.OpType} '{label}' is not quantized: {reason}."));
@@ -175,9 +175,6 @@ internal sealed class ModelNormaliser
             }
         }
     }
-
-    private static P.AttributeProto? Attribute(P.NodeProto node, string name) =>
-        node.Attribute.FirstOrDefault(a => a.Name == name);
 
     private static void CheckWeightType(WeightSource source, P.NodeProto node, string label)
     {
@@ -244,7 +241,7 @@ internal sealed class ModelNormaliser
             {
                 if (producer.OpType == "Cast")
                 {
-                    casts.Add((int)(Attribute(producer, "to")?.I ?? 0));
+                    casts.Add((int)(ModelChecks.Attribute(producer, "to")?.I ?? 0));
                 }
 
                 name = producer.Input[0];
@@ -319,7 +316,7 @@ internal sealed class ModelNormaliser
             return false;
         }
 
-        if (Attribute(bn, "training_mode")?.I == 1 || bn.Output.Skip(1).Any(o => o.Length > 0 && readers.GetValueOrDefault(o) > 0))
+        if (ModelChecks.Attribute(bn, "training_mode")?.I == 1 || bn.Output.Skip(1).Any(o => o.Length > 0 && readers.GetValueOrDefault(o) > 0))
         {
             notes.Add($"BatchNormalization '{bnLabel}' not folded: it runs in training mode.");
             return false;
@@ -364,7 +361,7 @@ internal sealed class ModelNormaliser
             bias = new float[channels];
         }
 
-        var epsilon = Attribute(bn, "epsilon")?.F ?? 1e-5f;
+        var epsilon = ModelChecks.Attribute(bn, "epsilon")?.F ?? 1e-5f;
         var (gamma, beta, mean, variance) = (parameters[0], parameters[1], parameters[2], parameters[3]);
         var perChannel = weight.Length / channels;
         for (var c = 0; c < channels; c++)

@@ -92,13 +92,9 @@ internal sealed class OpsetRaiser
         return new OpsetRaise(source, targetOpset, raiser.rewritten);
     }
 
-    private static string Label(P.NodeProto node) => node.Name.Length > 0 ? node.Name : node.Output.FirstOrDefault() ?? node.OpType;
-
-    private static P.AttributeProto? Attribute(P.NodeProto node, string name) => node.Attribute.FirstOrDefault(a => a.Name == name);
-
     private static P.AttributeProto? TakeAttribute(P.NodeProto node, string name)
     {
-        var attribute = Attribute(node, name);
+        var attribute = ModelChecks.Attribute(node, name);
         if (attribute is not null)
         {
             node.Attribute.Remove(attribute);
@@ -114,7 +110,7 @@ internal sealed class OpsetRaiser
         new() { Name = name, Type = P.AttributeProto.Types.AttributeType.Int, I = value };
 
     private EngineException Refuse(P.NodeProto node, string why) =>
-        new(Code, $"Cannot raise {node.OpType} node '{Label(node)}' from opset {source} to {target}: {why}");
+        new(Code, $"Cannot raise {node.OpType} node '{ModelChecks.Label(node)}' from opset {source} to {target}: {why}");
 
     private bool Crosses(long version) => source < version && version <= target;
 
@@ -133,7 +129,7 @@ internal sealed class OpsetRaiser
 
     private string Fresh(P.NodeProto node, string what)
     {
-        var stem = $"opset_raise/{Label(node)}/{what}";
+        var stem = $"opset_raise/{ModelChecks.Label(node)}/{what}";
         var name = stem;
         for (var i = 1; !usedNames.Add(name); i++)
         {
@@ -241,7 +237,7 @@ internal sealed class OpsetRaiser
             case "Upsample":
                 // Upsample was deprecated at opset 10 in favour of Resize, which takes the same (X, scales) at 10.
                 node.OpType = "Resize";
-                if (Attribute(node, "mode") is { } mode && mode.S.ToStringUtf8() == "bilinear")
+                if (ModelChecks.Attribute(node, "mode") is { } mode && mode.S.ToStringUtf8() == "bilinear")
                 {
                     mode.S = ByteString.CopyFromUtf8("linear");
                 }
@@ -328,7 +324,7 @@ internal sealed class OpsetRaiser
                 break;
             case "RoiAlign":
                 // RoiAlign-16 added coordinate_transformation_mode with default half_pixel; before, it was output_half_pixel.
-                if (Crosses(16) && Attribute(node, "coordinate_transformation_mode") is null)
+                if (Crosses(16) && ModelChecks.Attribute(node, "coordinate_transformation_mode") is null)
                 {
                     node.Attribute.Add(StringAttribute("coordinate_transformation_mode", "output_half_pixel"));
                 }
@@ -336,7 +332,7 @@ internal sealed class OpsetRaiser
                 break;
             case "GridSample":
                 // GridSample-20 renamed its modes: bilinear -> linear, bicubic -> cubic.
-                if (Crosses(20) && Attribute(node, "mode") is { } gridMode)
+                if (Crosses(20) && ModelChecks.Attribute(node, "mode") is { } gridMode)
                 {
                     var renamed = gridMode.S.ToStringUtf8() switch { "bilinear" => "linear", "bicubic" => "cubic", var same => same };
                     gridMode.S = ByteString.CopyFromUtf8(renamed);
@@ -369,7 +365,7 @@ internal sealed class OpsetRaiser
         emit.Add(node);
         if (!node.Equals(before))
         {
-            rewritten.Add($"{before.OpType} '{Label(before)}': {Describe(before)} -> {Describe(node)}");
+            rewritten.Add($"{before.OpType} '{ModelChecks.Label(before)}': {Describe(before)} -> {Describe(node)}");
         }
     }
 
@@ -403,7 +399,7 @@ internal sealed class OpsetRaiser
     /// </summary>
     private void ResizeFrom10(P.NodeProto node, ValueTypes types, NodeEmitter emit)
     {
-        var mode = Attribute(node, "mode")?.S.ToStringUtf8() ?? "nearest";
+        var mode = ModelChecks.Attribute(node, "mode")?.S.ToStringUtf8() ?? "nearest";
         node.Attribute.Add(StringAttribute("coordinate_transformation_mode", "asymmetric"));
         if (mode == "nearest")
         {
@@ -428,14 +424,14 @@ internal sealed class OpsetRaiser
     private void SingleAxis(P.NodeProto node, ValueTypes types, NodeEmitter emit)
     {
         var before = node.Clone();
-        var axis = Attribute(node, "axis")?.I ?? 1;
+        var axis = ModelChecks.Attribute(node, "axis")?.I ?? 1;
         // The output has the input's shape, so a declared output (often the graph's own output) gives the rank too.
         if ((types.Rank(node.Input[0]) ?? types.Rank(node.Output[0])) is { } rank && (axis == rank - 1 || axis == -1))
         {
             TakeAttribute(node, "axis");
             node.Attribute.Add(IntAttribute("axis", -1));
             emit.Add(node);
-            rewritten.Add($"{node.OpType} '{Label(node)}': axis {axis} is the last of rank {rank}, kept as axis -1");
+            rewritten.Add($"{node.OpType} '{ModelChecks.Label(node)}': axis {axis} is the last of rank {rank}, kept as axis -1");
             return;
         }
 
@@ -452,7 +448,7 @@ internal sealed class OpsetRaiser
         emit.Add(node);
         emit.Add(new P.NodeProto { OpType = "Shape", Name = Fresh(node, "Shape"), Input = { input }, Output = { shape } });
         emit.Add(new P.NodeProto { OpType = "Reshape", Name = Fresh(node, "Reshape"), Input = { normalised, shape }, Output = { output } });
-        rewritten.Add($"{before.OpType} '{Label(before)}': axis {axis} on coerced 2-D input -> Flatten(axis={axis}), {before.OpType}(axis=1), Reshape to the input's shape");
+        rewritten.Add($"{before.OpType} '{ModelChecks.Label(before)}': axis {axis} on coerced 2-D input -> Flatten(axis={axis}), {before.OpType}(axis=1), Reshape to the input's shape");
     }
 
     /// <summary>Split-13 moved split from an attribute to an input; Split-18 needs num_outputs when split is not given.</summary>
@@ -464,7 +460,7 @@ internal sealed class OpsetRaiser
         }
 
         var hasSplitInput = node.Input.Count > 1 && node.Input[1].Length > 0;
-        if (Crosses(18) && !hasSplitInput && Attribute(node, "num_outputs") is null)
+        if (Crosses(18) && !hasSplitInput && ModelChecks.Attribute(node, "num_outputs") is null)
         {
             node.Attribute.Add(IntAttribute("num_outputs", node.Output.Count));
         }

@@ -91,15 +91,8 @@ internal static class TensorValidation
         }
 
         CheckedElementCount(sparse.Dims, what);
-        if (sparse.Values is { } values)
-        {
-            CheckTensor(values, what + " (values)");
-        }
-
-        if (sparse.Indices is { } indices)
-        {
-            CheckTensor(indices, what + " (indices)");
-        }
+        CheckTensor(sparse.Values, what + " (values)");
+        CheckTensor(sparse.Indices, what + " (indices)");
     }
 
     private static void CheckTensor(P.TensorProto tensor, string what)

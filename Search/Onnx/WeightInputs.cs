@@ -43,7 +43,7 @@ internal static class WeightInputs
             // LSTM/GRU/RNN: W is [num_directions, gates*hidden, input], R is [num_directions, gates*hidden, hidden].
             "LSTM" or "GRU" or "RNN" => [(1, "W"), (2, "R")],
             // Gather reads rows of its data input (input 0) when it gathers along axis 0: an embedding table.
-            "Gather" when (Attribute(node, "axis")?.I ?? 0) == 0 => [(0, null)],
+            "Gather" when (ModelChecks.Attribute(node, "axis")?.I ?? 0) == 0 => [(0, null)],
             _ => [],
         };
         return slots.Where(s => s.Item1 < node.Input.Count && node.Input[s.Item1].Length > 0).ToList();
@@ -62,7 +62,7 @@ internal static class WeightInputs
     {
         "Conv" => 0,
         "ConvTranspose" => 1,
-        "Gemm" => Attribute(node, "transB")?.I == 1 ? 0 : 1,
+        "Gemm" => ModelChecks.Attribute(node, "transB")?.I == 1 ? 0 : 1,
         "LSTM" or "GRU" or "RNN" => rank >= 2 ? 1 : 0,
         "Gather" => 0,
         _ => Math.Max(rank - 1, 0),
@@ -79,7 +79,4 @@ internal static class WeightInputs
     /// </summary>
     public static bool IsTable(WeightSource source) =>
         source.Tensor.Dims.Count >= 2 && TensorCodec.IsCastableFloat(source.Tensor.DataType) && source.ConsumedType == (int)P.TensorProto.Types.DataType.Float;
-
-    private static P.AttributeProto? Attribute(P.NodeProto node, string name) =>
-        node.Attribute.FirstOrDefault(a => a.Name == name);
 }
