@@ -23,8 +23,8 @@ public sealed record AssignmentManifest(
     IReadOnlyList<ManifestSkipped>? Skipped = null,
     ManifestHeldOut? HeldOut = null)
 {
-    /// <summary>The version this code writes (2: per-output metrics, budgets judged per output, held-out check, warnings; 3: sizes are the written file's, storage rule, modelFileBytes).</summary>
-    public const int CurrentFormatVersion = 3;
+    /// <summary>The version this code writes (2: per-output metrics, budgets judged per output, held-out check, warnings; 3: sizes are the written file's, storage rule, modelFileBytes; 4: a non-finite number is the string "Infinity", "-Infinity" or "NaN" instead of null, and null only ever means absent).</summary>
+    public const int CurrentFormatVersion = 4;
 }
 
 /// <summary>The model searched.</summary>

@@ -3,7 +3,11 @@ using System.Text.Json.Serialization;
 
 namespace Bitbudget.Search.Manifest;
 
-/// <summary>The one JSON form of the manifest and the frontier: camelCase, indented, UTF-8.</summary>
+/// <summary>
+/// The one JSON form of the manifest, the frontier and the CLI's trials.json: camelCase, indented, UTF-8.
+/// JSON has no infinity or NaN, so they are written as the strings "Infinity", "-Infinity" and "NaN",
+/// the same form the API and the store use; null always means absent, never infinite.
+/// </summary>
 public static class ManifestJson
 {
     /// <summary>Options every artifact is written with.</summary>
@@ -11,7 +15,7 @@ public static class ManifestJson
     {
         WriteIndented = true,
         DefaultIgnoreCondition = JsonIgnoreCondition.Never,
-        NumberHandling = JsonNumberHandling.Strict,
+        NumberHandling = JsonNumberHandling.AllowNamedFloatingPointLiterals,
     };
 
     public static byte[] Serialize<T>(T value) => JsonSerializer.SerializeToUtf8Bytes(value, Options);

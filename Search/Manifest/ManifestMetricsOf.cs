@@ -2,7 +2,7 @@ using Bitbudget.Search.Evaluation;
 
 namespace Bitbudget.Search.Manifest;
 
-/// <summary>Measured metrics in the manifest's form: JSON has no infinity, so an infinite SQNR is written as null.</summary>
+/// <summary>Measured metrics in the manifest's form (non-finite values as ManifestJson writes them).</summary>
 public static class ManifestMetricsOf
 {
     /// <summary>Pooled and per-output metrics; <paramref name="judged"/> says which outputs the budget judges (all when null).</summary>
@@ -11,7 +11,7 @@ public static class ManifestMetricsOf
         ArgumentNullException.ThrowIfNull(metrics);
         return new ManifestMetrics(
             metrics.RelativeMse,
-            Finite(metrics.SqnrDb),
+            metrics.SqnrDb,
             metrics.Top1Agreement,
             metrics.KlDivergence,
             metrics.CosineSimilarity,
@@ -20,11 +20,9 @@ public static class ManifestMetricsOf
                 o.Name,
                 judged?.Invoke(o.Name) ?? true,
                 o.RelativeMse,
-                Finite(o.SqnrDb),
+                o.SqnrDb,
                 o.Top1Agreement,
                 o.KlDivergence,
                 o.CosineSimilarity)).ToList());
     }
-
-    private static double? Finite(double value) => double.IsFinite(value) ? value : null;
 }

@@ -66,16 +66,16 @@ internal sealed class SearchReport(
             problem.Float32Bytes,
             problem.AverageBits(chosen.Bytes),
             problem.Float32Bytes / (double)(exported?.FileBytes ?? chosen.Bytes),
-            Finite(AdditiveError.FromAdditive(metric, chosen.PredictedAdditive, reference)),
+            AdditiveError.FromAdditive(metric, chosen.PredictedAdditive, reference),
             Metrics(chosen.Measured),
-            Finite(problem.Judge.Value(chosen.Measured, reference)),
+            problem.Judge.Value(chosen.Measured, reference),
             problem.Judge.Binding(chosen.Measured)?.Name,
             Wire(settings.Storage),
             exported?.FileBytes,
             problem.Float32Bytes / (double)chosen.Bytes);
         ManifestHeldOut? held = heldOut is null ? null : new ManifestHeldOut(
             heldOut.Samples,
-            Finite(problem.Judge.Value(heldOut.Measured, heldOut.Reference)),
+            problem.Judge.Value(heldOut.Measured, heldOut.Reference),
             problem.Judge.Binding(heldOut.Measured)?.Name,
             settings.Budget is ErrorBudget error ? problem.Judge.Meets(error.Limit, heldOut.Measured, heldOut.Reference) : null,
             Metrics(heldOut.Measured));
@@ -171,7 +171,7 @@ internal sealed class SearchReport(
                     bytes,
                     problem.AverageBits(bytes),
                     p.Error,
-                    Finite(AdditiveError.FromAdditive(metric, p.Error, reference)),
+                    AdditiveError.FromAdditive(metric, p.Error, reference),
                     p.ChoiceIndex.Select((c, i) => problem.Layers[i].Choices[c].Bits).ToList());
             }).ToList());
     }
@@ -190,7 +190,8 @@ internal sealed class SearchReport(
                 c.Bits,
                 c.Bytes,
                 c.Error,
-                SensitivityOf(layer, c.Bits) is { } m ? Metrics(m) : Metrics(reference) with { SqnrDb = null, RelativeMse = 0 })).ToList();
+                // Keeping FP32 is not measured: it is the reference itself (no error, SQNR "Infinity").
+                SensitivityOf(layer, c.Bits) is { } m ? Metrics(m) : Metrics(reference))).ToList();
         var granularity = setting is { Granularity: var g } ? g : settings.Granularity;
         return new ManifestLayer(
             layer.Name,
@@ -242,9 +243,6 @@ internal sealed class SearchReport(
     };
 
     private ManifestMetrics Metrics(MetricSet m) => ManifestMetricsOf.From(m, problem.Judge.Judges);
-
-    // JSON has no infinity: an infinite SQNR (no error predicted) is written as null, as ManifestMetrics.SqnrDb is.
-    private static double? Finite(double value) => double.IsFinite(value) ? value : null;
 
     private static string Wire<T>(T value)
         where T : struct, Enum => WireNames.Format(value);

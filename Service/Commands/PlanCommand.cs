@@ -177,7 +177,7 @@ internal static class PlanCommand
     private static string Binding(string? output) => output is null ? string.Empty : $" (worst judged output: '{output}')";
 
     // An infinite SQNR (no error at all) is stored as null.
-    private static string Number(double? value) => value is { } v ? v.ToString("0.####", CultureInfo.InvariantCulture) : "inf";
+    private static string Number(double? value) => value is { } v ? v.ToString("0.####", CultureInfo.InvariantCulture) : "-";
 
     /// <summary>A one-line progress bar on standard error.</summary>
     private sealed class TerminalProgress : IProgress<SearchProgress>

@@ -102,10 +102,11 @@ public sealed class ManifestSchemaTests
     }
 
     [Fact]
-    public void KeepFloat32CandidateWritesAnInfinitePredictionAsNull()
+    public void KeepFloat32CandidateWritesAnInfinitePredictionAsTheStringInfinity()
     {
         // With 32 (keep FP32) among the candidates the frontier holds a zero-error point, whose
-        // predicted SQNR is infinite; JSON has no infinity, so it must come out as null, not a crash.
+        // predicted SQNR is infinite; JSON has no infinity, so it comes out as "Infinity" (the API's
+        // and the store's form too), never as null, which means absent, and never as a crash.
         var model = SmallModels.Mlp();
         var result = SearchRunner.Run(
             model, SmallModels.MlpData(model), new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 200), [8, 32]), new InMemoryTrialStore(), null, CancellationToken.None);
@@ -113,10 +114,12 @@ public sealed class ManifestSchemaTests
         AssertValid(manifest);
         Assert.True(result.Feasible, result.Message);
         Assert.All(manifest["layers"]!.AsArray(), layer => Assert.Equal(32, (int)layer!["bits"]!));
-        Assert.Null(manifest["totals"]!["predicted"]);
-        Assert.Null(manifest["totals"]!["measured"]!["sqnrDb"]);
+        Assert.Equal("Infinity", (string?)manifest["totals"]!["predicted"]);
+        Assert.Equal("Infinity", (string?)manifest["totals"]!["measured"]!["sqnrDb"]);
+        Assert.Equal("Infinity", (string?)manifest["reference"]!["sqnrDb"]);
         var frontier = JsonNode.Parse(result.FrontierJson)!;
-        Assert.Contains(frontier["points"]!.AsArray(), p => p!["predicted"] is null && (double)p["additiveError"]! == 0);
+        Assert.Contains(frontier["points"]!.AsArray(), p => p!["predicted"] is JsonValue v && v.TryGetValue<string>(out var text) && text == "Infinity" && (double)p["additiveError"]! == 0);
+        Assert.True(double.IsPositiveInfinity(ManifestJson.Deserialize(result.ManifestJson).Totals!.Measured.SqnrDb!.Value), "the manifest reads back as written");
     }
 
     [Fact]
@@ -198,7 +201,7 @@ public sealed class ManifestSchemaTests
     public void ManifestWithAnotherFormatVersionOrAnUnknownFieldFailsTheSchema()
     {
         var newer = Parse(ErrorBudgetResult.Value.ManifestJson);
-        newer["formatVersion"] = 4;
+        newer["formatVersion"] = AssignmentManifest.CurrentFormatVersion + 1;
         AssertInvalid(newer);
 
         var extra = Parse(ErrorBudgetResult.Value.ManifestJson);

@@ -79,9 +79,11 @@ public sealed class RealEngineInfeasibleBudgetTests : IClassFixture<RealEngineFi
         var csv = (await client.GetStringAsync($"/v1/searches/{id}/sensitivity")).Split('\n', StringSplitOptions.RemoveEmptyEntries);
         Assert.Equal(1 + (4 * 3), csv.Length);
 
-        // The reference trial's infinite SQNR is served as the named literal, as the store keeps it.
+        // The reference trial's infinite SQNR is one form everywhere: the named literal in the trials
+        // (as the store keeps it) and in the manifest the engine wrote.
         var trials = await (await client.GetAsync($"/v1/searches/{id}/trials?limit=1")).JsonAsync();
         Assert.Equal("Infinity", trials.GetProperty("items")[0].GetProperty("metrics").GetProperty("sqnrDb").GetString());
+        Assert.Equal("Infinity", manifest.GetProperty("reference").GetProperty("sqnrDb").GetString());
         await fixture.AssertNothingLostAsync(client);
     }
 }
