@@ -20,7 +20,7 @@ internal static class ModelsApi
             .ProducesProblem(StatusCodes.Status400BadRequest)
             .ProducesProblem(StatusCodes.Status413PayloadTooLarge)
             .ProducesProblem(StatusCodes.Status422UnprocessableEntity);
-        group.MapGet("/", List).WithName("ListModels").WithSummary("List uploaded models, newest first");
+        group.MapGet("/", List).WithName("ListModels").WithSummary("List uploaded models, newest first; ?name= lists the versions of one model name");
         group.MapGet("/{id}", Get).WithName("GetModel").WithSummary("A model's inputs, outputs and quantizable layers");
         return app;
     }
@@ -30,18 +30,23 @@ internal static class ModelsApi
         string? name,
         UploadService uploads,
         BlobStore blobs,
+        CatalogStore catalog,
         IOptions<BitbudgetOptions> options,
         CancellationToken cancellationToken)
     {
         using var upload = await BodyReader.StageAsync(request, blobs, options.Value.MaxModelBytes, "model", cancellationToken).ConfigureAwait(false);
         var (model, created) = uploads.AddModel(upload, name);
-        var response = ModelResponse.From(model);
+        var response = ModelResponse.From(model, ModelVersions.Of(model, catalog));
         return created ? TypedResults.Created($"/v1/models/{model.Id}", response) : TypedResults.Ok(response);
     }
 
-    public static Ok<ModelResponse[]> List(CatalogStore catalog) =>
-        TypedResults.Ok(catalog.ListModels().Select(ModelResponse.From).ToArray());
+    public static Ok<ModelResponse[]> List(string? name, CatalogStore catalog)
+    {
+        var models = catalog.ListModels(string.IsNullOrWhiteSpace(name) ? null : name.Trim());
+        var versions = ModelVersions.Of(models);
+        return TypedResults.Ok(models.Select(m => ModelResponse.From(m, versions[m.Id])).ToArray());
+    }
 
     public static Results<Ok<ModelResponse>, ProblemHttpResult> Get(string id, CatalogStore catalog) =>
-        catalog.FindModel(id) is { } model ? TypedResults.Ok(ModelResponse.From(model)) : ProblemResults.NotFound("model", id);
+        catalog.FindModel(id) is { } model ? TypedResults.Ok(ModelResponse.From(model, ModelVersions.Of(model, catalog))) : ProblemResults.NotFound("model", id);
 }

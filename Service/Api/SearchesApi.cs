@@ -1,5 +1,6 @@
 using System.Globalization;
 using System.Text.Json;
+using Bitbudget.Search.Manifest;
 using Bitbudget.Service.Problems;
 using Bitbudget.Service.Searches;
 using Bitbudget.Service.Store;
@@ -27,13 +28,18 @@ internal static class SearchesApi
             .ProducesProblem(StatusCodes.Status400BadRequest)
             .ProducesProblem(StatusCodes.Status404NotFound)
             .ProducesProblem(StatusCodes.Status422UnprocessableEntity);
-        group.MapGet("/", List).WithName("ListSearches").WithSummary("Searches, newest first, optionally for one model");
+        group.MapGet("/", List).WithName("ListSearches").WithSummary("Searches, newest first, optionally for one model (?modelId=) or for every version of a model name (?name=)");
         group.MapGet("/{id}", Get).WithName("GetSearch").WithSummary("A search's state, stage, progress and, once done, its summary");
         group.MapDelete("/{id}", Cancel).WithName("CancelSearch").WithSummary("Cancel a queued or running search; its trials are kept");
         group.MapGet("/{id}/manifest", Manifest).WithName("GetSearchManifest").WithSummary("The assignment manifest (JSON, with an ETag)");
         group.MapGet("/{id}/model", QuantizedModel).WithName("GetSearchModel").WithSummary("The quantized ONNX model");
         group.MapGet("/{id}/sensitivity", Sensitivity).WithName("GetSearchSensitivity").WithSummary("Per-layer, per-bit-width sensitivity table (CSV)");
         group.MapGet("/{id}/frontier", Frontier).WithName("GetSearchFrontier").WithSummary("The size-vs-error Pareto frontier (JSON)");
+        group.MapGet("/{id}/compare/{other}", Compare)
+            .WithName("CompareSearches")
+            .WithSummary("Two succeeded searches side by side: per layer (matched by name, then by weight shape) the chosen bits, the sensitivity at each width and the change; plus the totals")
+            .ProducesProblem(StatusCodes.Status404NotFound)
+            .ProducesProblem(StatusCodes.Status409Conflict);
         group.MapGet("/{id}/trials", Trials).WithName("GetSearchTrials").WithSummary("Every stored trial, in the order measured, one page at a time");
         return app;
     }
@@ -71,14 +77,16 @@ internal static class SearchesApi
         return TypedResults.Accepted($"/v1/searches/{search.Id}", SearchResponse.From(search, store.FindResult(search.Id)));
     }
 
-    public static Results<Ok<SearchResponse[]>, ProblemHttpResult> List(string? modelId, int? limit, SearchStore store)
+    public static Results<Ok<SearchResponse[]>, ProblemHttpResult> List(string? modelId, string? name, int? limit, SearchStore store)
     {
         if (limit is < 1 or > MaxListed)
         {
             return ProblemResults.Of(400, ProblemTypes.InvalidRequest, $"limit must lie between 1 and {MaxListed}.");
         }
 
-        var searches = store.List(modelId, limit ?? 50);
+        var searches = string.IsNullOrWhiteSpace(name)
+            ? store.List(modelId, limit ?? 50)
+            : store.ListForModelName(name.Trim(), limit ?? 50).Where(s => modelId is null || s.ModelId == modelId).ToList();
         return TypedResults.Ok(searches.Select(s => SearchResponse.From(s, store.FindResult(s.Id))).ToArray());
     }
 
@@ -119,6 +127,52 @@ internal static class SearchesApi
 
     public static Results<FileContentHttpResult, ProblemHttpResult> Frontier(string id, SearchStore store, BlobStore blobs) =>
         Artifact(id, store, blobs, r => r.FrontierSha256, "application/json", null);
+
+    public static Results<Ok<ComparisonResponse>, ProblemHttpResult> Compare(string id, string other, SearchStore store, CatalogStore catalog, BlobStore blobs)
+    {
+        var found = new List<(SearchRecord Search, ResultRecord Result)>();
+        foreach (var searchId in new[] { id, other })
+        {
+            if (store.Find(searchId) is not { } search)
+            {
+                return ProblemResults.NotFound("search", searchId);
+            }
+
+            if (search.State != SearchStates.Succeeded || store.FindResult(searchId) is not { } result)
+            {
+                return ProblemResults.Of(StatusCodes.Status409Conflict, ProblemTypes.SearchNotReady, NotReadyDetail(search) + " Only succeeded searches can be compared.");
+            }
+
+            found.Add((search, result));
+        }
+
+        var sides = found.Select(f => (f.Search, f.Result, Manifest: ManifestJson.Deserialize(blobs.Read(f.Result.ManifestSha256)), Model: catalog.FindModel(f.Search.ModelId))).ToList();
+        var layers = LayerMatcher.Compare(sides[0].Manifest.Layers, sides[1].Manifest.Layers);
+        var (a, b) = (sides[0], sides[1]);
+        return TypedResults.Ok(new ComparisonResponse(
+            Side(a.Search, a.Result, a.Manifest, a.Model, catalog),
+            Side(b.Search, b.Result, b.Manifest, b.Model, catalog),
+            a.Manifest.Model.Name == b.Manifest.Model.Name,
+            layers,
+            new ComparisonTotals(
+                ComparedValue.Of(a.Result.Bytes, b.Result.Bytes),
+                ComparedValue.Of(a.Result.ModelFileBytes, b.Result.ModelFileBytes),
+                ComparedValue.Of(a.Result.AverageBits, b.Result.AverageBits),
+                ComparedValue.Of(a.Result.Measured, b.Result.Measured),
+                ComparedValue.Of(a.Manifest.Layers.Sum(l => l.Parameters), b.Manifest.Layers.Sum(l => l.Parameters)),
+                layers.Count(l => l.Status == "changed"),
+                layers.Count(l => l.Status == "added"),
+                layers.Count(l => l.Status == "removed"))));
+    }
+
+    private static ComparedSearch Side(SearchRecord search, ResultRecord result, AssignmentManifest manifest, ModelRecord? model, CatalogStore catalog) => new(
+        search.Id,
+        search.ModelId,
+        manifest.Model.Name,
+        model is null ? 1 : ModelVersions.Of(model, catalog),
+        manifest.Budget.Metric,
+        result.Feasible,
+        result.Measured);
 
     public static Results<Ok<TrialPageResponse>, ProblemHttpResult> Trials(string id, int? offset, int? limit, SearchStore store, Database database)
     {

@@ -41,17 +41,21 @@ internal static class HiveMonitorScenario
     private const ulong ShuffleSeed = 5005;
     private const ulong StreamSeed = 6006;
 
-    public static DemoResult Generate(string outputFolder, Action<TrainingEpoch>? onEpoch = null)
+    /// <param name="version">1 for the first training; a higher number is a retrain of the same network on the same data from
+    /// another weight initialisation and batch order (seeds moved by version - 1), as a team's next retrain would be: new bytes
+    /// under the same model name, whose layers' sensitivities (and chosen widths) move.</param>
+    public static DemoResult Generate(string outputFolder, Action<TrainingEpoch>? onEpoch = null, int version = 1)
     {
         ArgumentException.ThrowIfNullOrWhiteSpace(outputFolder);
+        ArgumentOutOfRangeException.ThrowIfLessThan(version, 1);
         Stopwatch clock = Stopwatch.StartNew();
 
         HiveSoundSet training = new HiveSoundSynthesizer(TrainingSeed).Generate(TrainingCount);
         HiveSoundSet calibration = new HiveSoundSynthesizer(CalibrationSeed).Generate(CalibrationCount);
         HiveSoundSet holdout = new HiveSoundSynthesizer(HoldoutSeed).Generate(HoldoutCount);
 
-        HiveNet network = HiveNet.CreateInitialised(WeightSeed);
-        IReadOnlyList<TrainingEpoch> epochs = new HiveNetTrainer(network, BatchSize, LearningRate).Train(training, Epochs, ShuffleSeed, onEpoch);
+        HiveNet network = HiveNet.CreateInitialised(WeightSeed + (ulong)(version - 1));
+        IReadOnlyList<TrainingEpoch> epochs = new HiveNetTrainer(network, BatchSize, LearningRate).Train(training, Epochs, ShuffleSeed + (ulong)(version - 1), onEpoch);
         double holdoutAccuracy = HiveNet.Accuracy(network.Predict(holdout.Spectrograms), holdout.Labels);
 
         HiveStream stream = HiveStream.Create(StreamSeed);

@@ -38,10 +38,11 @@ internal sealed class CatalogStore(Database database)
         return QueryModels(connection, "WHERE sha256 = $p", sha256).SingleOrDefault();
     }
 
-    public IReadOnlyList<ModelRecord> ListModels()
+    /// <summary>Models, newest first; with a name, only the versions uploaded under that name (a retrain is new bytes under the same name).</summary>
+    public IReadOnlyList<ModelRecord> ListModels(string? name = null)
     {
         using var connection = database.Open();
-        return QueryModels(connection, "ORDER BY created_at DESC, rowid DESC", null);
+        return QueryModels(connection, name is null ? "ORDER BY created_at DESC, rowid DESC" : "WHERE name = $p ORDER BY created_at DESC, rowid DESC", name);
     }
 
     public (DatasetRecord Dataset, bool Created) AddDataset(DatasetSummary summary, long bytes)

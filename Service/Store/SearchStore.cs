@@ -72,6 +72,13 @@ internal sealed class SearchStore(Database database)
         return Query(connection, null, $"{where} ORDER BY created_at DESC, rowid DESC LIMIT {limit}", modelId);
     }
 
+    /// <summary>Searches of every model version uploaded under one name, newest first.</summary>
+    public IReadOnlyList<SearchRecord> ListForModelName(string modelName, int limit)
+    {
+        using var connection = database.Open();
+        return Query(connection, null, $"WHERE model_id IN (SELECT id FROM models WHERE name = $p) ORDER BY created_at DESC, rowid DESC LIMIT {limit}", modelName);
+    }
+
     /// <summary>Searches that are queued or running, for re-enqueueing at start.</summary>
     public IReadOnlyList<SearchRecord> ListUnfinished()
     {

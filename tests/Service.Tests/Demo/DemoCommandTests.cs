@@ -7,9 +7,12 @@ public sealed class DemoCommandTests
     [Theory]
     [InlineData("--bogus")]
     [InlineData("--out")]
-    public async Task UnknownOrIncompleteArgumentsExitWithUsageCode2(string argument)
+    [InlineData("--version")]
+    [InlineData("--version", "0")]
+    [InlineData("--version", "two")]
+    public async Task UnknownOrIncompleteArgumentsExitWithUsageCode2(params string[] arguments)
     {
-        Assert.Equal(2, await DemoCommand.RunAsync([argument]));
+        Assert.Equal(2, await DemoCommand.RunAsync(arguments));
     }
 
     [Fact]

@@ -40,6 +40,18 @@ public sealed class HiveMonitorScenarioTests(DemoFolderFixture demo)
     }
 
     [Fact]
+    public void ARetrainKeepsTheDataSetsButWritesAnotherModel()
+    {
+        foreach (string name in new[] { HiveMonitorScenario.CalibrationFileName, HiveMonitorScenario.HoldoutFileName })
+        {
+            Assert.True(File.ReadAllBytes(demo.PathOf(name)).AsSpan().SequenceEqual(File.ReadAllBytes(demo.RetrainPathOf(name))), $"{name} differs in the retrain");
+        }
+
+        Assert.False(File.ReadAllBytes(demo.PathOf(HiveMonitorScenario.ModelFileName)).AsSpan()
+            .SequenceEqual(File.ReadAllBytes(demo.RetrainPathOf(HiveMonitorScenario.ModelFileName))), "The retrain wrote the same model bytes.");
+    }
+
+    [Fact]
     public void TrainingLowersTheLossAndTheModelIsAccurateButNotPerfect()
     {
         IReadOnlyList<TrainingEpoch> epochs = demo.Result.Epochs;
