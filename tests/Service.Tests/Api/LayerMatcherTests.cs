@@ -66,6 +66,17 @@ public sealed class LayerMatcherTests
         Assert.Equal(-1.0, layer.Sensitivity[1].SqnrDb.Change);
     }
 
+    [Fact]
+    public void AWidthKeptFp32OnBothSidesChangesByZeroNotNaN()
+    {
+        var compared = LayerMatcher.Compare(
+            [Layer("fc", "Gemm", [4, 32], 32, (8, 40.0, 0.001), (32, double.PositiveInfinity, 0))],
+            [Layer("fc", "Gemm", [4, 32], 8, (8, 38.5, 0.002), (32, double.PositiveInfinity, 0))]);
+
+        Assert.Equal(new ComparedValue(double.PositiveInfinity, double.PositiveInfinity, 0), Assert.Single(compared).Sensitivity[1].SqnrDb);
+        Assert.Equal(-1.5, compared[0].Sensitivity[0].SqnrDb.Change);
+    }
+
     private static ManifestLayer Layer(string name, string op, long[] shape, int? bits, params (int Bits, double SqnrDb, double Additive)[] trials) => new(
         name,
         op,
