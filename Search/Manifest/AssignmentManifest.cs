@@ -23,8 +23,13 @@ public sealed record AssignmentManifest(
     IReadOnlyList<ManifestSkipped>? Skipped = null,
     ManifestHeldOut? HeldOut = null)
 {
-    /// <summary>The version this code writes (2: per-output metrics, budgets judged per output, held-out check, warnings; 3: sizes are the written file's, storage rule, modelFileBytes; 4: a non-finite number is the string "Infinity", "-Infinity" or "NaN" instead of null, and null only ever means absent).</summary>
-    public const int CurrentFormatVersion = 4;
+    /// <summary>
+    /// The version this code writes (2: per-output metrics, budgets judged per output, held-out check, warnings;
+    /// 3: sizes are the written file's, storage rule, modelFileBytes; 4: a non-finite number is the string
+    /// "Infinity", "-Infinity" or "NaN" instead of null, and null only ever means absent; 5: one vocabulary:
+    /// settings.pin/exclude, bits ascending, totals/heldOut.measured is the budget metric's number and .metrics every metric).
+    /// </summary>
+    public const int CurrentFormatVersion = 5;
 }
 
 /// <summary>The model searched.</summary>
@@ -48,7 +53,10 @@ public sealed record ManifestDataset(
     IReadOnlyDictionary<string, int?>? SampleAxes = null,
     IReadOnlyDictionary<string, int?>? OutputSampleAxes = null);
 
-/// <summary>The search's settings.</summary>
+/// <summary>The search's settings, under the names the API request and the command line use.</summary>
+/// <param name="Bits">Candidate bit widths, ascending.</param>
+/// <param name="Pin">Layers forced to one bit width.</param>
+/// <param name="Exclude">Layers kept in FP32.</param>
 public sealed record ManifestSettings(
     IReadOnlyList<int> Bits,
     string Method,
@@ -56,8 +64,8 @@ public sealed record ManifestSettings(
     string Granularity,
     string Clip,
     bool Activations,
-    IReadOnlyDictionary<string, int> Pins,
-    IReadOnlyList<string> Excluded,
+    IReadOnlyDictionary<string, int> Pin,
+    IReadOnlyList<string> Exclude,
     IReadOnlyList<string>? Outputs = null,
     string MetricSpace = "linear",
     string Storage = "container");
@@ -77,17 +85,17 @@ public sealed record ManifestOutcome(bool Feasible, string Message, int Validati
 /// <param name="ModelFileBytes">Size of the written quantized model file.</param>
 /// <param name="PredictedCompression"><paramref name="Float32Bytes"/> over <paramref name="Bytes"/>.</param>
 /// <param name="Predicted">The budget metric as the additive model predicts it; null when infinite (SQNR of an assignment with no predicted error, e.g. every layer kept FP32).</param>
-/// <param name="Measured">Every metric, measured end to end (pooled over outputs, and per output).</param>
-/// <param name="BudgetValue">The budget metric as judged: the worst judged output's value; null when infinite.</param>
-/// <param name="BindingOutput">The judged output that gave <paramref name="BudgetValue"/>; null when the metric is not per output.</param>
+/// <param name="Metrics">Every metric, measured end to end (pooled over outputs, and per output).</param>
+/// <param name="Measured">The budget metric measured end to end and judged: the worst judged output's value (the search summary's <c>measured</c>); null when infinite.</param>
+/// <param name="BindingOutput">The judged output that gave <paramref name="Measured"/>; null when the metric is not per output.</param>
 public sealed record ManifestTotals(
     long Bytes,
     long Float32Bytes,
     double AverageBits,
     double Compression,
     double? Predicted,
-    ManifestMetrics Measured,
-    double? BudgetValue = null,
+    ManifestMetrics Metrics,
+    double? Measured = null,
     string? BindingOutput = null,
     string Storage = "container",
     long? ModelFileBytes = null,
@@ -95,15 +103,16 @@ public sealed record ManifestTotals(
 
 /// <summary>The chosen assignment run on a second, held-out dataset, beside the calibration figures.</summary>
 /// <param name="Samples">Samples in the held-out set.</param>
-/// <param name="BudgetValue">The budget metric on the held-out set, judged as on the calibration set; null when infinite.</param>
-/// <param name="BindingOutput">The judged output that gave <paramref name="BudgetValue"/>.</param>
+/// <param name="Measured">The budget metric on the held-out set, judged as on the calibration set; null when infinite.</param>
+/// <param name="BindingOutput">The judged output that gave <paramref name="Measured"/>.</param>
+/// <param name="Metrics">Every metric on the held-out set.</param>
 /// <param name="MeetsBudget">Whether the held-out figure meets the error budget; null for a size budget.</param>
 public sealed record ManifestHeldOut(
     int Samples,
-    double? BudgetValue,
+    double? Measured,
     string? BindingOutput,
     bool? MeetsBudget,
-    ManifestMetrics Measured);
+    ManifestMetrics Metrics);
 
 /// <summary>One output's metrics; <see cref="Judged"/> says whether the budget looks at it.</summary>
 public sealed record ManifestOutputMetrics(

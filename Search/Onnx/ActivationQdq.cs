@@ -14,7 +14,7 @@ namespace Bitbudget.Search.Onnx;
 internal static class ActivationQdq
 {
     /// <summary>Name of the boolean graph input that turns a layer's activation quantization on.</summary>
-    public static string SwitchName(string layer) => layer + "/activation_switch";
+    public static string SwitchName(string layer) => DerivedNames.Of(layer, "activation-switch");
 
     /// <summary>The model with every listed activation behind a switch; switches are added as graph inputs.</summary>
     public static ModelProto WithSwitches(ModelProto model, IReadOnlyList<ActivationQuantization> activations)
@@ -46,10 +46,10 @@ internal static class ActivationQdq
             }
 
             var stem = activation.Consumer + "/activation";
-            var scale = Unique(names, stem + "_scale");
-            var zeroPoint = Unique(names, stem + "_zero_point");
-            var quantized = Unique(names, stem + "_quantized");
-            var dequantized = Unique(names, stem + "_dequantized");
+            var scale = Unique(names, DerivedNames.Of(stem, "scale"));
+            var zeroPoint = Unique(names, DerivedNames.Of(stem, "zero-point"));
+            var quantized = Unique(names, DerivedNames.Of(stem, "levels"));
+            var dequantized = Unique(names, DerivedNames.Of(stem, "dequantized"));
             var scaleTensor = new TensorProto { Name = scale, DataType = (int)TensorProto.Types.DataType.Float };
             scaleTensor.FloatData.Add(activation.Scale);
             graph.Initializer.Add(scaleTensor);
@@ -68,7 +68,7 @@ internal static class ActivationQdq
             var read = dequantized;
             if (switched)
             {
-                read = Unique(names, stem + "_switched");
+                read = Unique(names, DerivedNames.Of(stem, "switched"));
                 nodes.Add(new NodeProto
                 {
                     Name = stem + "/switch",
@@ -106,7 +106,7 @@ internal static class ActivationQdq
         var name = wanted;
         for (var n = 1; !names.Add(name); n++)
         {
-            name = $"{wanted}_{n}";
+            name = $"{wanted}-{n}";
         }
 
         return name;

@@ -71,18 +71,18 @@ internal static class WeightStorage
         var setting = new LayerSetting(q.Bits, q.Scheme, q.Axis >= 0 ? Granularity.PerChannel : Granularity.PerTensor);
         var type = IntegerType(setting, opset);
         var stem = layer.WeightName;
-        var initializers = new List<TensorProto> { IntegerTensor(stem + "_quantized", layer.Shape, q.Levels, type) };
+        var initializers = new List<TensorProto> { IntegerTensor(DerivedNames.Of(stem, "levels"), layer.Shape, q.Levels, type) };
         var nodes = new List<NodeProto>();
         var asymmetric = q.Scheme == QuantizationScheme.Asymmetric;
         if (UsesDequantizeLinear(setting, opset))
         {
             long[] paramShape = q.Axis >= 0 ? [q.Scales.Length] : [];
-            initializers.Add(FloatTensor(stem + "_scale", paramShape, q.Scales));
-            var node = new NodeProto { Name = layer.Name + "/dequantize", OpType = "DequantizeLinear", Input = { stem + "_quantized", stem + "_scale" }, Output = { stem } };
+            initializers.Add(FloatTensor(DerivedNames.Of(stem, "scale"), paramShape, q.Scales));
+            var node = new NodeProto { Name = layer.Name + "/dequantize", OpType = "DequantizeLinear", Input = { DerivedNames.Of(stem, "levels"), DerivedNames.Of(stem, "scale") }, Output = { stem } };
             if (asymmetric)
             {
-                initializers.Add(IntegerTensor(stem + "_zero_point", paramShape, q.ZeroPoints, type));
-                node.Input.Add(stem + "_zero_point");
+                initializers.Add(IntegerTensor(DerivedNames.Of(stem, "zero-point"), paramShape, q.ZeroPoints, type));
+                node.Input.Add(DerivedNames.Of(stem, "zero-point"));
             }
 
             if (q.Axis >= 0)
@@ -96,25 +96,25 @@ internal static class WeightStorage
 
         // One scale (and zero point) per channel, shaped [1, .., C, .., 1] so Mul and Sub broadcast on the channel axis.
         var broadcast = q.Axis < 0 ? [] : layer.Shape.Select((d, i) => i == q.Axis ? d : 1).ToArray();
-        initializers.Add(FloatTensor(stem + "_scale", broadcast, q.Scales));
-        nodes.Add(ToFloat(layer.Name + "/levels", stem + "_quantized", stem + "_levels"));
-        var centered = stem + "_levels";
+        initializers.Add(FloatTensor(DerivedNames.Of(stem, "scale"), broadcast, q.Scales));
+        nodes.Add(ToFloat(layer.Name + "/levels", DerivedNames.Of(stem, "levels"), DerivedNames.Of(stem, "levels-float")));
+        var centered = DerivedNames.Of(stem, "levels-float");
         if (asymmetric)
         {
-            initializers.Add(IntegerTensor(stem + "_zero_point", broadcast, q.ZeroPoints, type));
-            nodes.Add(ToFloat(layer.Name + "/zero_point", stem + "_zero_point", stem + "_zero_point_float"));
-            nodes.Add(new NodeProto { Name = layer.Name + "/center", OpType = "Sub", Input = { stem + "_levels", stem + "_zero_point_float" }, Output = { stem + "_centered" } });
-            centered = stem + "_centered";
+            initializers.Add(IntegerTensor(DerivedNames.Of(stem, "zero-point"), broadcast, q.ZeroPoints, type));
+            nodes.Add(ToFloat(layer.Name + "/zero_point", DerivedNames.Of(stem, "zero-point"), DerivedNames.Of(stem, "zero-point-float")));
+            nodes.Add(new NodeProto { Name = layer.Name + "/center", OpType = "Sub", Input = { DerivedNames.Of(stem, "levels-float"), DerivedNames.Of(stem, "zero-point-float") }, Output = { DerivedNames.Of(stem, "centered") } });
+            centered = DerivedNames.Of(stem, "centered");
         }
 
-        nodes.Add(new NodeProto { Name = layer.Name + "/scale", OpType = "Mul", Input = { centered, stem + "_scale" }, Output = { stem } });
+        nodes.Add(new NodeProto { Name = layer.Name + "/scale", OpType = "Mul", Input = { centered, DerivedNames.Of(stem, "scale") }, Output = { stem } });
         return new StoredWeight(initializers, nodes, ScaleMultiplyForm);
     }
 
     /// <summary>The FP16 initializer and the Cast that writes a weight as half precision.</summary>
     public static StoredWeight Half(WeightLayer layer, ReadOnlySpan<float> weight)
     {
-        var tensor = new TensorProto { Name = layer.WeightName + "_fp16", DataType = (int)TensorProto.Types.DataType.Float16 };
+        var tensor = new TensorProto { Name = DerivedNames.Of(layer.WeightName, "half"), DataType = (int)TensorProto.Types.DataType.Float16 };
         tensor.Dims.AddRange(layer.Shape);
         var raw = new byte[weight.Length * 2];
         for (var i = 0; i < weight.Length; i++)

@@ -90,7 +90,7 @@ internal sealed class SearchReport(
                 model.Inputs.Select((input, i) => (input.Name, Axis: data.SampleAxes[i])).ToDictionary(p => p.Name, p => p.Axis, StringComparer.Ordinal),
                 new SortedDictionary<string, int?>(outputAxes.ToDictionary(), StringComparer.Ordinal)),
             new ManifestSettings(
-                settings.Bits.Distinct().OrderDescending().ToList(),
+                settings.Bits.Distinct().Order().ToList(),
                 Wire(settings.Method),
                 Wire(settings.Scheme),
                 Wire(settings.Granularity),
@@ -123,14 +123,14 @@ internal sealed class SearchReport(
             raiseCheck?.MaxRelativeDifference ?? 0,
             raiseCheck?.BitExact ?? true);
 
-    /// <summary>One row per (layer, candidate width): its bytes, additive error and measured metrics.</summary>
+    /// <summary>One row per (layer, candidate width): its bytes, additive error and measured metrics; columns named as the manifest's fields.</summary>
     public string SensitivityCsv()
     {
-        var csv = new StringBuilder("layer,op,parameters,bits,bytes,additive_error,sqnr_db,relative_mse,top1_agreement,kl_divergence,cosine_similarity,accuracy\n");
+        var csv = new StringBuilder("layer,op,parameters,bits,bytes,additiveError,sqnrDb,relativeMse,top1Agreement,klDivergence,cosineSimilarity,accuracy\n");
         for (var i = 0; i < problem.Layers.Count; i++)
         {
             var layer = problem.Searched[i];
-            foreach (var choice in problem.Candidates[i].Choices)
+            foreach (var choice in problem.Candidates[i].Choices.OrderBy(c => c.Bits))
             {
                 var m = SensitivityOf(layer, choice.Bits);
                 csv.Append(Csv(layer.Name)).Append(',').Append(layer.Op).Append(',')
@@ -186,7 +186,7 @@ internal sealed class SearchReport(
         var bits = setting?.Bits;
         var sensitivity = excluded
             ? []
-            : problem.Candidates[index].Choices.Select(c => new ManifestSensitivity(
+            : problem.Candidates[index].Choices.OrderBy(c => c.Bits).Select(c => new ManifestSensitivity(
                 c.Bits,
                 c.Bytes,
                 c.Error,

@@ -22,12 +22,17 @@ public static class TrialKeys
         $"validation/{assignmentHash}{Activations(activations)}";
 
     /// <summary>SHA-256 (hex) of an assignment, independent of dictionary order.</summary>
+    /// <remarks>
+    /// The hashed text is an identity, not a spelling shown to anyone: it stays what the first stored
+    /// validations were hashed from (enum names run together in lowercase), so a search stored before the
+    /// keys took the wire names still finds its validations. Changing it would orphan every stored validation.
+    /// </remarks>
     public static string AssignmentHash(IReadOnlyDictionary<string, LayerSetting> assignment)
     {
         var text = new StringBuilder();
         foreach (var (layer, setting) in assignment.OrderBy(p => p.Key, StringComparer.Ordinal))
         {
-            text.Append(layer).Append('=').Append(Describe(setting)).Append('\n');
+            text.Append(layer).Append('=').Append(HashText(setting)).Append('\n');
         }
 
         return Convert.ToHexStringLower(SHA256.HashData(Encoding.UTF8.GetBytes(text.ToString())));
@@ -36,12 +41,15 @@ public static class TrialKeys
     private static string Activations(ActivationCalibration? activations) =>
         activations is { } a ? "/activations-" + WireNames.Format(a) : string.Empty;
 
-    /// <summary>A setting as a short stable string, e.g. "4b-symmetric-perchannel-minmax".</summary>
-    public static string Describe(LayerSetting setting)
-    {
-        var text = $"{setting.Bits}b-{setting.Scheme}-{setting.Granularity}-{setting.Clip}".ToLowerInvariant();
-        return setting.Clip == ClipMethod.Percentile
+    /// <summary>A setting as a short stable string in the wire names, e.g. "4b-symmetric-per-channel-min-max".</summary>
+    public static string Describe(LayerSetting setting) =>
+        WithPercentile(setting, $"{setting.Bits}b-{WireNames.Format(setting.Scheme)}-{WireNames.Format(setting.Granularity)}-{WireNames.Format(setting.Clip)}");
+
+    private static string HashText(LayerSetting setting) =>
+        WithPercentile(setting, $"{setting.Bits}b-{setting.Scheme}-{setting.Granularity}-{setting.Clip}".ToLowerInvariant());
+
+    private static string WithPercentile(LayerSetting setting, string text) =>
+        setting.Clip == ClipMethod.Percentile
             ? text + "-" + setting.Percentile.ToString("R", System.Globalization.CultureInfo.InvariantCulture)
             : text;
-    }
 }

@@ -1,9 +1,9 @@
 using System.Globalization;
 using System.Text;
 using System.Text.Json;
-using System.Text.Json.Serialization;
 using Bitbudget.Search;
 using Bitbudget.Search.Onnx;
+using Bitbudget.Service.Engine;
 
 namespace Bitbudget.Service.Commands;
 
@@ -12,7 +12,7 @@ internal static class InspectCommand
 {
     private const string Usage = "usage: inspect MODEL.onnx [--json]";
 
-    private static readonly JsonSerializerOptions Json = new(JsonSerializerDefaults.Web) { WriteIndented = true, Converters = { new JsonStringEnumConverter() } };
+    private static readonly JsonSerializerOptions Json = new(JsonSerializerDefaults.Web) { WriteIndented = true };
 
     public static Task<int> RunAsync(string[] args)
     {
@@ -64,15 +64,16 @@ internal static class InspectCommand
             model.Sha256,
             model.Opset,
             model.IrVersion,
-            model.Inputs,
-            model.Outputs,
+            // The API's names (GET /v1/models/{id}): weight, parameters, lowercase element types.
+            Inputs = model.Inputs.Select(TensorSummary.From),
+            Outputs = model.Outputs.Select(TensorSummary.From),
             Layers = model.Layers.Select(l => new
             {
                 l.Name,
                 l.Op,
-                l.WeightName,
+                Weight = l.WeightName,
                 l.Shape,
-                l.ParameterCount,
+                Parameters = l.ParameterCount,
                 l.ChannelAxis,
                 BatchNormFolded = l.FollowedByBatchNorm,
                 l.Consumers,

@@ -129,11 +129,11 @@ internal static class PlanCommand
             }
 
             text.AppendLine(CultureInfo.InvariantCulture, $"{manifest.Budget.Metric}: predicted {result.PredictedError:0.####}, measured {result.MeasuredError:0.####}{Binding(totals.BindingOutput)}");
-            Outputs(text, totals.Measured, manifest.HeldOut?.Measured);
+            Outputs(text, totals.Metrics, manifest.HeldOut?.Metrics);
             if (manifest.HeldOut is { } held)
             {
                 var verdict = held.MeetsBudget switch { true => "meets the budget", false => "MISSES the budget", null => "no error budget to meet" };
-                text.AppendLine(CultureInfo.InvariantCulture, $"{manifest.Budget.Metric}: calibration ({manifest.Dataset.Samples} samples) {result.MeasuredError:0.####}, held-out ({held.Samples} samples) {Number(held.BudgetValue)}{Binding(held.BindingOutput)}: {verdict}");
+                text.AppendLine(CultureInfo.InvariantCulture, $"{manifest.Budget.Metric}: calibration ({manifest.Dataset.Samples} samples) {result.MeasuredError:0.####}, held-out ({held.Samples} samples) {Number(held.Measured)}{Binding(held.BindingOutput)}: {verdict}");
             }
         }
 

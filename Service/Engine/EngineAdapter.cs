@@ -22,9 +22,9 @@ internal sealed class EngineAdapter(IOptions<BitbudgetOptions> options) : ISearc
             model.Name,
             bytes.LongLength,
             model.Opset,
-            model.Inputs.Select(Tensor).ToList(),
-            model.Outputs.Select(Tensor).ToList(),
-            model.Layers.Select(l => new LayerSummary(l.Name, l.Op, l.WeightName, l.Shape, l.ParameterCount, l.ChannelAxis, l.FollowedByBatchNorm)).ToList(),
+            model.Inputs.Select(TensorSummary.From).ToList(),
+            model.Outputs.Select(TensorSummary.From).ToList(),
+            model.Layers.Select(LayerSummary.From).ToList(),
             model.Notes,
             model.Skipped);
     }
@@ -71,7 +71,4 @@ internal sealed class EngineAdapter(IOptions<BitbudgetOptions> options) : ISearc
         var held = holdout is null ? null : CalibrationSet.Create(DatasetReader.Read(holdout, Limits), loaded.Inputs, settings.SampleAxes);
         return SearchRunner.Run(loaded, data, settings, trials, progress, cancellationToken, holdout: held);
     }
-
-    private static TensorSummary Tensor(Bitbudget.Search.ValueDescription value) =>
-        new(value.Name, value.ElementType.ToString().ToLowerInvariant(), value.Shape);
 }

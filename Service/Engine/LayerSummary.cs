@@ -10,4 +10,8 @@ internal sealed record LayerSummary(
     IReadOnlyList<long> Shape,
     long Parameters,
     int ChannelAxis,
-    bool BatchNormFolded);
+    bool BatchNormFolded)
+{
+    public static LayerSummary From(Bitbudget.Search.Onnx.WeightLayer layer) =>
+        new(layer.Name, layer.Op, layer.WeightName, layer.Shape, layer.ParameterCount, layer.ChannelAxis, layer.FollowedByBatchNorm);
+}

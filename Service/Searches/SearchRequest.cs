@@ -2,10 +2,10 @@ namespace Bitbudget.Service.Searches;
 
 /// <summary>The body of POST /v1/searches; everything but the ids and the budget has a default.</summary>
 /// <param name="Bits">Candidate bit widths: 2..8, 16 (half precision) or 32 (keep FP32). Default: the widths the storage tells apart (8, 16, 32 below opset 21; 4, 8, 16, 32 at 21; 2, 3, 4, 5, 6, 8 with packed storage).</param>
-/// <param name="Method">"knapsack" (default) or "greedy".</param>
+/// <param name="Method">"knapsack" (default) or "greedy". Every enum value is accepted in any case and echoed in lowercase.</param>
 /// <param name="Scheme">"symmetric" (default) or "asymmetric".</param>
 /// <param name="Granularity">"per-channel" (default) or "per-tensor".</param>
-/// <param name="Calibration">"min-max" (default), "percentile", "mse-optimal", "analytic-laplace" or "analytic-gaussian".</param>
+/// <param name="Clip">How each weight's clipping range is chosen: "min-max" (default), "percentile", "mse-optimal", "analytic-laplace" or "analytic-gaussian".</param>
 /// <param name="Activations">Also quantize activations to 8 bits (models with opset 13 or later).</param>
 /// <param name="Pin">Layers forced to one bit width.</param>
 /// <param name="Exclude">Layers kept in FP32.</param>
@@ -23,7 +23,7 @@ internal sealed record SearchRequest(
     string? Method = null,
     string? Scheme = null,
     string? Granularity = null,
-    string? Calibration = null,
+    string? Clip = null,
     bool? Activations = null,
     IReadOnlyDictionary<string, int>? Pin = null,
     IReadOnlyList<string>? Exclude = null,

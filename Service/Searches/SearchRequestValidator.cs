@@ -23,7 +23,7 @@ internal static class SearchRequestValidator
         var method = Choice(request.Method, "knapsack", SearchVocabulary.Methods.Keys, "method", Add);
         var scheme = Choice(request.Scheme, "symmetric", SearchVocabulary.Schemes.Keys, "scheme", Add);
         var granularity = Choice(request.Granularity, "per-channel", SearchVocabulary.Granularities.Keys, "granularity", Add);
-        var calibration = Choice(request.Calibration, "min-max", SearchVocabulary.Calibrations.Keys, "calibration", Add);
+        var clip = Choice(request.Clip, "min-max", SearchVocabulary.Clips.Keys, "clip", Add);
         var storage = Choice(request.Storage, "container", SearchVocabulary.Storages.Keys, "storage", Add);
 
         var layerNames = model.Summary.Layers.Select(l => l.Name).ToHashSet(StringComparer.Ordinal);
@@ -110,7 +110,7 @@ internal static class SearchRequestValidator
         }
 
         return new SearchSpec(
-            budget, bits, method!, scheme!, granularity!, calibration!, request.Activations ?? false, pin, exclude, request.TargetOpset, sampleAxes, outputs, metricSpace!, holdout?.Id, storage!);
+            budget, bits, method!, scheme!, granularity!, clip!, request.Activations ?? false, pin, exclude, request.TargetOpset, sampleAxes, outputs, metricSpace!, holdout?.Id, storage!);
     }
 
     private static SortedDictionary<string, int>? ValidateSampleAxes(IReadOnlyDictionary<string, int>? given, ModelRecord model, Action<string, string> add)
@@ -183,10 +183,10 @@ internal static class SearchRequestValidator
             return null;
         }
 
-        string? metric = budget.Metric;
-        if (metric is not null && !SearchVocabulary.Metrics.ContainsKey(metric))
+        string? metric = budget.Metric is null ? null : Canonical(budget.Metric, SearchVocabulary.Metrics.Keys);
+        if (budget.Metric is not null && metric is null)
         {
-            add("budget.metric", $"Unknown metric '{metric}'; use one of {string.Join(", ", SearchVocabulary.Metrics.Keys)}.");
+            add("budget.metric", $"Unknown metric '{budget.Metric}'; use one of {string.Join(", ", SearchVocabulary.Metrics.Keys)}.");
             return null;
         }
 
@@ -244,7 +244,7 @@ internal static class SearchRequestValidator
             return null;
         }
 
-        return budget with { Bytes = null, AverageBits = null };
+        return budget with { Metric = metric, Bytes = null, AverageBits = null };
     }
 
     private static string Example(string metric) => metric switch
@@ -294,12 +294,17 @@ internal static class SearchRequestValidator
             return fallback;
         }
 
-        if (allowed.Contains(value, StringComparer.Ordinal))
+        // Input in any case (as the command line takes it); the spec keeps the lowercase wire name.
+        if (Canonical(value, allowed) is { } known)
         {
-            return value;
+            return known;
         }
 
         add(field, $"Unknown {field} '{value}'; use one of {string.Join(", ", allowed)}.");
         return null;
     }
+
+    /// <summary>The allowed spelling that matches <paramref name="value"/> ignoring case, or null.</summary>
+    private static string? Canonical(string value, IEnumerable<string> allowed) =>
+        allowed.FirstOrDefault(a => string.Equals(a, value.Trim(), StringComparison.OrdinalIgnoreCase));
 }

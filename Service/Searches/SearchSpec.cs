@@ -9,7 +9,7 @@ internal sealed record SearchSpec(
     string Method,
     string Scheme,
     string Granularity,
-    string Calibration,
+    string Clip,
     bool Activations,
     IReadOnlyDictionary<string, int> Pin,
     IReadOnlyList<string> Exclude,

@@ -42,7 +42,7 @@ internal static class SearchVocabulary
         ["packed"] = StorageRule.Packed,
     };
 
-    public static IReadOnlyDictionary<string, ClipMethod> Calibrations { get; } = new Dictionary<string, ClipMethod>(StringComparer.Ordinal)
+    public static IReadOnlyDictionary<string, ClipMethod> Clips { get; } = new Dictionary<string, ClipMethod>(StringComparer.Ordinal)
     {
         ["min-max"] = ClipMethod.MinMax,
         ["percentile"] = ClipMethod.Percentile,
@@ -75,7 +75,7 @@ internal static class SearchVocabulary
             Methods[spec.Method],
             Schemes[spec.Scheme],
             Granularities[spec.Granularity],
-            Calibrations[spec.Calibration],
+            Clips[spec.Clip],
             spec.Activations,
             spec.Pin,
             spec.Exclude,

@@ -139,5 +139,24 @@ internal static class Migrations
 
             CREATE TABLE store_probe (id INTEGER PRIMARY KEY CHECK (id = 1), written_at TEXT NOT NULL);
             """),
+        // One vocabulary (manifest format 4): a search's settings say "clip" where they said "calibration", and
+        // sensitivity trial keys spell granularity and clip as the API does ("4b-symmetric-per-channel-min-max",
+        // was "4b-symmetric-perchannel-minmax"), so a stored search resumed by this version finds its trials.
+        // Each replace is anchored on the scheme that precedes the granularity in a key. Validation keys hash
+        // a text that did not change (TrialKeys.AssignmentHash) and need nothing.
+        (3, """
+            UPDATE searches SET settings_json = json_set(json_remove(settings_json, '$.calibration'), '$.clip', json_extract(settings_json, '$.calibration'))
+                WHERE json_type(settings_json, '$.calibration') IS NOT NULL;
+            UPDATE trials SET key = replace(key, 'symmetric-perchannel-', 'symmetric-per-channel-') WHERE kind = 'sensitivity';
+            UPDATE trials SET key = replace(key, 'symmetric-pertensor-', 'symmetric-per-tensor-') WHERE kind = 'sensitivity';
+            UPDATE trials SET key = replace(key, 'symmetric-per-channel-minmax', 'symmetric-per-channel-min-max') WHERE kind = 'sensitivity';
+            UPDATE trials SET key = replace(key, 'symmetric-per-tensor-minmax', 'symmetric-per-tensor-min-max') WHERE kind = 'sensitivity';
+            UPDATE trials SET key = replace(key, 'symmetric-per-channel-mseoptimal', 'symmetric-per-channel-mse-optimal') WHERE kind = 'sensitivity';
+            UPDATE trials SET key = replace(key, 'symmetric-per-tensor-mseoptimal', 'symmetric-per-tensor-mse-optimal') WHERE kind = 'sensitivity';
+            UPDATE trials SET key = replace(key, 'symmetric-per-channel-analyticlaplace', 'symmetric-per-channel-analytic-laplace') WHERE kind = 'sensitivity';
+            UPDATE trials SET key = replace(key, 'symmetric-per-tensor-analyticlaplace', 'symmetric-per-tensor-analytic-laplace') WHERE kind = 'sensitivity';
+            UPDATE trials SET key = replace(key, 'symmetric-per-channel-analyticgaussian', 'symmetric-per-channel-analytic-gaussian') WHERE kind = 'sensitivity';
+            UPDATE trials SET key = replace(key, 'symmetric-per-tensor-analyticgaussian', 'symmetric-per-tensor-analytic-gaussian') WHERE kind = 'sensitivity';
+            """),
     ];
 }

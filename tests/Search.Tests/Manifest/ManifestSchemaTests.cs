@@ -98,7 +98,7 @@ public sealed class ManifestSchemaTests
         Assert.Equal("mse-optimal", (string?)manifest["settings"]!["clip"]);
         Assert.Equal("per-tensor", (string?)manifest["settings"]!["granularity"]);
         Assert.Equal(0.05, (double)manifest["budget"]!["atMost"]!);
-        Assert.Equal(8, (int)manifest["settings"]!["pins"]!["fc1"]!);
+        Assert.Equal(8, (int)manifest["settings"]!["pin"]!["fc1"]!);
     }
 
     [Fact]
@@ -115,11 +115,11 @@ public sealed class ManifestSchemaTests
         Assert.True(result.Feasible, result.Message);
         Assert.All(manifest["layers"]!.AsArray(), layer => Assert.Equal(32, (int)layer!["bits"]!));
         Assert.Equal("Infinity", (string?)manifest["totals"]!["predicted"]);
-        Assert.Equal("Infinity", (string?)manifest["totals"]!["measured"]!["sqnrDb"]);
+        Assert.Equal("Infinity", (string?)manifest["totals"]!["metrics"]!["sqnrDb"]);
         Assert.Equal("Infinity", (string?)manifest["reference"]!["sqnrDb"]);
         var frontier = JsonNode.Parse(result.FrontierJson)!;
         Assert.Contains(frontier["points"]!.AsArray(), p => p!["predicted"] is JsonValue v && v.TryGetValue<string>(out var text) && text == "Infinity" && (double)p["additiveError"]! == 0);
-        Assert.True(double.IsPositiveInfinity(ManifestJson.Deserialize(result.ManifestJson).Totals!.Measured.SqnrDb!.Value), "the manifest reads back as written");
+        Assert.True(double.IsPositiveInfinity(ManifestJson.Deserialize(result.ManifestJson).Totals!.Metrics.SqnrDb!.Value), "the manifest reads back as written");
     }
 
     [Fact]
@@ -162,7 +162,7 @@ public sealed class ManifestSchemaTests
     [InlineData("settings.clip")]
     [InlineData("budget.atMost")]
     [InlineData("reference.sqnrDb")]
-    [InlineData("totals.measured.accuracy")]
+    [InlineData("totals.metrics.accuracy")]
     [InlineData("layers.0.bits")]
     [InlineData("layers.2.sensitivity.1.additiveError")]
     [InlineData("layers.1.coverage")]

@@ -56,7 +56,7 @@ public sealed class ActivationQdqTests
         var proto = SmallModels.Parse(exported.Bytes);
         foreach (var layer in model.Layers)
         {
-            var stored = proto.Graph.Initializer.Single(t => t.Name == layer.WeightName + "_quantized");
+            var stored = proto.Graph.Initializer.Single(t => t.Name == layer.WeightName + "#levels");
             Assert.Equal((int)P.TensorProto.Types.DataType.Uint8, stored.DataType);
         }
 

@@ -27,7 +27,7 @@ public sealed class QdqExporterTests
         var proto = SmallModels.Parse(exported.Bytes);
         Assert.Equal(3, proto.Graph.Node.Count(n => n.OpType == "DequantizeLinear"));
         var expectedType = scheme == QuantizationScheme.Symmetric ? P.TensorProto.Types.DataType.Int8 : P.TensorProto.Types.DataType.Uint8;
-        Assert.All(proto.Graph.Initializer.Where(t => t.Name.EndsWith("_quantized", StringComparison.Ordinal)), t => Assert.Equal((int)expectedType, t.DataType));
+        Assert.All(proto.Graph.Initializer.Where(t => t.Name.EndsWith("#levels", StringComparison.Ordinal)), t => Assert.Equal((int)expectedType, t.DataType));
         AssertRunsLikeTheTrial(model, assignment, exported.Bytes);
     }
 
@@ -40,14 +40,14 @@ public sealed class QdqExporterTests
         var exported = QdqExporter.Export(model, assignment);
 
         var proto = SmallModels.Parse(exported.Bytes);
-        var types = proto.Graph.Initializer.Where(t => t.Name.EndsWith("_quantized", StringComparison.Ordinal))
+        var types = proto.Graph.Initializer.Where(t => t.Name.EndsWith("#levels", StringComparison.Ordinal))
             .ToDictionary(t => t.Name, t => (P.TensorProto.Types.DataType)t.DataType);
-        Assert.Equal(P.TensorProto.Types.DataType.Int4, types["w1_quantized"]);
-        Assert.Equal(P.TensorProto.Types.DataType.Int4, types["w2_quantized"]);
-        Assert.Equal(P.TensorProto.Types.DataType.Int8, types["w3_quantized"]);
+        Assert.Equal(P.TensorProto.Types.DataType.Int4, types["w1#levels"]);
+        Assert.Equal(P.TensorProto.Types.DataType.Int4, types["w2#levels"]);
+        Assert.Equal(P.TensorProto.Types.DataType.Int8, types["w3#levels"]);
 
         // Two 4-bit values per byte (ONNX IR: INT4 packs the first element in the low nibble).
-        Assert.Equal((16 * 24 + 1) / 2, proto.Graph.Initializer.Single(t => t.Name == "w1_quantized").RawData.Length);
+        Assert.Equal((16 * 24 + 1) / 2, proto.Graph.Initializer.Single(t => t.Name == "w1#levels").RawData.Length);
         AssertRunsLikeTheTrial(model, assignment, exported.Bytes);
     }
 
@@ -79,7 +79,7 @@ public sealed class QdqExporterTests
         Assert.Equal(QdqExporter.ScaleMultiplyNote(9), exported.Note);
         var proto = SmallModels.Parse(exported.Bytes);
         Assert.DoesNotContain(proto.Graph.Node, n => n.OpType == "DequantizeLinear");
-        Assert.Equal(model.Layers.Count, proto.Graph.Initializer.Count(t => t.Name.EndsWith("_quantized", StringComparison.Ordinal) && t.DataType == (int)P.TensorProto.Types.DataType.Int8));
+        Assert.Equal(model.Layers.Count, proto.Graph.Initializer.Count(t => t.Name.EndsWith("#levels", StringComparison.Ordinal) && t.DataType == (int)P.TensorProto.Types.DataType.Int8));
         Assert.DoesNotContain(proto.Graph.Initializer, t => model.Layers.Any(l => l.WeightName == t.Name));
         AssertRunsLikeTheTrial(model, assignment, exported.Bytes, data);
     }

@@ -135,7 +135,7 @@ public sealed class RecurrentAndTableLayerTests
         Assert.Equal(QdqExporter.MatMulNote, QdqExporter.Export(model, new Dictionary<string, LayerSetting> { ["embed"] = new(4) }).Note);
 
         // One integer table serves all three readers.
-        Assert.Single(exported.Graph.Initializer, t => t.Name == "E_quantized");
+        Assert.Single(exported.Graph.Initializer, t => t.Name == "E#levels");
         Assert.DoesNotContain(exported.Graph.Initializer, t => t.Name == "E");
     }
 

@@ -50,7 +50,7 @@ public sealed class WeightStorageTests
         var proto = SmallModels.Parse(exported.Bytes);
         Assert.Equal(opset, proto.OpsetImport.Single(o => o.Domain is "" or "ai.onnx").Version);
         Assert.DoesNotContain(proto.Graph.Initializer, t => t.Name == layer.WeightName);
-        var stored = proto.Graph.Initializer.Single(t => t.Name == layer.WeightName + "_quantized");
+        var stored = proto.Graph.Initializer.Single(t => t.Name == layer.WeightName + "#levels");
         var int4 = bits <= 4 && opset >= 21;
         var expectedType = (scheme, int4) switch
         {

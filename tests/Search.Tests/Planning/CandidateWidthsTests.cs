@@ -30,7 +30,7 @@ public sealed class CandidateWidthsTests
         var result = SearchRunner.Run(model, SmallModels.MlpData(model), new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 25), []), new InMemoryTrialStore(), null, CancellationToken.None);
 
         var manifest = ManifestJson.Deserialize(result.ManifestJson);
-        Assert.Equal([32, 16, 8], manifest.Settings.Bits);
+        Assert.Equal([8, 16, 32], manifest.Settings.Bits);
         Assert.All(manifest.Layers, l => Assert.DoesNotContain(l.Sensitivity, s => s.Bits < 8));
 
         // The uniform 4-bit sizes named in the note are the counts of the two storages the note names.

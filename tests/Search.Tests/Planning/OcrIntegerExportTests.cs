@@ -108,7 +108,7 @@ public sealed class OcrIntegerExportTests(ITestOutputHelper output)
         Assert.DoesNotContain(proto.Graph.Initializer, t => weights.Contains(t.Name));
         foreach (var layer in model.Layers.Where(l => integerLayers.Contains(l.Name)))
         {
-            var stored = proto.Graph.Initializer.Single(t => t.Name == layer.WeightName + "_quantized");
+            var stored = proto.Graph.Initializer.Single(t => t.Name == layer.WeightName + "#levels");
             Assert.Equal((int)P.TensorProto.Types.DataType.Int8, stored.DataType);
             Assert.Equal(layer.ParameterCount, stored.RawData.Length);
         }
@@ -123,7 +123,7 @@ public sealed class OcrIntegerExportTests(ITestOutputHelper output)
         // Default candidates under container storage below opset 21. Every layer at 8 bits, except where FP16 or FP32
         // is smaller in the file: a tiny layer's per-channel scales and dequantizing nodes outweigh what one byte per
         // weight saves (the classifier's second layer: 64 weights, 16 channels; its fourth: 16 weights).
-        Assert.Equal([32, 16, 8], manifest.Settings.Bits);
+        Assert.Equal([8, 16, 32], manifest.Settings.Bits);
         Assert.All(manifest.Layers, l => Assert.True(
             l.Bits == 8 || l.Sensitivity.Single(c => c.Bits == l.Bits).Bytes < l.Sensitivity.Single(c => c.Bits == 8).Bytes,
             $"{l.Name} at {l.Bits} bits"));
@@ -140,9 +140,9 @@ public sealed class OcrIntegerExportTests(ITestOutputHelper output)
         var reference = ExportedModelRunner.Run(uploaded, data);
         var quantized = ExportedModelRunner.Run(result.QuantizedModel, data);
         var measured = OutputComparer.Compare(reference, quantized, null).SqnrDb;
-        Assert.True(Math.Abs(measured - manifest.Totals.Measured.SqnrDb!.Value) <= 0.05, $"ONNX Runtime gives {measured:0.000} dB; the manifest claims {manifest.Totals.Measured.SqnrDb:0.000} dB");
+        Assert.True(Math.Abs(measured - manifest.Totals.Metrics.SqnrDb!.Value) <= 0.05, $"ONNX Runtime gives {measured:0.000} dB; the manifest claims {manifest.Totals.Metrics.SqnrDb:0.000} dB");
         Assert.True(measured >= sqnrDb);
-        output.WriteLine($"classifier: ONNX Runtime {measured:0.000} dB, manifest {manifest.Totals.Measured.SqnrDb:0.000} dB");
+        output.WriteLine($"classifier: ONNX Runtime {measured:0.000} dB, manifest {manifest.Totals.Metrics.SqnrDb:0.000} dB");
         return result;
     }
 }

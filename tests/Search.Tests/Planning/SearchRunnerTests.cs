@@ -25,7 +25,7 @@ public sealed class SearchRunnerTests
         var disagreement = manifest.Layers.Sum(l => l.Sensitivity.Single(c => c.Bits == l.Bits).AdditiveError);
         Assert.Equal(Math.Max(0, 1 - disagreement), result.PredictedError, 12);
         Assert.Equal(manifest.Totals!.Predicted, result.PredictedError);
-        Assert.Equal(manifest.Totals.Measured.Top1Agreement, result.MeasuredError);
+        Assert.Equal(manifest.Totals.Metrics.Top1Agreement, result.MeasuredError);
         Assert.InRange(result.MeasuredError, 0.9, 1);
         Assert.All(manifest.Layers, l => Assert.All(l.Sensitivity, c => Assert.Equal(1 - c.Metrics.Top1Agreement, c.AdditiveError, 12)));
     }

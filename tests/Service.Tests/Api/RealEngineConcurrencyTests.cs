@@ -63,7 +63,7 @@ public sealed class RealEngineConcurrencyTests(DemoFolderFixture demo, ITestOutp
         {
             var manifest = await (await client.GetAsync($"/v1/searches/{ids[i]}/manifest")).JsonAsync();
             Assert.Equal(budgets[i], manifest.GetProperty("budget").GetProperty("atLeast").GetDouble());
-            var measured = manifest.GetProperty("totals").GetProperty("measured").GetProperty("sqnrDb").GetDouble();
+            var measured = manifest.GetProperty("totals").GetProperty("metrics").GetProperty("sqnrDb").GetDouble();
             Assert.True(measured >= budgets[i], $"Search {ids[i]} measured {measured} dB against a {budgets[i]} dB budget.");
         }
 

@@ -73,8 +73,8 @@ public sealed class RealEngineWalkthroughTests : IClassFixture<RealEngineFixture
         var held = summary.GetProperty("heldOut");
         Assert.Equal(HiveMonitorScenario.StreamHoldoutPatches, held.GetProperty("samples").GetInt32());
         var manifest = await (await client.GetAsync($"/v1/searches/{started.GetProperty("id").GetString()}/manifest")).JsonAsync();
-        Assert.Equal(manifest.GetProperty("heldOut").GetProperty("budgetValue").GetDouble(), held.GetProperty("measured").GetDouble(), 9);
-        Assert.Equal(manifest.GetProperty("totals").GetProperty("budgetValue").GetDouble(), summary.GetProperty("measured").GetDouble(), 9);
+        Assert.Equal(manifest.GetProperty("heldOut").GetProperty("measured").GetDouble(), held.GetProperty("measured").GetDouble(), 9);
+        Assert.Equal(manifest.GetProperty("totals").GetProperty("measured").GetDouble(), summary.GetProperty("measured").GetDouble(), 9);
         var meets = held.GetProperty("measured").GetDouble() >= 30;
         Assert.Equal(meets, held.GetProperty("meetsBudget").GetBoolean());
         Assert.Equal(!meets, summary.GetProperty("warnings").EnumerateArray().Any(w => w.GetString()!.StartsWith("Held-out check:", StringComparison.Ordinal)));
@@ -155,7 +155,7 @@ public sealed class RealEngineWalkthroughTests : IClassFixture<RealEngineFixture
 
         var manifest = await manifestResponse.JsonAsync();
         var totals = manifest.GetProperty("totals");
-        var claimedDb = totals.GetProperty("measured").GetProperty("sqnrDb").GetDouble();
+        var claimedDb = totals.GetProperty("metrics").GetProperty("sqnrDb").GetDouble();
         Assert.True(claimedDb >= atLeastDb, $"The manifest claims {claimedDb} dB against a {atLeastDb} dB budget.");
         Assert.Equal(summary.GetProperty("measured").GetDouble(), claimedDb, 9);
         Assert.Equal(summary.GetProperty("bytes").GetInt64(), totals.GetProperty("bytes").GetInt64());

@@ -35,7 +35,7 @@ public sealed class SearchValidationTests(ServiceFactory factory) : IClassFixtur
     [InlineData("\"method\":\"annealing\"", "method", "knapsack, greedy")]
     [InlineData("\"scheme\":\"log\"", "scheme", "Unknown scheme")]
     [InlineData("\"granularity\":\"per-group\"", "granularity", "per-channel, per-tensor")]
-    [InlineData("\"calibration\":\"entropy\"", "calibration", "min-max")]
+    [InlineData("\"clip\":\"entropy\"", "clip", "min-max")]
     [InlineData("\"storage\":\"bits\"", "storage", "container, packed")]
     [InlineData("\"pin\":{\"conv9\":4}", "pin.conv9", "no layer 'conv9'")]
     [InlineData("\"pin\":{\"fc\":12}", "pin.fc", "Bit width 12")]
@@ -139,6 +139,29 @@ public sealed class SearchValidationTests(ServiceFactory factory) : IClassFixtur
         Assert.True(response.IsSuccessStatusCode, await response.Content.ReadAsStringAsync());
         var settings = (await response.JsonAsync()).GetProperty("settings");
         Assert.Equal(13, settings.GetProperty("targetOpset").GetInt64());
+    }
+
+    [Fact]
+    public async Task EnumValuesAreAcceptedInAnyCaseAndEchoedInTheirWireSpelling()
+    {
+        var (modelId, datasetId) = await client.UploadAsync("any-case");
+        var body = $$"""
+            {"modelId":"{{modelId}}","datasetId":"{{datasetId}}","budget":{"metric":"SQNR","atLeast":30},
+             "method":"Knapsack","scheme":"Symmetric","granularity":"PER-CHANNEL","clip":"Mse-Optimal","metricSpace":"Linear","storage":"Container"}
+            """;
+
+        var response = await client.PostAsync("/v1/searches", new StringContent(body, Encoding.UTF8, "application/json"));
+
+        Assert.True(response.IsSuccessStatusCode, await response.Content.ReadAsStringAsync());
+        var settings = (await response.JsonAsync()).GetProperty("settings");
+        Assert.Equal("sqnr", settings.GetProperty("budget").GetProperty("metric").GetString());
+        Assert.Equal("knapsack", settings.GetProperty("method").GetString());
+        Assert.Equal("symmetric", settings.GetProperty("scheme").GetString());
+        Assert.Equal("per-channel", settings.GetProperty("granularity").GetString());
+        Assert.Equal("mse-optimal", settings.GetProperty("clip").GetString());
+        Assert.Equal("linear", settings.GetProperty("metricSpace").GetString());
+        Assert.Equal("container", settings.GetProperty("storage").GetString());
+        Assert.False(settings.TryGetProperty("calibration", out _));
     }
 
     [Fact]

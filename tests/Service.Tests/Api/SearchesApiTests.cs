@@ -178,7 +178,7 @@ public sealed class SearchesApiTests(ServiceFactory factory) : IClassFixture<Ser
             method = "greedy",
             scheme = "asymmetric",
             granularity = "per-tensor",
-            calibration = "mse-optimal",
+            clip = "mse-optimal",
             pin = new Dictionary<string, int> { ["fc"] = 8 },
             exclude = new[] { "conv1" },
             targetOpset = 21,

@@ -46,7 +46,7 @@ public sealed class InspectCommandTests : IDisposable
         Assert.Equal(124_072, root.GetProperty("totals").GetProperty("parameters").GetInt64());
         Assert.Equal(
             root.GetProperty("totals").GetProperty("parameters").GetInt64(),
-            root.GetProperty("layers").EnumerateArray().Sum(l => l.GetProperty("parameterCount").GetInt64()));
+            root.GetProperty("layers").EnumerateArray().Sum(l => l.GetProperty("parameters").GetInt64()));
         Assert.Equal(9, root.GetProperty("opset").GetInt64());
     }
 

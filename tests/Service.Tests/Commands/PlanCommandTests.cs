@@ -49,7 +49,7 @@ public sealed class PlanCommandTests(PlanDemoFixture fixture) : IClassFixture<Pl
     public void QuantizedModelRunsInOnnxRuntimeAndGivesTheSqnrTheManifestClaims()
     {
         using var manifest = ReadJson("manifest.json");
-        var claimed = manifest.RootElement.GetProperty("totals").GetProperty("measured").GetProperty("sqnrDb").GetDouble();
+        var claimed = manifest.RootElement.GetProperty("totals").GetProperty("metrics").GetProperty("sqnrDb").GetDouble();
         Assert.True(claimed >= 25, $"The manifest claims {claimed} dB against a 25 dB budget.");
 
         var quantizedBytes = File.ReadAllBytes(Path.Combine(fixture.PlanFolder, "model.quantized.onnx"));
@@ -154,7 +154,7 @@ public sealed class PlanCommandTests(PlanDemoFixture fixture) : IClassFixture<Pl
         foreach (var layer in manifest.RootElement.GetProperty("layers").EnumerateArray())
         {
             var bits = layer.GetProperty("bits").GetInt32();
-            var stored = proto.Graph.Initializer.Single(t => t.Name == layer.GetProperty("weight").GetString() + "_quantized");
+            var stored = proto.Graph.Initializer.Single(t => t.Name == layer.GetProperty("weight").GetString() + "#levels");
             Assert.Equal((int)(bits <= 4 ? P.TensorProto.Types.DataType.Int4 : P.TensorProto.Types.DataType.Int8), stored.DataType);
             var parameters = layer.GetProperty("parameters").GetInt64();
             Assert.Equal(bits <= 4 ? (parameters + 1) / 2 : parameters, stored.RawData.Length);

@@ -36,7 +36,7 @@ public sealed class RealBinaryTests : IDisposable
         Assert.Equal("succeeded", done["state"]!.GetValue<string>());
         var id = done["id"]!.GetValue<string>();
         var manifest = JsonNode.Parse(await client.GetStringAsync($"/v1/searches/{id}/manifest"))!;
-        Assert.True(manifest["totals"]!["measured"]!["sqnrDb"]!.GetValue<double>() >= 30);
+        Assert.True(manifest["totals"]!["metrics"]!["sqnrDb"]!.GetValue<double>() >= 30);
         var model = await client.GetByteArrayAsync($"/v1/searches/{id}/model");
         using var session = new InferenceSession(model);
         Assert.Equal("logits", session.OutputNames.Single());

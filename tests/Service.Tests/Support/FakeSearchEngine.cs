@@ -209,7 +209,7 @@ internal sealed class FakeSearchEngine : ISearchEngine
 
         var bytes = feasible ? layers.Sum(l => l.Parameters * choice[l.Name] / 8) : 0;
         var fp32 = layers.Sum(l => l.Parameters * 4);
-        var csv = new StringBuilder("layer,bits,sqnr_db\n");
+        var csv = new StringBuilder("layer,bits,sqnrDb\n");
         foreach (var (layer, bits) in sweep)
         {
             csv.Append(CultureInfo.InvariantCulture, $"{layer.Name},{bits},{Sqnr(layer.Name, bits):F2}\n");
