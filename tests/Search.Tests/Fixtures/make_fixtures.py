@@ -87,6 +87,7 @@ def main():
     np.savez(os.path.join(OUT, "metrics_probabilities.npz"), reference=p, trial=q, expected=expected(p, q, softmax=False))
     streaming()
     logit_space()
+    compensated_rounding()
 
 
 def streaming():
@@ -126,6 +127,73 @@ def logit_space():
     np.savez(os.path.join(OUT, "metrics_logit_space.npz"),
              sigmoid_reference=p, sigmoid_trial=q, sigmoid_sqnr=np.array(sqnr(sigmoid_logit(p), sigmoid_logit(q))),
              softmax_reference=sp, softmax_trial=sq, softmax_sqnr=np.array(sqnr(centred_log(sp), centred_log(sq))))
+
+
+# (rows, columns, samples, bits, scheme, per_channel): a block edge (300 columns > 128), an always-zero input,
+# a wide asymmetric per-tensor case, and the 2..8-bit corners.
+GPTQ_CASES = [
+    (6, 20, 64, 4, "symmetric", True),
+    (5, 300, 400, 3, "symmetric", True),
+    (4, 40, 80, 2, "asymmetric", True),
+    (8, 17, 50, 8, "asymmetric", False),
+    (3, 130, 200, 5, "symmetric", False),
+]
+
+
+def grid(w, bits, scheme):
+    """Scale and zero point of a min-max range, in float32 step for step as AffineParameters computes them."""
+    if scheme == "symmetric":
+        qmin, qmax = -(2 ** (bits - 1) - 1), 2 ** (bits - 1) - 1
+        s = np.float32(np.abs(w).max()) / np.float32(qmax)
+        return (s if s > 0 else np.float32(1)), 0, qmin, qmax
+    qmin, qmax = 0, 2 ** bits - 1
+    low, high = min(np.float32(w.min()), np.float32(0)), max(np.float32(w.max()), np.float32(0))
+    s = np.float32((np.float64(high) - np.float64(low)) / (qmax - qmin))
+    z = int(np.clip(np.round(np.float32(qmin) - np.float32(low) / s), qmin, qmax))
+    return s, z, qmin, qmax
+
+
+def gptq(w, x, bits, scheme, per_channel):
+    """The published update written out directly (Frantar et al., 2022, Algorithm 1, from memory), one column at a
+    time with no lazy blocks: H = 2 X^T X, dead inputs H_ii = 1, damping 1% of the mean diagonal, U = upper Cholesky
+    factor of H^-1, then q_i = quant(w_i), err = (w_i - q_i) / U_ii, W[:, i+1:] -= err U[i, i+1:]. The quantizer is
+    QuantizeLinear's: float32 division, clamp, round half to even."""
+    rows, cols = w.shape
+    h = 2 * x.astype(np.float64).T @ x.astype(np.float64)
+    dead = np.diag(h) <= 0
+    h[dead, dead] = 1
+    h += 0.01 * np.mean(np.diag(h)) * np.eye(cols)
+    u = np.linalg.cholesky(np.linalg.inv(h)).T
+    grids = [grid(w[r], bits, scheme) for r in range(rows)] if per_channel else [grid(w, bits, scheme)] * rows
+    s = np.array([g[0] for g in grids], dtype=np.float32)
+    z = np.array([g[1] for g in grids])
+    qmin, qmax = grids[0][2], grids[0][3]
+    low, high = (qmin - z).astype(np.float32), (qmax - z).astype(np.float32)
+    work = w.astype(np.float64).copy()
+    levels = np.zeros((rows, cols), dtype=np.int32)
+    for i in range(cols):
+        step = np.round(np.clip(work[:, i].astype(np.float32) / s, low, high))
+        levels[:, i] = step.astype(np.int32) + z
+        err = (work[:, i] - (step.astype(np.float32) * s).astype(np.float64)) / u[i, i]
+        work[:, i + 1:] -= np.outer(err, u[i, i + 1:])
+    return levels
+
+
+def compensated_rounding():
+    """Weights, calibration inputs and the levels the direct NumPy update picks (GPTQ_CASES)."""
+    rng = np.random.default_rng(1322)
+    arrays = {}
+    for n, (rows, cols, samples, bits, scheme, per_channel) in enumerate(GPTQ_CASES):
+        w = rng.standard_normal((rows, cols)).astype("<f4")
+        # Correlated inputs (a random mixing of independent ones), as real activations are.
+        x = (rng.standard_normal((samples, cols)) @ rng.standard_normal((cols, cols)) * 0.3).astype("<f4")
+        if n == 0:
+            x[:, 3] = 0
+        arrays[f"case{n}_weight"] = w
+        arrays[f"case{n}_inputs"] = x
+        arrays[f"case{n}_levels"] = gptq(w, x, bits, scheme, per_channel)
+        arrays[f"case{n}_setting"] = np.array([bits, scheme == "asymmetric", per_channel], dtype="<i4")
+    np.savez(os.path.join(OUT, "compensated_rounding.npz"), **arrays)
 
 
 def softmax(x):
