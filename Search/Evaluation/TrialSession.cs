@@ -136,6 +136,11 @@ public sealed class TrialSession : IDisposable
     /// <summary>The weight of <paramref name="layer"/> as <paramref name="setting"/> stores it, back in FP32.</summary>
     public float[] Quantized(WeightLayer layer, LayerSetting setting)
     {
+        if (setting.Rounding != RoundingMethod.Nearest)
+        {
+            return (_options.Rounder ?? throw new InvalidOperationException("Compensated rounding needs the session's weight rounder.")).Dequantized(layer, setting);
+        }
+
         var fp32 = _fp32ByLayer[layer.Name];
         var result = new float[fp32.Length];
         WeightQuantizer.FakeQuantize(fp32, layer.Shape, layer.ChannelAxis, setting, result);

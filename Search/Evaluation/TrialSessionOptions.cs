@@ -11,6 +11,7 @@ namespace Bitbudget.Search.Evaluation;
 /// <param name="MetricSpace">Where SQNR and relative MSE are computed (see <see cref="Evaluation.MetricSpace"/>).</param>
 /// <param name="FixedActivations">Activation scales and zero points to use as given instead of calibrating them on this
 /// session's data (a held-out check must quantize activations exactly as the calibration set did).</param>
+/// <param name="Rounder">Where weights set to compensated rounding get their integers; null when every weight is rounded to nearest.</param>
 public sealed record TrialSessionOptions(
     int MaxBatch = 32,
     bool SuffixRuns = true,
@@ -18,4 +19,5 @@ public sealed record TrialSessionOptions(
     int? IntraOpThreads = null,
     ActivationCalibration? Activations = null,
     MetricSpace MetricSpace = MetricSpace.Linear,
-    IReadOnlyList<ActivationQuantization>? FixedActivations = null);
+    IReadOnlyList<ActivationQuantization>? FixedActivations = null,
+    WeightRounder? Rounder = null);

@@ -68,7 +68,8 @@ public sealed record ManifestSettings(
     IReadOnlyList<string> Exclude,
     IReadOnlyList<string>? Outputs = null,
     string MetricSpace = "linear",
-    string Storage = "container");
+    string Storage = "container",
+    IReadOnlyList<string>? Rounding = null);
 
 /// <summary>The budget: an error bound on <see cref="Metric"/> (AtLeast or AtMost) or a size bound (Bytes or AverageBits).</summary>
 public sealed record ManifestBudget(string Kind, string Metric, double? AtLeast, double? AtMost, long? Bytes, double? AverageBits, string AdditiveModel);
@@ -137,6 +138,7 @@ public sealed record ManifestMetrics(
 /// <summary>One layer: what it is, what it got, and how sensitive it was at each candidate.</summary>
 /// <param name="Activations">The 8-bit quantization of the layer's input activation, one per consumer node; null when activations stay FP32.</param>
 /// <param name="Coverage">Whether the calibration set reaches the layer; null for excluded layers.</param>
+/// <param name="Rounding">How the chosen width's integers were rounded ("nearest" or "compensated").</param>
 public sealed record ManifestLayer(
     string Name,
     string Op,
@@ -153,7 +155,8 @@ public sealed record ManifestLayer(
     bool Pinned,
     IReadOnlyList<ManifestSensitivity> Sensitivity,
     IReadOnlyList<ManifestActivation>? Activations = null,
-    ManifestCoverage? Coverage = null);
+    ManifestCoverage? Coverage = null,
+    string Rounding = "nearest");
 
 /// <summary>Whether the calibration set reaches a layer, judged from its sensitivity trials.</summary>
 /// <param name="Status">"exercised", "barely-exercised" (fewer than 1% of samples changed at every width) or "not-exercised" (no output bit changed at any width).</param>
@@ -170,7 +173,8 @@ public sealed record ManifestActivation(string Consumer, string Tensor, float Sc
 
 /// <summary>A sensitivity trial: the layer alone at <see cref="Bits"/>.</summary>
 /// <param name="AdditiveError">What this choice adds to the additive error model.</param>
-public sealed record ManifestSensitivity(int Bits, long Bytes, double AdditiveError, ManifestMetrics Metrics);
+/// <param name="Rounding">The rounding kept at this width (the measured one with the least additive error).</param>
+public sealed record ManifestSensitivity(int Bits, long Bytes, double AdditiveError, ManifestMetrics Metrics, string Rounding = "nearest");
 
 /// <summary>How the quantized model was written.</summary>
 /// <param name="Format">"qdq": integer weight initializers turned into FP32 by DequantizeLinear or, where the opset lacks it, by Cast/Sub/Mul.</param>

@@ -32,11 +32,13 @@ public static class QdqExporter
     /// gets QuantizeLinear/DequantizeLinear (uint8, per-tensor) on its input activation; that needs opset 13.
     /// Run unoptimised, such a model reproduces the validation trial exactly; with ONNX Runtime's default
     /// optimisations it stays within a relative MSE of 1e-8 of it (measured 9e-15 on the test MLP; 8-bit weights next to quantized activations are stored as uint8, see below).
+    /// Layers set to compensated rounding take their integers from <paramref name="rounder"/>, the trials' own source.
     /// </summary>
     public static ExportedModel Export(
         OnnxModel model,
         IReadOnlyDictionary<string, LayerSetting> assignment,
-        IReadOnlyList<ActivationQuantization>? activations = null)
+        IReadOnlyList<ActivationQuantization>? activations = null,
+        Evaluation.WeightRounder? rounder = null)
     {
         ArgumentNullException.ThrowIfNull(model);
         ArgumentNullException.ThrowIfNull(assignment);
@@ -77,7 +79,9 @@ public static class QdqExporter
             }
             else
             {
-                var q = WeightQuantizer.Quantize(weight, layer.Shape, layer.ChannelAxis, setting);
+                var q = setting.Rounding == RoundingMethod.Nearest
+                    ? WeightQuantizer.Quantize(weight, layer.Shape, layer.ChannelAxis, setting)
+                    : (rounder ?? throw new InvalidOperationException("Compensated rounding needs the search's weight rounder.")).Quantize(layer, setting);
                 if (WeightStorage.IntegerType(setting, model.Opset) == TensorProto.Types.DataType.Int8 && quantizedActivations.Any(a => a.Layer == layer.Name))
                 {
                     // With uint8 activations ONNX Runtime fuses the QDQ pairs into integer kernels. On x86 CPUs

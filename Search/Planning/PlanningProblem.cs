@@ -103,18 +103,23 @@ internal sealed class PlanningProblem
             layer.Name,
             SensitivitySweep.CandidateBits(layer, settings).Select(bits =>
             {
-                var setting = SensitivitySweep.SettingFor(bits, settings);
-                var bytes = sizer.LayerBytes(layer, setting);
-                var error = bits == BitWidths.Float32
-                    ? 0
-                    : judge.ToAdditive(sensitivity[TrialKeys.Sensitivity(layer.Name, setting, activations)], reference);
-                return new PlanningChoice(bits, bytes, error);
+                var bytes = sizer.LayerBytes(layer, SensitivitySweep.SettingFor(bits, settings));
+                if (bits == BitWidths.Float32)
+                {
+                    return new PlanningChoice(bits, bytes, 0);
+                }
+
+                // Same bytes whatever the rounding: keep the measured one with the least error, nearest on a tie.
+                return RoundingChoices.Measured(layer.Name, bits, settings, sensitivity.ContainsKey)
+                    .Select(s => new PlanningChoice(bits, bytes, judge.ToAdditive(sensitivity[TrialKeys.Sensitivity(layer.Name, s, activations)], reference), s.Rounding))
+                    .Aggregate((best, next) => next.Error < best.Error ? next : best);
             }).ToList())).ToList();
         var coverage = samples is not { } count ? [] : searched.Select(layer =>
         {
             var widths = SensitivitySweep.CandidateBits(layer, settings);
             var changed = widths.Where(b => b != BitWidths.Float32)
-                .Select(b => sweep[TrialKeys.Sensitivity(layer.Name, SensitivitySweep.SettingFor(b, settings), activations)].Metrics.SamplesChanged)
+                .Select(b => RoundingChoices.Measured(layer.Name, b, settings, sweep.ContainsKey)
+                    .Max(s => sweep[TrialKeys.Sensitivity(layer.Name, s, activations)].Metrics.SamplesChanged))
                 .ToList();
             return LayerCoverage.Judge(layer.Name, changed, count, widths.Max());
         }).ToList();
@@ -127,8 +132,8 @@ internal sealed class PlanningProblem
         var assignment = new SortedDictionary<string, LayerSetting>(StringComparer.Ordinal);
         for (var i = 0; i < Layers.Count; i++)
         {
-            var bits = Layers[i].Choices[selection.ChoiceIndex[i]].Bits;
-            assignment[Layers[i].Name] = SensitivitySweep.SettingFor(bits, Settings);
+            var choice = Layers[i].Choices[selection.ChoiceIndex[i]];
+            assignment[Layers[i].Name] = SensitivitySweep.SettingFor(choice.Bits, Settings) with { Rounding = choice.Rounding };
         }
 
         return assignment;

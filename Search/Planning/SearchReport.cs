@@ -100,7 +100,8 @@ internal sealed class SearchReport(
                 (settings.Excluded ?? []).Order(StringComparer.Ordinal).ToList(),
                 settings.Outputs is { Count: > 0 } judged ? judged.ToList() : model.Outputs.Select(o => o.Name).ToList(),
                 Wire(settings.MetricSpace),
-                Wire(settings.Storage)),
+                Wire(settings.Storage),
+                RoundingChoices.Asked(settings).Select(r => Wire(r)).ToList()),
             Budget(),
             new ManifestOutcome(decision.Feasible, decision.Message, decision.Rounds.Count, storageNote),
             totals,
@@ -126,13 +127,13 @@ internal sealed class SearchReport(
     /// <summary>One row per (layer, candidate width): its bytes, additive error and measured metrics; columns named as the manifest's fields.</summary>
     public string SensitivityCsv()
     {
-        var csv = new StringBuilder("layer,op,parameters,bits,bytes,additiveError,sqnrDb,relativeMse,top1Agreement,klDivergence,cosineSimilarity,accuracy\n");
+        var csv = new StringBuilder("layer,op,parameters,bits,bytes,additiveError,sqnrDb,relativeMse,top1Agreement,klDivergence,cosineSimilarity,accuracy,rounding\n");
         for (var i = 0; i < problem.Layers.Count; i++)
         {
             var layer = problem.Searched[i];
             foreach (var choice in problem.Candidates[i].Choices.OrderBy(c => c.Bits))
             {
-                var m = SensitivityOf(layer, choice.Bits);
+                var m = SensitivityOf(layer, choice.Bits, choice.Rounding);
                 csv.Append(Csv(layer.Name)).Append(',').Append(layer.Op).Append(',')
                     .Append(layer.ParameterCount.ToString(CultureInfo.InvariantCulture)).Append(',')
                     .Append(choice.Bits.ToString(CultureInfo.InvariantCulture)).Append(',')
@@ -140,7 +141,8 @@ internal sealed class SearchReport(
                     .Append(Number(choice.Error)).Append(',')
                     .Append(Number(m?.SqnrDb)).Append(',').Append(Number(m?.RelativeMse)).Append(',')
                     .Append(Number(m?.Top1Agreement)).Append(',').Append(Number(m?.KlDivergence)).Append(',')
-                    .Append(Number(m?.CosineSimilarity)).Append(',').Append(Number(m?.Accuracy)).Append('\n');
+                    .Append(Number(m?.CosineSimilarity)).Append(',').Append(Number(m?.Accuracy)).Append(',')
+                    .Append(Wire(choice.Rounding)).Append('\n');
             }
         }
 
@@ -191,7 +193,8 @@ internal sealed class SearchReport(
                 c.Bytes,
                 c.Error,
                 // Keeping FP32 is not measured: it is the reference itself (no error, SQNR "Infinity").
-                SensitivityOf(layer, c.Bits) is { } m ? Metrics(m) : Metrics(reference))).ToList();
+                SensitivityOf(layer, c.Bits, c.Rounding) is { } m ? Metrics(m) : Metrics(reference),
+                Wire(c.Rounding))).ToList();
         var granularity = setting is { Granularity: var g } ? g : settings.Granularity;
         return new ManifestLayer(
             layer.Name,
@@ -211,7 +214,8 @@ internal sealed class SearchReport(
             settings.QuantizeActivations && bits is { } integer && BitWidths.IsInteger(integer)
                 ? activations.Where(a => a.Layer == layer.Name).Select(a => new ManifestActivation(a.Consumer, a.Tensor, a.Scale, a.ZeroPoint)).ToList()
                 : null,
-            excluded ? null : Coverage(problem.Coverage.ElementAtOrDefault(index)));
+            excluded ? null : Coverage(problem.Coverage.ElementAtOrDefault(index)),
+            Wire(setting?.Rounding ?? RoundingMethod.Nearest));
     }
 
     private static ManifestCoverage? Coverage(LayerCoverage? coverage) => coverage is null ? null : new ManifestCoverage(
@@ -223,10 +227,10 @@ internal sealed class SearchReport(
     /// <summary>One sentence per layer the calibration set does not (or barely) reach: the search summary's warnings.</summary>
     private IReadOnlyList<string> Warnings() => problem.Coverage.Where(c => c.Flagged).Select(c => c.Reason).ToList();
 
-    private MetricSet? SensitivityOf(WeightLayer layer, int bits) =>
+    private MetricSet? SensitivityOf(WeightLayer layer, int bits, RoundingMethod rounding) =>
         bits == BitWidths.Float32
             ? null
-            : problem.Sensitivity.GetValueOrDefault(TrialKeys.Sensitivity(layer.Name, SensitivitySweep.SettingFor(bits, settings), SensitivitySweep.ActivationsFor(settings)));
+            : problem.Sensitivity.GetValueOrDefault(TrialKeys.Sensitivity(layer.Name, SensitivitySweep.SettingFor(bits, settings) with { Rounding = rounding }, SensitivitySweep.ActivationsFor(settings)));
 
     private ManifestBudget Budget() => settings.Budget switch
     {

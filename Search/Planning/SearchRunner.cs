@@ -43,12 +43,14 @@ public static class SearchRunner
         SearchSettingsValidator.Validate(model, data, settings);
         progress?.Report(new SearchProgress(SearchStage.Reference, 0, 1));
         var options = (sessionOptions ?? new TrialSessionOptions()) with { Activations = SensitivitySweep.ActivationsFor(settings), MetricSpace = settings.MetricSpace };
+        var rounder = RounderFor(model, data, settings, options, cancellationToken);
+        options = options with { Rounder = rounder };
         var raiseCheck = OpsetRaiseCheck.Verify(model, data, options.MaxBatch);
         using var session = TrialSession.Open(model, data, options);
         store.Save(new TrialRecord(TrialKeys.Reference, "reference", null, null, null, session.ReferenceMetrics, session.ForwardPassMilliseconds));
         progress?.Report(new SearchProgress(SearchStage.Reference, 1, 1));
 
-        var trials = SensitivitySweep.Plan(model.Layers, settings);
+        var trials = SensitivitySweep.Plan(model.Layers, settings, rounder.Compensates);
         var sweep = SensitivitySweep.Run(session, trials, store, progress, cancellationToken);
 
         cancellationToken.ThrowIfCancellationRequested();
@@ -67,7 +69,7 @@ public static class SearchRunner
 
         cancellationToken.ThrowIfCancellationRequested();
         progress?.Report(new SearchProgress(SearchStage.Export, 0, 1));
-        var exported = decision.Chosen is { } chosen ? QdqExporter.Export(model, chosen.Assignment, session.Activations) : null;
+        var exported = decision.Chosen is { } chosen ? QdqExporter.Export(model, chosen.Assignment, session.Activations, rounder) : null;
         var heldOut = decision.Chosen is { } kept && holdout is not null ? MeasureHeldOut(model, holdout, options, session, kept) : null;
         var warnings = SearchWarnings.FewSamples(session.ReferenceOutputs, problem.Judge, settings.MetricSpace).ToList();
         if (heldOut is not null && settings.Budget is ErrorBudget bound && decision.Chosen is { } best
@@ -81,6 +83,22 @@ public static class SearchRunner
         var result = report.ToResult();
         progress?.Report(new SearchProgress(SearchStage.Export, 1, 1));
         return result;
+    }
+
+    /// <summary>
+    /// The source of every weight's integers. With compensated rounding asked for, the searched layers' input moments
+    /// are gathered first, in one pass of the FP32 model over the calibration set (bounded like the activation cache).
+    /// </summary>
+    private static WeightRounder RounderFor(OnnxModel model, CalibrationSet data, SearchSettings settings, TrialSessionOptions options, CancellationToken cancellationToken)
+    {
+        if (!RoundingChoices.Asked(settings).Contains(RoundingMethod.Compensated))
+        {
+            return new WeightRounder(model, new Dictionary<string, LayerInputs>(StringComparer.Ordinal));
+        }
+
+        var excluded = (settings.Excluded ?? []).ToHashSet(StringComparer.Ordinal);
+        var searched = model.Layers.Where(l => !excluded.Contains(l.Name)).ToList();
+        return new WeightRounder(model, LayerInputCollector.Collect(model, data, searched, options.MaxBatch, options.MaxCachedActivationBytes, cancellationToken));
     }
 
     /// <summary>

@@ -13,6 +13,7 @@ namespace Bitbudget.Search.Planning;
 /// <param name="MetricSpace">Where SQNR and relative MSE are computed (linear, or logit for probability outputs).</param>
 /// <param name="SampleAxes">Sample axes given outright, by input name (see <see cref="Evaluation.CalibrationSet"/>); recorded in the manifest.</param>
 /// <param name="Storage">How sizes are counted: what the export writes (default) or ideal packed bits.</param>
+/// <param name="Rounding">The roundings measured per layer and width (<see cref="RoundingChoices"/>); null or empty for nearest only.</param>
 public sealed record SearchSettings(
     Budget Budget,
     IReadOnlyList<int> Bits,
@@ -27,7 +28,8 @@ public sealed record SearchSettings(
     IReadOnlyList<string>? Outputs = null,
     Evaluation.MetricSpace MetricSpace = Evaluation.MetricSpace.Linear,
     IReadOnlyDictionary<string, int>? SampleAxes = null,
-    StorageRule Storage = StorageRule.Container)
+    StorageRule Storage = StorageRule.Container,
+    IReadOnlyList<RoundingMethod>? Rounding = null)
 {
     /// <summary>The candidate widths most teams start from when sub-byte widths are packed (common practice).</summary>
     public static IReadOnlyList<int> DefaultBits { get; } = [2, 3, 4, 5, 6, 8];

@@ -12,8 +12,11 @@ namespace Bitbudget.Search.Planning;
 /// </summary>
 public static class SensitivitySweep
 {
-    /// <summary>The trials of a sweep, in the order they run.</summary>
-    public static IReadOnlyList<SweepTrial> Plan(IReadOnlyList<WeightLayer> layers, SearchSettings settings)
+    /// <summary>
+    /// The trials of a sweep, in the order they run: one per layer, width and rounding (<see cref="RoundingChoices.For"/>;
+    /// <paramref name="compensates"/> tells which layers can be rounded with compensation).
+    /// </summary>
+    public static IReadOnlyList<SweepTrial> Plan(IReadOnlyList<WeightLayer> layers, SearchSettings settings, Func<string, bool>? compensates = null)
     {
         var trials = new List<SweepTrial>();
         var excluded = (settings.Excluded ?? []).ToHashSet(StringComparer.Ordinal);
@@ -27,8 +30,11 @@ public static class SensitivitySweep
                     continue;
                 }
 
-                var setting = SettingFor(bits, settings);
-                trials.Add(new SweepTrial(TrialKeys.Sensitivity(layer.Name, setting, ActivationsFor(settings)), layer, setting));
+                foreach (var rounding in RoundingChoices.For(layer.Name, settings, compensates))
+                {
+                    var setting = SettingFor(bits, settings) with { Rounding = rounding };
+                    trials.Add(new SweepTrial(TrialKeys.Sensitivity(layer.Name, setting, ActivationsFor(settings)), layer, setting));
+                }
             }
         }
 

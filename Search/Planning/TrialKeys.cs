@@ -41,15 +41,22 @@ public static class TrialKeys
     private static string Activations(ActivationCalibration? activations) =>
         activations is { } a ? "/activations-" + WireNames.Format(a) : string.Empty;
 
-    /// <summary>A setting as a short stable string in the wire names, e.g. "4b-symmetric-per-channel-min-max".</summary>
+    /// <summary>
+    /// A setting as a short stable string in the wire names, e.g. "4b-symmetric-per-channel-min-max"; a rounding other
+    /// than nearest is appended ("...-compensated"), so nearest keys stay as they were and the two roundings of a width
+    /// are two trials.
+    /// </summary>
     public static string Describe(LayerSetting setting) =>
-        WithPercentile(setting, $"{setting.Bits}b-{WireNames.Format(setting.Scheme)}-{WireNames.Format(setting.Granularity)}-{WireNames.Format(setting.Clip)}");
+        WithRounding(setting, WithPercentile(setting, $"{setting.Bits}b-{WireNames.Format(setting.Scheme)}-{WireNames.Format(setting.Granularity)}-{WireNames.Format(setting.Clip)}"));
 
     private static string HashText(LayerSetting setting) =>
-        WithPercentile(setting, $"{setting.Bits}b-{setting.Scheme}-{setting.Granularity}-{setting.Clip}".ToLowerInvariant());
+        WithRounding(setting, WithPercentile(setting, $"{setting.Bits}b-{setting.Scheme}-{setting.Granularity}-{setting.Clip}".ToLowerInvariant()));
 
     private static string WithPercentile(LayerSetting setting, string text) =>
         setting.Clip == ClipMethod.Percentile
             ? text + "-" + setting.Percentile.ToString("R", System.Globalization.CultureInfo.InvariantCulture)
             : text;
+
+    private static string WithRounding(LayerSetting setting, string text) =>
+        setting.Rounding == RoundingMethod.Nearest ? text : text + "-" + WireNames.Format(setting.Rounding);
 }
