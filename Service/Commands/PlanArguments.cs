@@ -23,6 +23,7 @@ internal sealed record PlanArguments(string Model, string Data, SearchSettings S
         var storage = StorageRule.Container;
         var pins = new Dictionary<string, int>(StringComparer.Ordinal);
         var excluded = new List<string>();
+        List<RoundingMethod>? rounding = null;
         for (var i = 0; i < args.Length; i++)
         {
             var name = args[i];
@@ -48,6 +49,7 @@ internal sealed record PlanArguments(string Model, string Data, SearchSettings S
                         : throw new ArgumentException($"--target-opset takes a standard opset number, e.g. 13 or 21; '{opsetText}' is not one.");
                     break;
                 case "--holdout": holdout = Value(); break;
+                case "--rounding": rounding = Value().Split(',', StringSplitOptions.RemoveEmptyEntries | StringSplitOptions.TrimEntries).Select(r => Enum<RoundingMethod>(name, r)).ToList(); break;
                 case "--metric-space": metricSpace = Enum<Search.Evaluation.MetricSpace>(name, Value()); break;
                 case "--outputs":
                     outputs = Value().Split(',', StringSplitOptions.RemoveEmptyEntries | StringSplitOptions.TrimEntries).ToList();
@@ -92,7 +94,7 @@ internal sealed record PlanArguments(string Model, string Data, SearchSettings S
                 .Select(b => int.TryParse(b, CultureInfo.InvariantCulture, out var v) ? v : throw new ArgumentException($"--bits takes a comma-separated list of widths, e.g. 2,3,4,6,8; '{b}' is not a number."))
                 .ToList();
         var settings = new SearchSettings(
-            BudgetText.Parse(budget), candidates, method, scheme, granularity, clip, activations, pins, excluded, targetOpset, outputs, metricSpace, sampleAxes.Count == 0 ? null : sampleAxes, storage);
+            BudgetText.Parse(budget), candidates, method, scheme, granularity, clip, activations, pins, excluded, targetOpset, outputs, metricSpace, sampleAxes.Count == 0 ? null : sampleAxes, storage, rounding);
         return new PlanArguments(model, data, settings, outDir ?? "plan", holdout);
     }
 

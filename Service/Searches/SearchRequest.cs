@@ -14,6 +14,7 @@ namespace Bitbudget.Service.Searches;
 /// <param name="Outputs">The model outputs the budget judges (default: every output).</param>
 /// <param name="MetricSpace">"linear" (default) or "logit" (SQNR and relative MSE of probability outputs on their logits).</param>
 /// <param name="HoldoutDatasetId">A second uploaded dataset the chosen assignment is checked on.</param>
+/// <param name="Rounding">The roundings measured per layer and width, each width keeping the better: ["nearest"] (default), ["compensated"] or both.</param>
 /// <param name="Storage">"container" (default: sizes are what the written file stores at the model's opset) or "packed" (b-bit weights count b bits, for targets that pack sub-byte widths themselves).</param>
 internal sealed record SearchRequest(
     string? ModelId,
@@ -32,4 +33,5 @@ internal sealed record SearchRequest(
     IReadOnlyList<string>? Outputs = null,
     string? MetricSpace = null,
     string? HoldoutDatasetId = null,
-    string? Storage = null);
+    string? Storage = null,
+    IReadOnlyList<string>? Rounding = null);

@@ -25,6 +25,7 @@ internal static class SearchRequestValidator
         var granularity = Choice(request.Granularity, "per-channel", SearchVocabulary.Granularities.Keys, "granularity", Add);
         var clip = Choice(request.Clip, "min-max", SearchVocabulary.Clips.Keys, "clip", Add);
         var storage = Choice(request.Storage, "container", SearchVocabulary.Storages.Keys, "storage", Add);
+        var rounding = ValidateRounding(request.Rounding, Add);
 
         var layerNames = model.Summary.Layers.Select(l => l.Name).ToHashSet(StringComparer.Ordinal);
         var pin = new SortedDictionary<string, int>(StringComparer.Ordinal);
@@ -110,7 +111,37 @@ internal static class SearchRequestValidator
         }
 
         return new SearchSpec(
-            budget, bits, method!, scheme!, granularity!, clip!, request.Activations ?? false, pin, exclude, request.TargetOpset, sampleAxes, outputs, metricSpace!, holdout?.Id, storage!);
+            budget, bits, method!, scheme!, granularity!, clip!, request.Activations ?? false, pin, exclude, request.TargetOpset, sampleAxes, outputs, metricSpace!, holdout?.Id, storage!, rounding);
+    }
+
+    /// <summary>Lower-case names, nearest first, each once; input accepted in any case.</summary>
+    private static List<string>? ValidateRounding(IReadOnlyList<string>? given, Action<string, string> add)
+    {
+        if (given is null)
+        {
+            return null;
+        }
+
+        var names = new List<string>();
+        foreach (var text in given)
+        {
+            var name = text?.Trim().ToLowerInvariant() ?? string.Empty;
+            if (!SearchVocabulary.Roundings.ContainsKey(name))
+            {
+                add("rounding", $"Unknown rounding '{text}'; use one or both of {string.Join(", ", SearchVocabulary.Roundings.Keys)}.");
+            }
+            else if (!names.Contains(name, StringComparer.Ordinal))
+            {
+                names.Add(name);
+            }
+        }
+
+        if (given.Count == 0)
+        {
+            add("rounding", "rounding must list at least one of nearest, compensated, or be left out for nearest.");
+        }
+
+        return names.OrderBy(n => SearchVocabulary.Roundings[n]).ToList();
     }
 
     private static SortedDictionary<string, int>? ValidateSampleAxes(IReadOnlyDictionary<string, int>? given, ModelRecord model, Action<string, string> add)

@@ -3,6 +3,7 @@ namespace Bitbudget.Service.Searches;
 /// <summary>A validated search request with every default filled in, as the store keeps it and the API echoes it.</summary>
 /// <param name="Bits">The candidate widths as given; null for the widths the storage tells apart at the model's opset (the manifest lists them).</param>
 /// <param name="Storage">"container" (sizes as the export writes them) or "packed" (ideal packed bits).</param>
+/// <param name="Rounding">The roundings measured ("nearest", "compensated"); null (stored before the option existed) means nearest.</param>
 internal sealed record SearchSpec(
     BudgetSpec Budget,
     IReadOnlyList<int>? Bits,
@@ -18,4 +19,5 @@ internal sealed record SearchSpec(
     IReadOnlyList<string>? Outputs = null,
     string MetricSpace = "linear",
     string? HoldoutDatasetId = null,
-    string Storage = "container");
+    string Storage = "container",
+    IReadOnlyList<string>? Rounding = null);

@@ -42,6 +42,12 @@ internal static class SearchVocabulary
         ["packed"] = StorageRule.Packed,
     };
 
+    public static IReadOnlyDictionary<string, RoundingMethod> Roundings { get; } = new Dictionary<string, RoundingMethod>(StringComparer.Ordinal)
+    {
+        ["nearest"] = RoundingMethod.Nearest,
+        ["compensated"] = RoundingMethod.Compensated,
+    };
+
     public static IReadOnlyDictionary<string, ClipMethod> Clips { get; } = new Dictionary<string, ClipMethod>(StringComparer.Ordinal)
     {
         ["min-max"] = ClipMethod.MinMax,
@@ -83,6 +89,7 @@ internal static class SearchVocabulary
             spec.Outputs,
             MetricSpaces[spec.MetricSpace],
             spec.SampleAxes,
-            Storages[spec.Storage]);
+            Storages[spec.Storage],
+            spec.Rounding?.Select(r => Roundings[r]).ToList());
     }
 }

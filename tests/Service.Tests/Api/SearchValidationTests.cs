@@ -37,6 +37,8 @@ public sealed class SearchValidationTests(ServiceFactory factory) : IClassFixtur
     [InlineData("\"granularity\":\"per-group\"", "granularity", "per-channel, per-tensor")]
     [InlineData("\"clip\":\"entropy\"", "clip", "min-max")]
     [InlineData("\"storage\":\"bits\"", "storage", "container, packed")]
+    [InlineData("\"rounding\":[\"stochastic\"]", "rounding", "Unknown rounding 'stochastic'; use one or both of nearest, compensated")]
+    [InlineData("\"rounding\":[]", "rounding", "at least one of nearest, compensated")]
     [InlineData("\"pin\":{\"conv9\":4}", "pin.conv9", "no layer 'conv9'")]
     [InlineData("\"pin\":{\"fc\":12}", "pin.fc", "Bit width 12")]
     [InlineData("\"exclude\":[\"nope\"]", "exclude", "no layer 'nope'")]

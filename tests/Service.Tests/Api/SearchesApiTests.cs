@@ -57,6 +57,20 @@ public sealed class SearchesApiTests(ServiceFactory factory) : IClassFixture<Ser
     }
 
     [Fact]
+    public async Task RoundingIsAcceptedInAnyCaseAndEchoedNearestFirst()
+    {
+        var (modelId, datasetId) = await client.UploadAsync("rounding");
+
+        var accepted = await client.PostAsJsonAsync("/v1/searches", new { modelId, datasetId, budget = new { metric = "sqnr", atLeast = 20 }, bits = new[] { 4, 8 }, rounding = new[] { "Compensated", "nearest" } });
+
+        Assert.Equal(HttpStatusCode.Accepted, accepted.StatusCode);
+        var id = (await accepted.JsonAsync()).GetProperty("id").GetString()!;
+        var done = await client.WaitForStateAsync(id, "succeeded", "failed");
+        Assert.Equal("succeeded", done.GetProperty("state").GetString());
+        Assert.Equal(["nearest", "compensated"], done.GetProperty("settings").GetProperty("rounding").EnumerateArray().Select(r => r.GetString()));
+    }
+
+    [Fact]
     public async Task ManifestCarriesAnETagAndIfNoneMatchGivesNotModified()
     {
         var id = await RunToSuccessAsync("etag");

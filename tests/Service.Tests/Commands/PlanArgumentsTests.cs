@@ -14,6 +14,19 @@ public sealed class PlanArgumentsTests
     }
 
     [Fact]
+    public void RoundingListReachesTheSettingsAndAnUnknownOneIsRefused()
+    {
+        string[] common = ["--model", "m.onnx", "--data", "d.npz", "--budget", "sqnr>=30"];
+
+        Assert.Equal(
+            [Search.Quantization.RoundingMethod.Compensated, Search.Quantization.RoundingMethod.Nearest],
+            PlanArguments.Parse([.. common, "--rounding", "Compensated,nearest"]).Settings.Rounding);
+        Assert.Equal([Search.Quantization.RoundingMethod.Nearest], Search.Planning.RoundingChoices.Asked(PlanArguments.Parse(common).Settings));
+        var error = Assert.Throws<ArgumentException>(() => PlanArguments.Parse([.. common, "--rounding", "stochastic"]));
+        Assert.Contains("nearest, compensated", error.Message, StringComparison.Ordinal);
+    }
+
+    [Fact]
     public void TargetOpsetIsCarriedIntoTheSettings()
     {
         string[] common = ["--model", "m.onnx", "--data", "d.npz", "--budget", "sqnr>=30"];
