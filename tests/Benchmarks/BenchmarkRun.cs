@@ -27,6 +27,24 @@ internal static class BenchmarkRun
         var repeat = int.Parse(Option(args, "--repeat") ?? "7", CultureInfo.InvariantCulture);
 
         Console.WriteLine($"Bitbudget benchmark  ({Environment.ProcessorCount} cores, {RuntimeInfo()})");
+        if (args.Contains("--rounding"))
+        {
+            // Nearest against compensated rounding on whole searches (RoundingBenchmark): the demo, the OCR classifier and recogniser.
+            if (demo is not null)
+            {
+                var hive = OnnxModel.LoadFile(Path.Combine(demo, "hive-monitor.onnx"));
+                RoundingBenchmark.Run(hive, CalibrationSet.Create(DatasetReader.Read(File.ReadAllBytes(Path.Combine(demo, "calibration.npz"))), hive.Inputs));
+            }
+
+            foreach (var file in new[] { "ch_ppocr_mobile_v2.0_cls_infer.onnx", "ch_PP-OCRv4_rec_infer.onnx" }.Select(f => Path.Combine(ocr, f)).Where(File.Exists))
+            {
+                var model = OnnxModel.LoadFile(file);
+                RoundingBenchmark.Run(model, SyntheticData(model, samples));
+            }
+
+            return 0;
+        }
+
         var classifier = Path.Combine(ocr, "ch_ppocr_mobile_v2.0_cls_infer.onnx");
         if (File.Exists(classifier))
         {
