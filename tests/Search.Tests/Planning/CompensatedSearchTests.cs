@@ -75,14 +75,14 @@ public sealed class CompensatedSearchTests(ITestOutputHelper output)
         {
             var layer = model.Layers.Single(l => l.Name == entry.Name);
             var setting = new LayerSetting(entry.Bits!.Value, Rounding: WireNames.TryParse<RoundingMethod>(entry.Rounding, out var r) ? r : throw new InvalidOperationException());
-            var stored = proto.Graph.Initializer.Single(t => t.Name == layer.WeightName + "_quantized");
+            var stored = proto.Graph.Initializer.Single(t => t.Name == DerivedNames.Of(layer.WeightName, "levels"));
             var levels = stored.RawData.Select(b => (int)(sbyte)b).ToArray();
             Assert.Equal(rounder.Quantize(layer, setting).Levels, levels);
 
             // And the trial fed ONNX Runtime exactly those integers times their scales.
-            var scales = proto.Graph.Initializer.Single(t => t.Name == layer.WeightName + "_scale").FloatData.ToArray();
+            var scales = proto.Graph.Initializer.Single(t => t.Name == DerivedNames.Of(layer.WeightName, "scale")).FloatData.ToArray();
             var fromFile = new float[levels.Length];
-            WeightQuantizer.Dequantize(new QuantizedWeight(setting.Bits, setting.Scheme, layer.ChannelAxis, scales.Length == 0 ? ReadRawFloats(proto, layer.WeightName + "_scale") : scales, new int[layer.Channels], levels), layer.Shape, fromFile);
+            WeightQuantizer.Dequantize(new QuantizedWeight(setting.Bits, setting.Scheme, layer.ChannelAxis, scales.Length == 0 ? ReadRawFloats(proto, DerivedNames.Of(layer.WeightName, "scale")) : scales, new int[layer.Channels], levels), layer.Shape, fromFile);
             Assert.Equal(session.Quantized(layer, setting), fromFile);
             checkedLayers += entry.Rounding == "compensated" ? 1 : 0;
         }
