@@ -121,6 +121,7 @@ internal static class ServiceRegistration
     {
         app.UseBitbudgetProblems();
         app.UseRequestSizeGate();
+        app.UseBitbudgetPage();
         app.UseAuthentication();
         app.UseAuthorization();
         app.UseStoreWriteGate();

@@ -25,6 +25,9 @@ internal sealed class ServiceProcess : IDisposable
 
     public HttpClient Client { get; }
 
+    /// <summary>Where the service listens, e.g. http://127.0.0.1:40123.</summary>
+    public Uri BaseAddress => Client.BaseAddress!;
+
     /// <summary>Starts the binary and waits until /healthz answers.</summary>
     public static async Task<ServiceProcess> StartAsync(string dataFolder)
     {
