@@ -1,5 +1,11 @@
 # Bitbudget service: build with the SDK, run on the ASP.NET runtime as a non-root user.
 # docker build -t bitbudget . && docker run -p 127.0.0.1:5080:8080 -v bitbudget-data:/data bitbudget
+# The page's charting library, exactly as Service/Web/package-lock.json pins it.
+FROM node:20-bookworm-slim AS web
+WORKDIR /web
+COPY Service/Web/package.json Service/Web/package-lock.json ./
+RUN npm ci --no-audit --no-fund && touch node_modules/.installed-from-lock
+
 FROM mcr.microsoft.com/dotnet/sdk:10.0 AS build
 WORKDIR /src
 COPY global.json Directory.Build.props Directory.Packages.props Search.sln ./
@@ -8,6 +14,7 @@ COPY Service/Service.csproj Service/
 RUN dotnet restore Service/Service.csproj
 COPY Search/ Search/
 COPY Service/ Service/
+COPY --from=web /web/node_modules Service/Web/node_modules
 RUN dotnet publish Service/Service.csproj -c Release -o /app --no-restore
 
 FROM mcr.microsoft.com/dotnet/aspnet:10.0
