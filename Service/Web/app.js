@@ -410,7 +410,7 @@ function drawFrontier(manifest, frontier, validations, metric) {
   if (totals) {
     const predicted = num(totals.predicted);
     if (Number.isFinite(predicted)) series.push({ name: 'chosen (predicted)', type: 'scatter', data: [[totals.bytes, predicted]], symbol: 'diamond', symbolSize: 16, color: SERIES.chosen, z: 4 });
-    const measured = num(totals.budgetValue);
+    const measured = num(totals.measured);
     if (Number.isFinite(measured)) series.push({ name: 'chosen (measured)', type: 'scatter', data: [[totals.modelFileBytes ?? totals.bytes, measured]], symbol: 'triangle', symbolSize: 14, color: SERIES.measured, z: 5 });
     for (const [bits, color] of [[4, SERIES.uniform4], [8, SERIES.uniform8]]) {
       const point = uniformPoint(manifest, bits, metric);

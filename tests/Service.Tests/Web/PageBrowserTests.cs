@@ -98,7 +98,7 @@ public sealed class PageBrowserTests(BrowserService browser, DemoFolderFixture d
         var point = Assert.Single(series["chosen (predicted)"].GetProperty("data").EnumerateArray());
         Assert.Equal(totals.GetProperty("bytes").GetInt64(), point[0].GetInt64());
         Assert.Equal(totals.GetProperty("predicted").GetDouble(), point[1].GetDouble(), 9);
-        Assert.Equal(totals.GetProperty("budgetValue").GetDouble(), series["chosen (measured)"].GetProperty("data")[0][1].GetDouble(), 9);
+        Assert.Equal(totals.GetProperty("measured").GetDouble(), series["chosen (measured)"].GetProperty("data")[0][1].GetDouble(), 9);
         Assert.True(series.ContainsKey("uniform 4-bit") && series.ContainsKey("uniform 8-bit"), string.Join(", ", series.Keys));
         var rounds = series["validation rounds"].GetProperty("markLine").GetProperty("data").EnumerateArray().Count(d => d.GetProperty("name").GetString()!.StartsWith("validation", StringComparison.Ordinal));
         Assert.Equal(manifest.GetProperty("outcome").GetProperty("validationRounds").GetInt32(), rounds);
