@@ -40,43 +40,8 @@ internal static class ActivationQdq
         {
             var index = IndexOf(graph, activation.Consumer);
             var consumer = graph.Node[index];
-            if (consumer.Input.Count == 0 || consumer.Input[0] != activation.Tensor)
-            {
-                throw new InvalidOperationException($"Node '{activation.Consumer}' does not read '{activation.Tensor}' as its input 0.");
-            }
-
-            var stem = activation.Consumer + "/activation";
-            var scale = Unique(names, DerivedNames.Of(stem, "scale"));
-            var zeroPoint = Unique(names, DerivedNames.Of(stem, "zero-point"));
-            var quantized = Unique(names, DerivedNames.Of(stem, "levels"));
-            var dequantized = Unique(names, DerivedNames.Of(stem, "dequantized"));
-            var scaleTensor = new TensorProto { Name = scale, DataType = (int)TensorProto.Types.DataType.Float };
-            scaleTensor.FloatData.Add(activation.Scale);
-            graph.Initializer.Add(scaleTensor);
-            graph.Initializer.Add(new TensorProto
-            {
-                Name = zeroPoint,
-                DataType = (int)TensorProto.Types.DataType.Uint8,
-                RawData = ByteString.CopyFrom((byte)activation.ZeroPoint),
-            });
-
-            var nodes = new List<NodeProto>
-            {
-                new() { Name = stem + "/quantize", OpType = "QuantizeLinear", Input = { activation.Tensor, scale, zeroPoint }, Output = { quantized } },
-                new() { Name = stem + "/dequantize", OpType = "DequantizeLinear", Input = { quantized, scale, zeroPoint }, Output = { dequantized } },
-            };
-            var read = dequantized;
-            if (switched)
-            {
-                read = Unique(names, DerivedNames.Of(stem, "switched"));
-                nodes.Add(new NodeProto
-                {
-                    Name = stem + "/switch",
-                    OpType = "Where",
-                    Input = { SwitchName(activation.Layer), dequantized, activation.Tensor },
-                    Output = { read },
-                });
-            }
+            var (initializers, nodes, read) = Build(activation, consumer, names, switched);
+            graph.Initializer.AddRange(initializers);
 
             // In front of the consumer: everything x depends on is already before it (topological order).
             for (var i = nodes.Count - 1; i >= 0; i--)
@@ -86,6 +51,64 @@ internal static class ActivationQdq
 
             consumer.Input[0] = read;
         }
+    }
+
+    /// <summary>
+    /// Bytes the export adds to <paramref name="graph"/> for one activation: its scale and zero point, its
+    /// QuantizeLinear and DequantizeLinear, and the consumer's longer input name. Counted from the very
+    /// messages <see cref="Insert"/> writes, so the file-size model is exact here too (but for a name that
+    /// collides with one already in the graph and gets a numeric suffix: a few bytes).
+    /// </summary>
+    public static long FileBytes(GraphProto graph, ActivationQuantization activation)
+    {
+        var consumer = graph.Node[IndexOf(graph, activation.Consumer)];
+        var (initializers, nodes, read) = Build(activation, consumer, [], switched: false);
+        var renamed = consumer.Clone();
+        renamed.Input[0] = read;
+        return initializers.Sum(WeightStorage.EntryBytes) + nodes.Sum(WeightStorage.EntryBytes)
+            + WeightStorage.EntryBytes(renamed) - WeightStorage.EntryBytes(consumer);
+    }
+
+    private static (List<TensorProto> Initializers, List<NodeProto> Nodes, string Read) Build(
+        ActivationQuantization activation, NodeProto consumer, HashSet<string> names, bool switched)
+    {
+        if (consumer.Input.Count == 0 || consumer.Input[0] != activation.Tensor)
+        {
+            throw new InvalidOperationException($"Node '{activation.Consumer}' does not read '{activation.Tensor}' as its input 0.");
+        }
+
+        var stem = activation.Consumer + "/activation";
+        var scale = Unique(names, DerivedNames.Of(stem, "scale"));
+        var zeroPoint = Unique(names, DerivedNames.Of(stem, "zero-point"));
+        var quantized = Unique(names, DerivedNames.Of(stem, "levels"));
+        var dequantized = Unique(names, DerivedNames.Of(stem, "dequantized"));
+        var scaleTensor = new TensorProto { Name = scale, DataType = (int)TensorProto.Types.DataType.Float };
+        scaleTensor.FloatData.Add(activation.Scale);
+        var initializers = new List<TensorProto>
+        {
+            scaleTensor,
+            new() { Name = zeroPoint, DataType = (int)TensorProto.Types.DataType.Uint8, RawData = ByteString.CopyFrom((byte)activation.ZeroPoint) },
+        };
+
+        var nodes = new List<NodeProto>
+        {
+            new() { Name = stem + "/quantize", OpType = "QuantizeLinear", Input = { activation.Tensor, scale, zeroPoint }, Output = { quantized } },
+            new() { Name = stem + "/dequantize", OpType = "DequantizeLinear", Input = { quantized, scale, zeroPoint }, Output = { dequantized } },
+        };
+        var read = dequantized;
+        if (switched)
+        {
+            read = Unique(names, DerivedNames.Of(stem, "switched"));
+            nodes.Add(new NodeProto
+            {
+                Name = stem + "/switch",
+                OpType = "Where",
+                Input = { SwitchName(activation.Layer), dequantized, activation.Tensor },
+                Output = { read },
+            });
+        }
+
+        return (initializers, nodes, read);
     }
 
     private static int IndexOf(GraphProto graph, string node)

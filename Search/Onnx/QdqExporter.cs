@@ -82,12 +82,8 @@ public static class QdqExporter
                 var q = setting.Rounding == RoundingMethod.Nearest
                     ? WeightQuantizer.Quantize(weight, layer.Shape, layer.ChannelAxis, setting)
                     : (rounder ?? throw new InvalidOperationException("Compensated rounding needs the search's weight rounder.")).Quantize(layer, setting);
-                if (WeightStorage.IntegerType(setting, model.Opset) == TensorProto.Types.DataType.Int8 && quantizedActivations.Any(a => a.Layer == layer.Name))
+                if (WeightStorage.StoresUnsigned(setting, model.Opset, quantizedActivations.Any(a => a.Layer == layer.Name)))
                 {
-                    // With uint8 activations ONNX Runtime fuses the QDQ pairs into integer kernels. On x86 CPUs
-                    // without VNNI its uint8 x int8 kernel sums pairs of products in 16 bits and saturates
-                    // (measured: relative MSE 1.05e-3 against the trial on an AVX2-only EPYC); its uint8 x uint8
-                    // kernel widens first and matches the trial to 1e-14. Same values, unsigned storage.
                     q = q.ShiftedToUnsigned();
                 }
 

@@ -55,7 +55,7 @@ public static class SearchRunner
 
         cancellationToken.ThrowIfCancellationRequested();
         progress?.Report(new SearchProgress(SearchStage.Search, 0, 1));
-        var problem = PlanningProblem.Build(model, settings, session.ReferenceMetrics, sweep, new ModelSizer(model, settings.Storage), data.SampleCount);
+        var problem = PlanningProblem.Build(model, settings, session.ReferenceMetrics, sweep, new ModelSizer(model, settings.Storage, activations: session.Activations), data.SampleCount);
         var frontier = KnapsackSolver.Frontier(problem.Layers);
         progress?.Report(new SearchProgress(SearchStage.Search, 1, 1));
 

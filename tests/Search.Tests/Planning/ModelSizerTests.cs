@@ -1,3 +1,4 @@
+using Bitbudget.Search.Evaluation;
 using Bitbudget.Search.Onnx;
 using Bitbudget.Search.Planning;
 using Bitbudget.Search.Quantization;
@@ -67,6 +68,34 @@ public sealed class ModelSizerTests
         Assert.Equal(model.Float32FileBytes, QdqExporter.Export(model, new Dictionary<string, LayerSetting>()).FileBytes);
     }
 
+    [Theory]
+    [InlineData(13)]
+    [InlineData(21)]
+    public void WithQuantizedActivationsTheQdqPairsAndTheUnsignedZeroPointsAreCountedToo(long opset)
+    {
+        // With activations on, each integer layer also carries its input's QuantizeLinear/DequantizeLinear pair,
+        // and an 8-bit symmetric weight beside it is stored as uint8 with a zero point per channel.
+        var model = SmallModels.Mlp(opset);
+        using var session = TrialSession.Open(model, SmallModels.MlpData(model), new TrialSessionOptions(SuffixRuns: false, Activations: ActivationCalibration.MinMax));
+        var sizer = new ModelSizer(model, StorageRule.Container, activations: session.Activations);
+        var plain = new ModelSizer(model, StorageRule.Container);
+        foreach (var (first, second, third) in new[] { (8, 4, 32), (3, 8, 16), (8, 8, 8) })
+        {
+            var assignment = new Dictionary<string, LayerSetting>
+            {
+                [model.Layers[0].Name] = new LayerSetting(first),
+                [model.Layers[1].Name] = new LayerSetting(second, QuantizationScheme.Asymmetric),
+                [model.Layers[2].Name] = new LayerSetting(third),
+            };
+            AssertPredicted(model, sizer, assignment, session.Activations);
+        }
+
+        // Not a free pass: the count without the activations misses the QDQ pairs of the quantized layers.
+        var eight = new LayerSetting(8);
+        Assert.True(sizer.LayerBytes(model.Layers[0], eight) > plain.LayerBytes(model.Layers[0], eight) + 40);
+        Assert.Equal(plain.LayerBytes(model.Layers[0], new LayerSetting(16)), sizer.LayerBytes(model.Layers[0], new LayerSetting(16)));
+    }
+
     [Fact]
     public void OcrClassifierAtOpset9IsPredictedWithinOnePercentAtEveryWidthAndWrittenInOneBytePerWeight()
     {
@@ -110,10 +139,10 @@ public sealed class ModelSizerTests
         Assert.Equal(container.LayerBytes(layer, new LayerSetting(16)), packed.LayerBytes(layer, new LayerSetting(16)));
     }
 
-    private static void AssertPredicted(OnnxModel model, ModelSizer sizer, IReadOnlyDictionary<string, LayerSetting> assignment)
+    private static void AssertPredicted(OnnxModel model, ModelSizer sizer, IReadOnlyDictionary<string, LayerSetting> assignment, IReadOnlyList<ActivationQuantization>? activations = null)
     {
         var predicted = sizer.OtherBytes + model.Layers.Sum(l => sizer.LayerBytes(l, assignment.GetValueOrDefault(l.Name) ?? LayerSetting.KeepFloat32));
-        var written = QdqExporter.Export(model, assignment).FileBytes;
+        var written = QdqExporter.Export(model, assignment, activations).FileBytes;
 
         // The issue's bound is 1% or 2 KiB; the count is exact but for the graph's length prefix (a varint, at most a few bytes).
         Assert.True(Math.Abs(predicted - written) <= 4, $"{string.Join(",", assignment.Values.Select(s => s.Bits).Distinct())} bits: predicted {predicted} B, written {written} B");

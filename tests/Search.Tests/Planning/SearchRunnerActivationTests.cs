@@ -41,6 +41,11 @@ public sealed class SearchRunnerActivationTests
 
         var exported = SmallModels.Parse(result.QuantizedModel!);
         Assert.Equal(integerLayers.Count, exported.Graph.Node.Count(n => n.OpType == "QuantizeLinear"));
+
+        // The size the search planned with is the written file's, activation QDQ pairs included (within the
+        // graph's length prefix).
+        Assert.Equal(result.QuantizedModel!.Length, manifest.Totals!.ModelFileBytes);
+        Assert.InRange(manifest.Totals.Bytes, manifest.Totals.ModelFileBytes!.Value - 4, manifest.Totals.ModelFileBytes.Value + 4);
         Assert.All(store.LoadAll().Keys.Where(k => k != TrialKeys.Reference), k => Assert.EndsWith("/activations-min-max", k));
     }
 
