@@ -1,5 +1,6 @@
 using System.Diagnostics;
 using Bitbudget.Search.Evaluation;
+using Bitbudget.Search.Quantization;
 
 namespace Bitbudget.Search.Planning;
 
@@ -32,7 +33,7 @@ internal sealed class AssignmentValidator(
         {
             var got = problem.Judge.Value(highest.Measured, reference);
             var top = problem.Settings.Bits.Max();
-            var message = $"Infeasible: {Describe(top)} everywhere gives {MetricValues.Format(metric, got)}; the budget asks for {(AdditiveError.IsLowerBound(metric) ? "at least" : "at most")} {MetricValues.Format(metric, budget.Limit)}. Add a higher candidate bit width, exclude the most sensitive layers, or relax the budget.";
+            var message = $"Infeasible: {BitWidths.Describe(top)} everywhere gives {MetricValues.Format(metric, got)}; the budget asks for {(AdditiveError.IsLowerBound(metric) ? "at least" : "at most")} {MetricValues.Format(metric, budget.Limit)}. Add a higher candidate bit width, exclude the most sensitive layers, or relax the budget.";
             return new SearchDecision(false, message, null, _rounds, highest.PredictedAdditive);
         }
 
@@ -149,13 +150,6 @@ internal sealed class AssignmentValidator(
         _rounds.Add(measurement);
         return measurement;
     }
-
-    private static string Describe(int bits) => bits switch
-    {
-        32 => "FP32",
-        16 => "FP16",
-        _ => $"{bits} bits",
-    };
 
     internal static string FormatBytes(long bytes) => bytes switch
     {

@@ -62,11 +62,5 @@ public sealed record LayerCoverage(string Layer, CoverageStatus Status, int? Sam
         return new LayerCoverage(layer, status, most, samples, status == CoverageStatus.Exercised ? null : keptBits);
     }
 
-    private static string Bits(int? bits) => bits switch
-    {
-        BitWidths.Float32 => "FP32",
-        BitWidths.Float16 => "FP16",
-        { } b => b.ToString(CultureInfo.InvariantCulture) + " bits",
-        null => "its width",
-    };
+    private static string Bits(int? bits) => bits is { } b ? BitWidths.Describe(b) : "its width";
 }

@@ -9,7 +9,9 @@ namespace Bitbudget.Search.Planning;
 /// the bytes they take in the written file (<see cref="ModelSizer"/>) and additive error (from its
 /// sensitivity trial). Excluded layers stay FP32 and, with the rest of the file, only add bytes. A layer the
 /// calibration set does not reach (<see cref="LayerCoverage"/>) is planned with its highest candidate only,
-/// while its other measured candidates stay in the report.
+/// while its other measured candidates stay in the report. A candidate whose trial made the outputs non-finite
+/// (NaN or infinity: FP16 overflowing on a weight beyond +-65504, for one) is no choice at all: it stays in the
+/// report and in <see cref="NonFiniteChoices"/>, but the solvers never see it.
 /// </summary>
 internal sealed class PlanningProblem
 {
@@ -26,9 +28,19 @@ internal sealed class PlanningProblem
         Candidates = candidates;
         Coverage = coverage;
         var flagged = coverage.Where(c => c.Flagged).ToDictionary(c => c.Layer, c => c.KeptBits, StringComparer.Ordinal);
+        NonFiniteChoices = candidates.SelectMany(l => l.Choices.Where(c => !double.IsFinite(c.Error)).Select(c => (l.Name, c.Bits))).ToList();
         var layers = candidates.Select(l => flagged.TryGetValue(l.Name, out var kept)
             ? l with { Choices = l.Choices.Where(c => c.Bits == kept).ToList() }
-            : l).ToList();
+            : l)
+            .Select(l => l with { Choices = l.Choices.Where(c => double.IsFinite(c.Error)).ToList() })
+            .ToList();
+        if (layers.FirstOrDefault(l => l.Choices.Count == 0) is { } stuck)
+        {
+            throw new EngineException(
+                "trial-non-finite",
+                $"Every candidate width left for layer '{stuck.Name}' makes the model's outputs non-finite (NaN or infinity) on the calibration set; add 32 (keep FP32) to the candidate widths, pin the layer to a width that works, or exclude it.");
+        }
+
         Settings = settings;
         Judge = judge;
         Searched = searched;
@@ -39,6 +51,9 @@ internal sealed class PlanningProblem
         ExcludedBytes = excluded.Sum(l => sizer.LayerBytes(l, LayerSetting.KeepFloat32));
         TotalParameters = searched.Sum(l => l.ParameterCount) + excluded.Sum(l => l.ParameterCount);
     }
+
+    /// <summary>Measured candidates (layer, bits) that made the outputs non-finite and are therefore not offered.</summary>
+    public IReadOnlyList<(string Layer, int Bits)> NonFiniteChoices { get; }
 
     /// <summary>How bytes are counted.</summary>
     public ModelSizer Sizer { get; }

@@ -1,5 +1,6 @@
 using System.Globalization;
 using Bitbudget.Search.Evaluation;
+using Bitbudget.Search.Quantization;
 
 namespace Bitbudget.Search.Planning;
 
@@ -31,6 +32,12 @@ internal static class SearchWarnings
             }
         }
     }
+
+    /// <summary>One warning per layer with candidate widths that made the outputs non-finite, which the search did not offer.</summary>
+    public static IEnumerable<string> NonFiniteChoices(IReadOnlyList<(string Layer, int Bits)> choices) =>
+        choices.GroupBy(c => c.Layer, StringComparer.Ordinal).Select(g =>
+            $"Layer '{g.Key}' at {string.Join(", ", g.Select(c => BitWidths.Describe(c.Bits)))} made the model's outputs non-finite (NaN or infinity) on the calibration set, so the search did not offer that width for it" +
+            (g.Any(c => c.Bits == BitWidths.Float16) ? " (FP16 overflows on weights or activations beyond +-65504)." : "."));
 
     /// <summary>A warning when the held-out figure misses the error budget, with both figures side by side.</summary>
     public static string? HeldOutMisses(HeldOutCheck check, ErrorBudget budget, OutputJudge judge, double calibrationValue)

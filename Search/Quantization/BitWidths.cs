@@ -23,4 +23,12 @@ public static class BitWidths
 
     /// <summary>True for every width the engine accepts.</summary>
     public static bool IsValid(int bits) => IsInteger(bits) || bits is Float16 or Float32;
+
+    /// <summary>A width in words for messages: "FP32", "FP16", "4 bits".</summary>
+    public static string Describe(int bits) => bits switch
+    {
+        Float32 => "FP32",
+        Float16 => "FP16",
+        _ => bits.ToString(System.Globalization.CultureInfo.InvariantCulture) + " bits",
+    };
 }

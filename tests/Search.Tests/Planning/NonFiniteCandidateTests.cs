@@ -1,0 +1,70 @@
+using Bitbudget.Search.Evaluation;
+using Bitbudget.Search.Manifest;
+using Bitbudget.Search.Onnx;
+using Bitbudget.Search.Planning;
+using Bitbudget.Search.Tests.Support;
+
+namespace Bitbudget.Search.Tests.Planning;
+
+/// <summary>
+/// A candidate that breaks the model is no choice. Seen on the real OCR detector: a folded convolution at FP16
+/// made the outputs non-finite, the additive error came out infinite, and the whole plan stopped with
+/// "invalid-choice-cost". IEEE 754 half precision tops out at 65504, so an FP32 weight of 1e5 becomes infinity.
+/// </summary>
+public sealed class NonFiniteCandidateTests
+{
+    [Fact]
+    public void AWidthThatMakesTheOutputsNonFiniteIsNotOfferedAndTheSearchSaysSo()
+    {
+        var weights = GraphBuilder.RandomValues(3, 16, 0.5f);
+        weights[5] = 1e5f;
+        var model = OnnxModel.Load(
+            new GraphBuilder()
+                .Opset(13)
+                .Input("x", -1, 16)
+                .Initializer("w1", [16, 1], weights)
+                .Initializer("w2", [1, 10], GraphBuilder.RandomValues(4, 10, 0.5f))
+                .Node("MatMul", ["x", "w1"], ["h"], "fc1")
+                .Node("MatMul", ["h", "w2"], ["y"], "fc2")
+                .Output("y", -1, 10)
+                .ToBytes(),
+            "overflow");
+        var data = SmallModels.MlpData(model); // labels in [0, 10), as y has 10 classes
+
+        var result = SearchRunner.Run(model, data, new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 20), [8, 16]), new InMemoryTrialStore(), null, CancellationToken.None);
+
+        Assert.True(result.Feasible, result.Message);
+        var manifest = ManifestJson.Deserialize(result.ManifestJson);
+        var fc1 = manifest.Layers.Single(l => l.Name == "fc1");
+        Assert.Equal(8, fc1.Bits);
+
+        // Its FP16 trial is still reported as measured, non-finite figures included (written as "NaN"/"-Infinity").
+        var half = fc1.Sensitivity.Single(s => s.Bits == 16);
+        Assert.False(double.IsFinite(half.AdditiveError));
+        Assert.Contains(result.Warnings!, w => w.StartsWith("Layer 'fc1' at FP16 made the model's outputs non-finite", StringComparison.Ordinal));
+        Assert.DoesNotContain(result.Warnings!, w => w.Contains("'fc2'", StringComparison.Ordinal));
+    }
+
+    [Fact]
+    public void WhenNoWidthOfALayerWorksTheSearchSaysWhatToDo()
+    {
+        var weights = GraphBuilder.RandomValues(3, 16, 0.5f);
+        weights[5] = 1e5f;
+        var model = OnnxModel.Load(
+            new GraphBuilder()
+                .Opset(13)
+                .Input("x", -1, 16)
+                .Initializer("w1", [16, 10], [.. Enumerable.Repeat(weights, 10).SelectMany(w => w)])
+                .Node("MatMul", ["x", "w1"], ["y"], "fc1")
+                .Output("y", -1, 10)
+                .ToBytes(),
+            "overflow");
+
+        var error = Assert.Throws<EngineException>(() => SearchRunner.Run(
+            model, SmallModels.MlpData(model), new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 20), [16]), new InMemoryTrialStore(), null, CancellationToken.None));
+
+        Assert.Equal("trial-non-finite", error.Code);
+        Assert.Contains("'fc1'", error.Message, StringComparison.Ordinal);
+        Assert.Contains("add 32", error.Message, StringComparison.Ordinal);
+    }
+}
