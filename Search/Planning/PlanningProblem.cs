@@ -11,7 +11,8 @@ namespace Bitbudget.Search.Planning;
 /// calibration set does not reach (<see cref="LayerCoverage"/>) is planned with its highest candidate only,
 /// while its other measured candidates stay in the report. A candidate whose trial made the outputs non-finite
 /// (NaN or infinity: FP16 overflowing on a weight beyond +-65504, for one) is no choice at all: it stays in the
-/// report and in <see cref="NonFiniteChoices"/>, but the solvers never see it.
+/// report and in <see cref="NonFiniteChoices"/>, but the solvers never see it. (An infinite error also comes from
+/// any change to a judged output that is zero on every sample: SQNR divides by its power.)
 /// </summary>
 internal sealed class PlanningProblem
 {
@@ -38,7 +39,7 @@ internal sealed class PlanningProblem
         {
             throw new EngineException(
                 "trial-non-finite",
-                $"Every candidate width left for layer '{stuck.Name}' makes the model's outputs non-finite (NaN or infinity) on the calibration set; add 32 (keep FP32) to the candidate widths, pin the layer to a width that works, or exclude it.");
+                $"Every candidate width left for layer '{stuck.Name}' gives an infinite error on the calibration set (non-finite outputs, or a change to an output that is zero on every sample); add 32 (keep FP32) to the candidate widths, pin the layer to a width that works, or exclude it.");
         }
 
         Settings = settings;
@@ -52,7 +53,7 @@ internal sealed class PlanningProblem
         TotalParameters = searched.Sum(l => l.ParameterCount) + excluded.Sum(l => l.ParameterCount);
     }
 
-    /// <summary>Measured candidates (layer, bits) that made the outputs non-finite and are therefore not offered.</summary>
+    /// <summary>Measured candidates (layer, bits) whose error is infinite and which are therefore not offered.</summary>
     public IReadOnlyList<(string Layer, int Bits)> NonFiniteChoices { get; }
 
     /// <summary>How bytes are counted.</summary>

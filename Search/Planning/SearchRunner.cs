@@ -72,6 +72,7 @@ public static class SearchRunner
         var exported = decision.Chosen is { } chosen ? QdqExporter.Export(model, chosen.Assignment, session.Activations, rounder) : null;
         var heldOut = decision.Chosen is { } kept && holdout is not null ? MeasureHeldOut(model, holdout, options, session, kept) : null;
         var warnings = SearchWarnings.FewSamples(session.ReferenceOutputs, problem.Judge, settings.MetricSpace)
+            .Concat(SearchWarnings.SilentOutputs(session.ReferenceOutputs, problem.Judge))
             .Concat(SearchWarnings.NonFiniteChoices(problem.NonFiniteChoices)).ToList();
         if (heldOut is not null && settings.Budget is ErrorBudget bound && decision.Chosen is { } best
             && SearchWarnings.HeldOutMisses(heldOut, bound, problem.Judge, problem.Judge.Value(best.Measured, session.ReferenceMetrics)) is { } miss)

@@ -33,11 +33,28 @@ internal static class SearchWarnings
         }
     }
 
-    /// <summary>One warning per layer with candidate widths that made the outputs non-finite, which the search did not offer.</summary>
+    /// <summary>One warning per layer with candidate widths whose error came out infinite, which the search did not offer.</summary>
     public static IEnumerable<string> NonFiniteChoices(IReadOnlyList<(string Layer, int Bits)> choices) =>
         choices.GroupBy(c => c.Layer, StringComparer.Ordinal).Select(g =>
-            $"Layer '{g.Key}' at {string.Join(", ", g.Select(c => BitWidths.Describe(c.Bits)))} made the model's outputs non-finite (NaN or infinity) on the calibration set, so the search did not offer that width for it" +
-            (g.Any(c => c.Bits == BitWidths.Float16) ? " (FP16 overflows on weights or activations beyond +-65504)." : "."));
+            $"Layer '{g.Key}' at {string.Join(", ", g.Select(c => BitWidths.Describe(c.Bits)))} gave an infinite error on the calibration set " +
+            "(non-finite outputs, such as FP16 overflowing beyond +-65504, or a change to an output that is zero on every sample), so the search did not offer that width for it.");
+
+    /// <summary>
+    /// One warning per judged output that is zero on every calibration sample, under a budget that divides by its power:
+    /// any change to it is an infinite error and no change a perfect one, so the figure says nothing.
+    /// </summary>
+    public static IEnumerable<string> SilentOutputs(IReadOnlyList<OutputTensor> reference, OutputJudge judge)
+    {
+        if (judge.Metric is not (BudgetMetric.Sqnr or BudgetMetric.RelativeMse))
+        {
+            yield break;
+        }
+
+        foreach (var output in reference.Where(o => judge.Judges(o.Name) && o.Data.Length > 0 && Array.TrueForAll(o.Data, v => v == 0)))
+        {
+            yield return $"Output '{output.Name}' is zero on every calibration sample: the model does not respond to this data, so its {MetricValues.Name(judge.Metric)} can only be perfect or infinitely bad. Calibrate with data the model responds to.";
+        }
+    }
 
     /// <summary>A warning when the held-out figure misses the error budget, with both figures side by side.</summary>
     public static string? HeldOutMisses(HeldOutCheck check, ErrorBudget budget, OutputJudge judge, double calibrationValue)

@@ -41,8 +41,36 @@ public sealed class NonFiniteCandidateTests
         // Its FP16 trial is still reported as measured, non-finite figures included (written as "NaN"/"-Infinity").
         var half = fc1.Sensitivity.Single(s => s.Bits == 16);
         Assert.False(double.IsFinite(half.AdditiveError));
-        Assert.Contains(result.Warnings!, w => w.StartsWith("Layer 'fc1' at FP16 made the model's outputs non-finite", StringComparison.Ordinal));
+        Assert.Contains(result.Warnings!, w => w.StartsWith("Layer 'fc1' at FP16 gave an infinite error", StringComparison.Ordinal));
         Assert.DoesNotContain(result.Warnings!, w => w.Contains("'fc2'", StringComparison.Ordinal));
+        Assert.DoesNotContain(result.Warnings!, w => w.Contains("is zero on every calibration sample", StringComparison.Ordinal));
+    }
+
+    [Fact]
+    public void AJudgedOutputThatIsZeroOnEverySampleIsCalledOut()
+    {
+        // Seen on the real OCR detector fed pages without text: its sigmoid map was 0 everywhere, so every
+        // trial was either lossless or infinitely bad. Relu of minus a non-negative input is zero everywhere.
+        var model = OnnxModel.Load(
+            new GraphBuilder()
+                .Opset(13)
+                .Input("x", -1, 16)
+                .Initializer("w1", [16, 10], GraphBuilder.RandomValues(3, 160, 0.5f))
+                .Initializer("w2", [16, 10], GraphBuilder.RandomValues(4, 160, 0.5f))
+                .Node("MatMul", ["x", "w1"], ["y"], "fc1")
+                .Node("Abs", ["x"], ["a"], "abs")
+                .Node("Neg", ["a"], ["n"], "neg")
+                .Node("Relu", ["n"], ["r"], "relu")
+                .Node("MatMul", ["r", "w2"], ["silent"], "fc2")
+                .Output("y", -1, 10)
+                .Output("silent", -1, 10)
+                .ToBytes(),
+            "silent");
+
+        var result = SearchRunner.Run(model, SmallModels.MlpData(model), new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 20), [8, 16]), new InMemoryTrialStore(), null, CancellationToken.None);
+
+        Assert.Contains(result.Warnings!, w => w.StartsWith("Output 'silent' is zero on every calibration sample", StringComparison.Ordinal));
+        Assert.DoesNotContain(result.Warnings!, w => w.StartsWith("Output 'y'", StringComparison.Ordinal));
     }
 
     [Fact]
