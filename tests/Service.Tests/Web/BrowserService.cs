@@ -20,6 +20,21 @@ public sealed class BrowserService : IAsyncLifetime
 
     public const string ModelName = "hive-monitor.onnx";
 
+    /// <summary>
+    /// Headless Debian chromium as root on a closed network: no sandbox, and no background connections (they are
+    /// refused here and stall the browser). Playwright gives every launch a fresh profile folder of its own.
+    /// </summary>
+    public static BrowserTypeLaunchOptions LaunchOptions => new()
+    {
+        ExecutablePath = Chromium,
+        Headless = true,
+        Args =
+        [
+            "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run", "--disable-background-networking",
+            "--disable-component-update", "--disable-sync",
+        ],
+    };
+
     private readonly SemaphoreSlim gate = new(1, 1);
     private readonly string dataFolder = Path.Combine(Path.GetTempPath(), "bitbudget-browser-" + Guid.NewGuid().ToString("N"));
     private ServiceProcess? service;
@@ -57,18 +72,7 @@ public sealed class BrowserService : IAsyncLifetime
             Searches = (first, second);
 
             playwright = await Playwright.CreateAsync();
-            Browser = await playwright.Chromium.LaunchAsync(new BrowserTypeLaunchOptions
-            {
-                ExecutablePath = Chromium,
-                Headless = true,
-                // As root on a closed network: no sandbox, and no background connections (they are refused here and
-                // stall the browser). Playwright gives every launch a fresh profile folder of its own.
-                Args =
-                [
-                    "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run", "--disable-background-networking",
-                    "--disable-component-update", "--disable-sync",
-                ],
-            });
+            Browser = await playwright.Chromium.LaunchAsync(LaunchOptions);
         }
         finally
         {
