@@ -6,7 +6,8 @@ namespace Bitbudget.Service.Commands;
 
 /// <summary>The parsed arguments of <see cref="PlanCommand"/>; malformed ones throw <see cref="ArgumentException"/> with what to write instead.</summary>
 /// <param name="Holdout">A second dataset the chosen assignment is checked on; null for none.</param>
-internal sealed record PlanArguments(string Model, string Data, SearchSettings Settings, string Out, string? Holdout = null)
+/// <param name="NoCache">Measure every trial and leave the trial cache (<see cref="TrialCache"/>) alone.</param>
+internal sealed record PlanArguments(string Model, string Data, SearchSettings Settings, string Out, string? Holdout = null, bool NoCache = false)
 {
     public static PlanArguments Parse(string[] args)
     {
@@ -19,6 +20,7 @@ internal sealed record PlanArguments(string Model, string Data, SearchSettings S
         var granularity = Granularity.PerChannel;
         var clip = ClipMethod.MinMax;
         var activations = false;
+        var noCache = false;
         long? targetOpset = null;
         var storage = StorageRule.Container;
         var pins = new Dictionary<string, int>(StringComparer.Ordinal);
@@ -42,6 +44,7 @@ internal sealed record PlanArguments(string Model, string Data, SearchSettings S
                 case "--storage": storage = Enum<StorageRule>(name, Value()); break;
                 case "--exclude": excluded.Add(Value()); break;
                 case "--activations": activations = true; break;
+                case "--no-cache": noCache = true; break;
                 case "--target-opset":
                     var opsetText = Value();
                     targetOpset = long.TryParse(opsetText, NumberStyles.None, CultureInfo.InvariantCulture, out var opset)
@@ -95,7 +98,7 @@ internal sealed record PlanArguments(string Model, string Data, SearchSettings S
                 .ToList();
         var settings = new SearchSettings(
             BudgetText.Parse(budget), candidates, method, scheme, granularity, clip, activations, pins, excluded, targetOpset, outputs, metricSpace, sampleAxes.Count == 0 ? null : sampleAxes, storage, rounding);
-        return new PlanArguments(model, data, settings, outDir ?? "plan", holdout);
+        return new PlanArguments(model, data, settings, outDir ?? "plan", holdout, noCache);
     }
 
     private static T Enum<T>(string option, string text)

@@ -13,8 +13,9 @@ namespace Bitbudget.Service.Commands;
 /// <c>plan --model M.onnx --data D.npz --budget "sqnr&gt;=30" [--bits 2,3,4,6,8] [--method knapsack|greedy]
 /// [--scheme symmetric|asymmetric] [--granularity per-channel|per-tensor] [--clip min-max|percentile|mse-optimal|analytic-laplace|analytic-gaussian]
 /// [--pin LAYER=BITS]... [--exclude LAYER]... [--activations] [--target-opset N] [--sample-axis INPUT=AXIS]... [--outputs A,B]
-/// [--metric-space linear|logit] [--holdout H.npz] [--storage container|packed] [--out DIR]</c>: the whole search locally, writing the
-/// manifest, the quantized model, the sensitivity CSV and the frontier into DIR.
+/// [--metric-space linear|logit] [--holdout H.npz] [--storage container|packed] [--no-cache] [--out DIR]</c>: the whole search locally, writing the
+/// manifest, the quantized model, the sensitivity CSV and the frontier into DIR. Sensitivity trials are read from and
+/// written to the user's trial cache (<see cref="TrialCache"/>) unless <c>--no-cache</c> is given.
 /// </summary>
 internal static class PlanCommand
 {
@@ -22,7 +23,7 @@ internal static class PlanCommand
         "usage: plan --model M.onnx --data D.npz --budget \"sqnr>=30\" [--bits 2,3,4,6,8] [--method knapsack|greedy] " +
         "[--scheme symmetric|asymmetric] [--granularity per-channel|per-tensor] [--clip min-max|percentile|mse-optimal|analytic-laplace|analytic-gaussian] " +
         "[--pin LAYER=BITS]... [--exclude LAYER]... [--activations] [--target-opset N] [--sample-axis INPUT=AXIS]... [--outputs A,B] " +
-        "[--metric-space linear|logit] [--holdout H.npz] [--storage container|packed] [--out DIR]";
+        "[--metric-space linear|logit] [--holdout H.npz] [--storage container|packed] [--no-cache] [--out DIR]";
 
     public static Task<int> RunAsync(string[] args)
     {
@@ -57,9 +58,12 @@ internal static class PlanCommand
     private static int Run(PlanArguments args)
     {
         var model = OnnxModel.LoadFile(args.Model, args.Settings.TargetOpset);
-        var data = CalibrationSet.Create(DatasetReader.Read(File.ReadAllBytes(args.Data)), model.Inputs, args.Settings.SampleAxes);
+        var dataBytes = File.ReadAllBytes(args.Data);
+        var data = CalibrationSet.Create(DatasetReader.Read(dataBytes), model.Inputs, args.Settings.SampleAxes);
         var holdout = args.Holdout is null ? null : CalibrationSet.Create(DatasetReader.Read(File.ReadAllBytes(args.Holdout)), model.Inputs, args.Settings.SampleAxes);
-        var store = new InMemoryTrialStore();
+        var store = args.NoCache
+            ? TrialCache.Off()
+            : TrialCache.Open(TrialCache.Folder(), TrialContext.Of(TrialContext.HashBytes(File.ReadAllBytes(args.Model)), TrialContext.HashBytes(dataBytes), args.Settings));
         var clock = System.Diagnostics.Stopwatch.StartNew();
         var result = SearchRunner.Run(model, data, args.Settings, store, new TerminalProgress(), CancellationToken.None, holdout: holdout);
         Console.Error.WriteLine();
@@ -76,7 +80,13 @@ internal static class PlanCommand
 
         var manifest = ManifestJson.Deserialize(result.ManifestJson);
         Console.Out.Write(Summary(manifest, result));
-        Console.Out.WriteLine($"{result.TrialCount} trials in {clock.Elapsed.TotalSeconds:0.0} s; artifacts in {Path.GetFullPath(args.Out)}");
+        var reused = store.Reused > 0 ? $" ({store.Reused} sensitivity trials reused from the trial cache {store.File})" : string.Empty;
+        Console.Out.WriteLine($"{result.TrialCount} trials{reused} in {clock.Elapsed.TotalSeconds:0.0} s; artifacts in {Path.GetFullPath(args.Out)}");
+        if (store.Problem is { } problem)
+        {
+            Console.Error.WriteLine($"warning: {problem}");
+        }
+
         return result.Feasible ? 0 : 3;
     }
 
@@ -84,7 +94,7 @@ internal static class PlanCommand
     /// The stored trials in key order, metrics in the manifest's form: JSON has no infinity, and the
     /// reference trial (and any lossless one) has an infinite SQNR, which is written as null.
     /// </summary>
-    private static List<object> Trials(InMemoryTrialStore store) =>
+    private static List<object> Trials(ITrialStore store) =>
         store.LoadAll().Values
             .OrderBy(t => t.Key, StringComparer.Ordinal)
             .Select(object (t) => new

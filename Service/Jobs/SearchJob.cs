@@ -1,4 +1,5 @@
 using Bitbudget.Search;
+using Bitbudget.Search.Planning;
 using Bitbudget.Service.Engine;
 using Bitbudget.Service.Searches;
 using Bitbudget.Service.Store;
@@ -62,7 +63,13 @@ internal sealed partial class SearchJob(
             var datasetBytes = blobs.Read(dataset.Summary.Sha256);
             var holdoutBytes = search.Spec.HoldoutDatasetId is { } holdoutId ? blobs.Read(catalog.FindDataset(holdoutId)!.Summary.Sha256) : null;
             var settings = SearchVocabulary.ToSettings(search.Spec);
-            var trials = new TrialStore(database, searchId);
+            var reuse = ReusableSearches(search, model.Summary.Sha256, dataset.Summary.Sha256, settings);
+            if (reuse.Count > 0)
+            {
+                LogReusing(logger, searchId, reuse.Count, string.Join(", ", reuse));
+            }
+
+            var trials = new TrialStore(database, searchId, reuse);
 
             // The engine is synchronous and CPU-bound for minutes: give it a thread of its own rather than a pool thread.
             var result = await Task.Factory.StartNew(
@@ -145,6 +152,25 @@ internal sealed partial class SearchJob(
             LogAttemptFailed(logger, e, searchId, failures, MaxAttempts);
             throw;
         }
+    }
+
+    /// <summary>
+    /// Earlier searches on the same model and dataset whose settings give the same <see cref="TrialContext"/>: their
+    /// sensitivity trials measured exactly what this search's would, so it reads them instead of sweeping again.
+    /// </summary>
+    private List<string> ReusableSearches(SearchRecord search, string modelSha256, string datasetSha256, SearchSettings settings)
+    {
+        var context = TrialContext.Of(modelSha256, datasetSha256, settings);
+        var reusable = new List<string>();
+        foreach (var earlier in searches.ListOnSameInputs(search.ModelId, search.DatasetId))
+        {
+            if (earlier.Id != search.Id && TrialContext.Of(modelSha256, datasetSha256, SearchVocabulary.ToSettings(earlier.Spec)) == context)
+            {
+                reusable.Add(earlier.Id);
+            }
+        }
+
+        return reusable;
     }
 
     /// <summary>A fault of the data folder: SQLite's disk-full or read-only codes, or an I/O error the store probe confirms.</summary>
@@ -230,6 +256,9 @@ internal sealed partial class SearchJob(
 
     [LoggerMessage(EventId = 3008, Level = LogLevel.Information, Message = "Search {SearchId} is held by another run; waiting for it")]
     private static partial void LogWaitingForOtherRun(ILogger logger, string searchId);
+
+    [LoggerMessage(EventId = 3011, Level = LogLevel.Information, Message = "Search {SearchId} reuses the sensitivity trials of {Count} earlier searches on the same model, dataset and settings: {EarlierIds}")]
+    private static partial void LogReusing(ILogger logger, string searchId, int count, string earlierIds);
 
     [LoggerMessage(EventId = 3009, Level = LogLevel.Warning, Message = "Could not renew a search lease")]
     private static partial void LogHeartbeatFailed(ILogger logger, Exception exception);

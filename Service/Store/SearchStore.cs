@@ -79,6 +79,17 @@ internal sealed class SearchStore(Database database)
         return Query(connection, null, $"WHERE model_id IN (SELECT id FROM models WHERE name = $p) ORDER BY created_at DESC, rowid DESC LIMIT {limit}", modelName);
     }
 
+    /// <summary>
+    /// Every search on this model and this dataset, in any state, oldest first: the candidates whose sensitivity
+    /// trials a new search may reuse (see <see cref="Bitbudget.Search.Planning.TrialContext"/>). Models and
+    /// datasets are stored once per content hash, so equal ids mean equal bytes.
+    /// </summary>
+    public IReadOnlyList<SearchRecord> ListOnSameInputs(string modelId, string datasetId)
+    {
+        using var connection = database.Open();
+        return Query(connection, null, "WHERE model_id = $p AND dataset_id = $q ORDER BY created_at, rowid", modelId, datasetId);
+    }
+
     /// <summary>Searches that are queued or running, for re-enqueueing at start.</summary>
     public IReadOnlyList<SearchRecord> ListUnfinished()
     {
@@ -328,7 +339,7 @@ internal sealed class SearchStore(Database database)
         return command.ExecuteNonQuery();
     }
 
-    private static List<SearchRecord> Query(SqliteConnection connection, SqliteTransaction? transaction, string tail, string? parameter)
+    private static List<SearchRecord> Query(SqliteConnection connection, SqliteTransaction? transaction, string tail, string? parameter, string? second = null)
     {
         using var command = connection.CreateCommand();
         command.Transaction = transaction;
@@ -336,6 +347,11 @@ internal sealed class SearchStore(Database database)
         if (parameter is not null)
         {
             command.Parameters.AddWithValue("$p", parameter);
+        }
+
+        if (second is not null)
+        {
+            command.Parameters.AddWithValue("$q", second);
         }
 
         var list = new List<SearchRecord>();

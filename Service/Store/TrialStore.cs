@@ -6,11 +6,27 @@ namespace Bitbudget.Service.Store;
 /// <summary>
 /// The engine's <see cref="ITrialStore"/> over the trials table, for one search. A key is stored at most
 /// once (UNIQUE(search_id, key) with ON CONFLICT DO NOTHING), so a rerun or a second concurrent run of the
-/// same search cannot duplicate a trial.
+/// same search cannot duplicate a trial. Given <paramref name="reuseFrom"/> (earlier searches with the same
+/// <see cref="TrialContext"/>), their sensitivity trials are read as this search's own, so it does not sweep
+/// again; they are not copied, so this search's trial list (<see cref="Page"/>) holds only what it measured.
 /// </summary>
-internal sealed class TrialStore(Database database, string searchId) : ITrialStore
+internal sealed class TrialStore(Database database, string searchId, IReadOnlyList<string>? reuseFrom = null) : ITrialStore
 {
     public IReadOnlyDictionary<string, TrialRecord> LoadAll()
+    {
+        var trials = LoadOwn();
+        if (reuseFrom is { Count: > 0 })
+        {
+            foreach (var trial in LoadReusable(reuseFrom))
+            {
+                trials.TryAdd(trial.Key, trial);
+            }
+        }
+
+        return trials;
+    }
+
+    private Dictionary<string, TrialRecord> LoadOwn()
     {
         using var connection = database.Open();
         using var command = connection.CreateCommand();
@@ -50,6 +66,31 @@ internal sealed class TrialStore(Database database, string searchId) : ITrialSto
         command.Parameters.AddWithValue("$duration", trial.DurationMs);
         command.Parameters.AddWithValue("$at", Clock.Format(DateTimeOffset.UtcNow));
         command.ExecuteNonQuery();
+    }
+
+    /// <summary>The sensitivity trials of <paramref name="searchIds"/>, the earliest stored first for each key.</summary>
+    private List<TrialRecord> LoadReusable(IReadOnlyList<string> searchIds)
+    {
+        using var connection = database.Open();
+        using var command = connection.CreateCommand();
+        var names = searchIds.Select((_, i) => $"$s{i}").ToList();
+        command.CommandText = $"""
+            SELECT key, kind, layer, bits, assignment_hash, metrics_json, duration_ms
+            FROM trials WHERE kind = 'sensitivity' AND search_id IN ({string.Join(", ", names)}) ORDER BY rowid;
+            """;
+        for (var i = 0; i < names.Count; i++)
+        {
+            command.Parameters.AddWithValue(names[i], searchIds[i]);
+        }
+
+        var trials = new List<TrialRecord>();
+        using var reader = command.ExecuteReader();
+        while (reader.Read())
+        {
+            trials.Add(ReadTrial(reader));
+        }
+
+        return trials;
     }
 
     /// <summary>One page of trials in the order they were stored, and how many there are in all.</summary>
