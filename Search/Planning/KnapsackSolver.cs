@@ -9,8 +9,20 @@ namespace Bitbudget.Search.Planning;
 /// </summary>
 public static class KnapsackSolver
 {
-    /// <summary>Frontier points kept per layer before thinning starts.</summary>
+    /// <summary>Frontier points a budgeted query keeps per layer before thinning starts (its core is small; see <see cref="KnapsackCore"/>).</summary>
     public const int DefaultMaxPoints = 20_000;
+
+    /// <summary>
+    /// Memory the whole frontier's back-pointers and working buffers may take. <see cref="Frontier(IReadOnlyList{PlanningLayer})"/>
+    /// keeps every Pareto point while the frontier fits in it and thins only beyond it (never below
+    /// <see cref="DefaultMaxPoints"/> points per layer). Time grows with the points kept, so this is kept modest: only
+    /// 400 frontier points are ever written (<see cref="SearchReport.MaxFrontierPoints"/>).
+    /// </summary>
+    public const long DefaultFrontierMemoryBytes = 64L << 20;
+
+    // Per point: 4 bytes of back-pointer for each layer still to come, and bytes, error and pointer in three working buffers.
+    private const int BackPointerBytes = sizeof(uint);
+    private const int WorkingBytesPerPoint = 3 * (sizeof(long) + sizeof(double) + sizeof(uint));
 
     internal const int ChoiceBits = 5;
     internal const uint ChoiceMask = (1u << ChoiceBits) - 1;
@@ -44,9 +56,10 @@ public static class KnapsackSolver
         }
 
         var bound = LagrangeBound.ForMinimumBytes(layers, maxError, greedy.Bytes);
-        FrontierResult frontier = Solve(layers, long.MaxValue, maxError, CheckedCap(maxPoints), bound);
+        var core = KnapsackCore.Of(layers, bound);
+        FrontierResult frontier = Solve(core.Layers, long.MaxValue, maxError, CheckedCap(maxPoints), bound);
         int index = frontier.IndexOfMinimumBytes(maxError);
-        return Better(index < 0 ? null : frontier[index], greedy, byBytes: true, frontier.Exact);
+        return Better(index < 0 ? null : core.Original(frontier[index]), greedy, byBytes: true, frontier.Exact);
     }
 
     /// <summary>The assignment with the least summed error whose bytes are at most <paramref name="maxBytes"/>; null when even the smallest assignment exceeds it.</summary>
@@ -64,19 +77,26 @@ public static class KnapsackSolver
         }
 
         var bound = LagrangeBound.ForMinimumError(layers, maxBytes, greedy.Error);
-        FrontierResult frontier = Solve(layers, maxBytes, double.PositiveInfinity, CheckedCap(maxPoints), bound);
+        var core = KnapsackCore.Of(layers, bound);
+        FrontierResult frontier = Solve(core.Layers, maxBytes, double.PositiveInfinity, CheckedCap(maxPoints), bound);
         int index = frontier.IndexOfMinimumError(maxBytes);
-        return Better(index < 0 ? null : frontier[index], greedy, byBytes: false, frontier.Exact);
+        return Better(index < 0 ? null : core.Original(frontier[index]), greedy, byBytes: false, frontier.Exact);
     }
 
-    /// <summary>Every Pareto-optimal (bytes, error) assignment, sorted by bytes (exact unless <see cref="FrontierResult.Exact"/> says otherwise).</summary>
-    public static FrontierResult Frontier(IReadOnlyList<PlanningLayer> layers) => Frontier(layers, DefaultMaxPoints);
+    /// <summary>
+    /// Every Pareto-optimal (bytes, error) assignment, sorted by bytes: exact while the frontier fits in
+    /// <see cref="DefaultFrontierMemoryBytes"/>, thinned beyond it (<see cref="FrontierResult.Exact"/> says which).
+    /// </summary>
+    public static FrontierResult Frontier(IReadOnlyList<PlanningLayer> layers) => Frontier(layers, MaxPointsLimit, DefaultFrontierMemoryBytes);
 
     /// <summary>The frontier, thinned only when it would hold more than <paramref name="maxPoints"/> points.</summary>
-    public static FrontierResult Frontier(IReadOnlyList<PlanningLayer> layers, int maxPoints)
+    public static FrontierResult Frontier(IReadOnlyList<PlanningLayer> layers, int maxPoints) => Frontier(layers, maxPoints, DefaultFrontierMemoryBytes);
+
+    /// <summary>The frontier, thinned only beyond <paramref name="maxPoints"/> points or beyond <paramref name="memoryBytes"/> of memory.</summary>
+    public static FrontierResult Frontier(IReadOnlyList<PlanningLayer> layers, int maxPoints, long memoryBytes)
     {
         PlanningInput.Validate(layers);
-        return Solve(layers, long.MaxValue, double.PositiveInfinity, CheckedCap(maxPoints), bound: null);
+        return Solve(layers, long.MaxValue, double.PositiveInfinity, CheckedCap(maxPoints), bound: null, memoryBytes);
     }
 
     private static int CheckedCap(int maxPoints) =>
@@ -102,7 +122,7 @@ public static class KnapsackSolver
         return greedyWins ? greedy with { Thinned = !exact } : programme;
     }
 
-    private static FrontierResult Solve(IReadOnlyList<PlanningLayer> layers, long maxBytes, double maxError, int maxPoints, LagrangeBound? bound)
+    private static FrontierResult Solve(IReadOnlyList<PlanningLayer> layers, long maxBytes, double maxError, int maxPoints, LagrangeBound? bound, long memoryBytes = DefaultFrontierMemoryBytes)
     {
         int layerCount = layers.Count;
         var suffixBytes = new long[layerCount + 1];
@@ -132,6 +152,7 @@ public static class KnapsackSolver
         var back = new uint[layerCount][];
         bool exact = true;
         double factor = 1.0;
+        long usedBytes = 0;
 
         for (int layer = 0; layer < layerCount; layer++)
         {
@@ -159,13 +180,19 @@ public static class KnapsackSolver
                 DropHopeless(merged, bound, layer + 1);
             }
 
-            if (merged.Count > maxPoints)
+            // What still fits: this layer's points and as many for each layer after it, within the memory left.
+            int remaining = layerCount - layer;
+            long fits = Math.Max(2, (memoryBytes - usedBytes) / ((long)BackPointerBytes * remaining + WorkingBytesPerPoint));
+            // Never fewer than the fixed cap of old (DefaultMaxPoints), so a long model keeps at least that frontier.
+            int cap = (int)Math.Min(maxPoints, Math.Max(fits, DefaultMaxPoints));
+            if (merged.Count > cap)
             {
-                factor *= 1.0 + Thin(merged, maxPoints);
+                factor *= 1.0 + Thin(merged, cap);
                 exact = false;
             }
 
             back[layer] = merged.Pack.AsSpan(0, merged.Count).ToArray();
+            usedBytes += (long)BackPointerBytes * merged.Count;
             (current, merged) = (merged, current);
             if (current.Count == 0)
             {

@@ -32,6 +32,23 @@ internal sealed class LagrangeBound
         _threshold = incumbent + (1e-9 * scale) + (bytesObjective ? 0.5 : 0.0);
     }
 
+    /// <summary>
+    /// Whether <paramref name="choice"/> of layer <paramref name="layer"/> can be part of an assignment at least as good as
+    /// the incumbent (reduced-cost fixing). For any feasible assignment x, objective(x) >= dual + sum_j r_j(x_j), where
+    /// r_j(c) = objective_c + w x constrained_c - min over the layer's choices (&gt;= 0); so a choice whose reduced cost alone
+    /// exceeds incumbent - dual cannot appear in an assignment that ties or beats the incumbent.
+    /// </summary>
+    public bool Admits(int layer, PlanningChoice choice)
+    {
+        double objective = _bytesObjective ? choice.Bytes : choice.Error;
+        double constrained = _bytesObjective ? choice.Error : choice.Bytes;
+        double reduced = objective + (_multiplier * constrained) - (_suffix[layer] - _suffix[layer + 1]);
+        return reduced <= _threshold - LowerBound;
+    }
+
+    /// <summary>The Lagrangian lower bound on the whole problem's objective at the chosen multiplier.</summary>
+    private double LowerBound => _suffix[0] - (_multiplier * _limit);
+
     /// <summary>For fewest bytes under an error budget, given an assignment of <paramref name="incumbentBytes"/> that meets it.</summary>
     public static LagrangeBound ForMinimumBytes(IReadOnlyList<PlanningLayer> layers, double maxError, long incumbentBytes) =>
         new(layers, bytesObjective: true, maxError, incumbentBytes);

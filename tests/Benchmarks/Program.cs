@@ -1,5 +1,5 @@
 using Bitbudget.Benchmarks;
 
 // Side-by-side measurements of what a search costs; see DEVELOPERS.md ("Benchmarks") for how to read them.
-// usage: dotnet run -c Release --project tests/Benchmarks -- [--ocr DIR] [--demo DIR] [--samples N] [--repeat N] [--rounding]
+// usage: dotnet run -c Release --project tests/Benchmarks -- [--ocr DIR] [--demo DIR] [--samples N] [--repeat N] [--rounding] [--only knapsack]
 return BenchmarkRun.Run(args);

@@ -140,14 +140,14 @@ public class KnapsackSolverTests
         long maxBytes = layers.Sum(l => l.Choices.Min(c => c.Bytes)) + (long)(layers.Sum(l => l.Choices.Max(c => c.Bytes)) * fraction * 0.5);
 
         Selection? exactBytes = KnapsackSolver.MinimumBytes(layers, maxError);
-        Selection? thinBytes = KnapsackSolver.MinimumBytes(layers, maxError, maxPoints: 8);
+        Selection? thinBytes = KnapsackSolver.MinimumBytes(layers, maxError, maxPoints: 2);
         Selection? exactError = KnapsackSolver.MinimumError(layers, maxBytes);
-        Selection? thinError = KnapsackSolver.MinimumError(layers, maxBytes, maxPoints: 8);
+        Selection? thinError = KnapsackSolver.MinimumError(layers, maxBytes, maxPoints: 2);
 
         Assert.NotNull(exactBytes);
         Assert.NotNull(thinBytes);
         Assert.False(exactBytes.Thinned);
-        Assert.True(thinBytes.Thinned, "a cap of 8 points should force thinning on 30 layers");
+        Assert.True(thinBytes.Thinned, "a cap of 2 points should force thinning on 30 layers, even on the reduced core");
         PlanningInstances.AssertConsistent(layers, thinBytes);
         Assert.True(thinBytes.Error <= maxError);
         Assert.InRange(thinBytes.Bytes, exactBytes.Bytes, GreedySolver.MinimumBytes(layers, maxError).Bytes);
@@ -209,5 +209,32 @@ public class KnapsackSolverTests
         var thrown = Assert.Throws<EngineException>(() => KnapsackSolver.MinimumBytes([new("conv1", [])], 1.0));
 
         Assert.Equal("layer-without-choices", thrown.Code);
+    }
+
+    [Fact]
+    public void AFrontierLargerThanTheOldPointCapIsKeptWholeWhenItFitsInMemory()
+    {
+        List<PlanningLayer> layers = PlanningInstances.Realistic(seed: 77, layerCount: 60, choiceCount: 7, integerErrors: false);
+
+        FrontierResult frontier = KnapsackSolver.Frontier(layers);
+        FrontierResult unbounded = KnapsackSolver.Frontier(layers, int.MaxValue >> KnapsackSolver.ChoiceBits, long.MaxValue);
+
+        Assert.True(unbounded.Count > KnapsackSolver.DefaultMaxPoints, $"the instance's frontier has only {unbounded.Count} points; it must exceed the old cap to test anything");
+        Assert.True(frontier.Exact);
+        Assert.Equal(unbounded.Bytes, frontier.Bytes);
+        Assert.Equal(unbounded.Errors, frontier.Errors);
+    }
+
+    [Fact]
+    public void AFrontierBeyondTheMemorySettingIsThinnedAndSaysSo()
+    {
+        List<PlanningLayer> layers = PlanningInstances.Realistic(seed: 77, layerCount: 60, choiceCount: 7, integerErrors: false);
+
+        // 1 MiB holds far fewer points than this frontier, but never fewer than the old fixed cap per layer.
+        FrontierResult frontier = KnapsackSolver.Frontier(layers, int.MaxValue >> KnapsackSolver.ChoiceBits, 1L << 20);
+
+        Assert.False(frontier.Exact);
+        Assert.InRange(frontier.Count, 2, KnapsackSolver.DefaultMaxPoints);
+        Assert.True(frontier.BytesFactorBound > 1);
     }
 }

@@ -78,13 +78,16 @@ public sealed class RealBinaryTests : IDisposable
         var resumed = await WaitAsync(second.Client, crashedId, TimeSpan.FromSeconds(180));
         Assert.Equal("succeeded", resumed["state"]!.GetValue<string>());
 
-        // The same search again, uninterrupted, on the same running service.
-        var fresh = await second.Client.StartSearchAsync(body with { modelId = modelId, datasetId = datasetId });
+        // The same search again, uninterrupted, on a service with a data folder of its own: on the same service it
+        // would reuse the resumed search's sweep (no sweep twice) and prove nothing.
+        using var uninterrupted = await ServiceProcess.StartAsync(Folder("uninterrupted"));
+        var (freshModelId, freshDatasetId) = await uninterrupted.Client.UploadAsync("ocr-classifier", await File.ReadAllBytesAsync(OcrModels.Classifier), OcrDataset(samples: 8));
+        var fresh = await uninterrupted.Client.StartSearchAsync(body with { modelId = freshModelId, datasetId = freshDatasetId });
         var freshId = fresh.GetProperty("id").GetString()!;
-        Assert.Equal("succeeded", (await WaitAsync(second.Client, freshId, TimeSpan.FromSeconds(180)))["state"]!.GetValue<string>());
+        Assert.Equal("succeeded", (await WaitAsync(uninterrupted.Client, freshId, TimeSpan.FromSeconds(180)))["state"]!.GetValue<string>());
 
         var crashedTrials = await TrialsAsync(second.Client, crashedId);
-        var freshTrials = await TrialsAsync(second.Client, freshId);
+        var freshTrials = await TrialsAsync(uninterrupted.Client, freshId);
         Assert.Equal(freshTrials.Keys.Order(), crashedTrials.Keys.Order());
         foreach (var (key, metrics) in freshTrials)
         {
@@ -92,10 +95,10 @@ public sealed class RealBinaryTests : IDisposable
         }
 
         Assert.Equal(
-            WithoutTimestamp(await second.Client.GetStringAsync($"/v1/searches/{freshId}/manifest")),
+            WithoutTimestamp(await uninterrupted.Client.GetStringAsync($"/v1/searches/{freshId}/manifest")),
             WithoutTimestamp(await second.Client.GetStringAsync($"/v1/searches/{crashedId}/manifest")));
         Assert.Equal(
-            await second.Client.GetByteArrayAsync($"/v1/searches/{freshId}/model"),
+            await uninterrupted.Client.GetByteArrayAsync($"/v1/searches/{freshId}/model"),
             await second.Client.GetByteArrayAsync($"/v1/searches/{crashedId}/model"));
     }
 
