@@ -33,6 +33,7 @@ public sealed class TrialContextTests
         { "size budget", Base with { Budget = new SizeBudget(1000, null) } },
         { "method", Base with { Method = SearchMethod.Greedy } },
         { "bits", Base with { Bits = [3, 5] } },
+        { "roundings (each trial's key names its own)", Base with { Rounding = [RoundingMethod.Nearest, RoundingMethod.Compensated] } },
         { "pins", Base with { Pins = new Dictionary<string, int> { ["fc1"] = 8 } } },
         { "exclusions", Base with { Excluded = ["fc1"] } },
         { "judged outputs", Base with { Outputs = ["probability"] } },
