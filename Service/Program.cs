@@ -22,10 +22,15 @@ try
     var app = builder.Build();
     app.UseBitbudgetPipeline();
     app.MapOperationsApi();
-    app.MapModelsApi();
-    app.MapDatasetsApi();
-    app.MapSearchesApi();
-    app.MapBitbudgetExtras();
+    // A worker serves only /healthz and /metrics: searches are submitted to and read from the API processes.
+    if (app.Services.GetRequiredService<Microsoft.Extensions.Options.IOptions<BitbudgetOptions>>().Value.ServesApi)
+    {
+        app.MapModelsApi();
+        app.MapDatasetsApi();
+        app.MapSearchesApi();
+        app.MapBitbudgetExtras();
+    }
+
     await app.RunAsync();
     return 0;
 }

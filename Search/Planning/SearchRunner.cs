@@ -35,19 +35,14 @@ public static class SearchRunner
         ArgumentNullException.ThrowIfNull(model);
         ArgumentNullException.ThrowIfNull(settings);
         var bitsGiven = settings.Bits.Count > 0;
-        if (!bitsGiven)
-        {
-            settings = settings with { Bits = CandidateWidths.Defaults(settings.Storage, model.Opset) };
-        }
-
+        settings = WithDefaults(model, settings);
         SearchSettingsValidator.Validate(model, data, settings);
         progress?.Report(new SearchProgress(SearchStage.Reference, 0, 1));
-        var options = (sessionOptions ?? new TrialSessionOptions()) with { Activations = SensitivitySweep.ActivationsFor(settings), MetricSpace = settings.MetricSpace };
+        var options = SessionOptionsFor(settings, sessionOptions);
         var rounder = RounderFor(model, data, settings, options, cancellationToken);
         options = options with { Rounder = rounder };
         var raiseCheck = OpsetRaiseCheck.Verify(model, data, options.MaxBatch);
-        using var session = TrialSession.Open(model, data, options);
-        store.Save(new TrialRecord(TrialKeys.Reference, "reference", null, null, null, session.ReferenceMetrics, session.ForwardPassMilliseconds));
+        using var session = OpenWithReference(model, data, options, store);
         progress?.Report(new SearchProgress(SearchStage.Reference, 1, 1));
 
         var trials = SensitivitySweep.Plan(model.Layers, settings, rounder.Compensates);
@@ -85,6 +80,60 @@ public static class SearchRunner
         var result = report.ToResult();
         progress?.Report(new SearchProgress(SearchStage.Export, 1, 1));
         return result;
+    }
+
+    /// <summary>
+    /// The sensitivity trials a search on <paramref name="model"/> runs, in their order (a sweep's plan, for splitting it).
+    /// With compensated rounding it counts every searched layer as compensable; the sweep may find fewer (a layer whose
+    /// inputs were not gathered is measured with nearest rounding only).
+    /// </summary>
+    public static IReadOnlyList<SweepTrial> SweepPlan(OnnxModel model, SearchSettings settings)
+    {
+        ArgumentNullException.ThrowIfNull(model);
+        return SensitivitySweep.Plan(model.Layers, WithDefaults(model, settings));
+    }
+
+    /// <summary>
+    /// One part of a search's sweep, for spreading a search over several workers: stores the reference and the
+    /// sensitivity trials of <paramref name="layers"/> only, under the same keys and measured in the same way as
+    /// <see cref="Run"/> measures them, so a later <see cref="Run"/> finds them stored and goes straight on.
+    /// </summary>
+    /// <returns>How many trials the part holds (stored before or measured now).</returns>
+    public static int SweepLayers(
+        OnnxModel model,
+        CalibrationSet data,
+        SearchSettings settings,
+        IReadOnlyCollection<string> layers,
+        ITrialStore store,
+        IProgress<SearchProgress>? progress,
+        CancellationToken cancellationToken,
+        TrialSessionOptions? sessionOptions = null)
+    {
+        ArgumentNullException.ThrowIfNull(model);
+        ArgumentNullException.ThrowIfNull(layers);
+        settings = WithDefaults(model, settings);
+        SearchSettingsValidator.Validate(model, data, settings);
+        var options = SessionOptionsFor(settings, sessionOptions);
+        // The same rounder as Run's (moments of every searched layer), so a part's integers are the ones Run would measure.
+        var rounder = RounderFor(model, data, settings, options, cancellationToken);
+        using var session = OpenWithReference(model, data, options with { Rounder = rounder }, store);
+        var wanted = layers.ToHashSet(StringComparer.Ordinal);
+        var trials = SensitivitySweep.Plan(model.Layers, settings, rounder.Compensates).Where(t => wanted.Contains(t.Layer.Name)).ToList();
+        return SensitivitySweep.Run(session, trials, store, progress, cancellationToken).Count;
+    }
+
+    /// <summary>The settings with the default candidate widths for the storage and opset when none were given.</summary>
+    private static SearchSettings WithDefaults(OnnxModel model, SearchSettings settings) =>
+        settings.Bits.Count > 0 ? settings : settings with { Bits = CandidateWidths.Defaults(settings.Storage, model.Opset) };
+
+    private static TrialSessionOptions SessionOptionsFor(SearchSettings settings, TrialSessionOptions? sessionOptions) =>
+        (sessionOptions ?? new TrialSessionOptions()) with { Activations = SensitivitySweep.ActivationsFor(settings), MetricSpace = settings.MetricSpace };
+
+    private static TrialSession OpenWithReference(OnnxModel model, CalibrationSet data, TrialSessionOptions options, ITrialStore store)
+    {
+        var session = TrialSession.Open(model, data, options);
+        store.Save(new TrialRecord(TrialKeys.Reference, "reference", null, null, null, session.ReferenceMetrics, session.ForwardPassMilliseconds));
+        return session;
     }
 
     /// <summary>

@@ -71,4 +71,25 @@ internal sealed class EngineAdapter(IOptions<BitbudgetOptions> options) : ISearc
         var held = holdout is null ? null : CalibrationSet.Create(DatasetReader.Read(holdout, Limits), loaded.Inputs, settings.SampleAxes);
         return SearchRunner.Run(loaded, data, settings, trials, progress, cancellationToken, holdout: held);
     }
+
+    public IReadOnlyList<LayerTrials> PlanSweep(byte[] model, string modelName, SearchSettings settings) =>
+        SearchRunner.SweepPlan(OnnxModel.Load(model, modelName, settings.TargetOpset), settings)
+            .GroupBy(t => t.Layer.Name, StringComparer.Ordinal)
+            .Select(g => new LayerTrials(g.Key, g.Count()))
+            .ToList();
+
+    public void SweepLayers(
+        byte[] model,
+        string modelName,
+        byte[] dataset,
+        SearchSettings settings,
+        IReadOnlyCollection<string> layers,
+        ITrialStore trials,
+        CancellationToken cancellationToken)
+    {
+        var loaded = OnnxModel.Load(model, modelName, settings.TargetOpset);
+        var data = CalibrationSet.Create(DatasetReader.Read(dataset, Limits), loaded.Inputs, settings.SampleAxes);
+        SearchRunner.SweepLayers(loaded, data, settings, layers, trials, progress: null, cancellationToken);
+    }
+
 }

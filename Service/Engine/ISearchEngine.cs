@@ -38,4 +38,21 @@ internal interface ISearchEngine
         IProgress<SearchProgress> progress,
         CancellationToken cancellationToken,
         byte[]? holdout = null);
+
+    /// <summary>The layers a search's sensitivity sweep measures, in its order, with how many trials each takes.</summary>
+    IReadOnlyList<LayerTrials> PlanSweep(byte[] model, string modelName, SearchSettings settings);
+
+    /// <summary>
+    /// Measures and stores the reference and the sensitivity trials of <paramref name="layers"/> only: one part of
+    /// a search spread over several workers. The trials are those <see cref="RunSearch"/> would store for these
+    /// layers (same keys, same measurement), so the final <see cref="RunSearch"/> finds them and measures them no more.
+    /// </summary>
+    void SweepLayers(
+        byte[] model,
+        string modelName,
+        byte[] dataset,
+        SearchSettings settings,
+        IReadOnlyCollection<string> layers,
+        ITrialStore trials,
+        CancellationToken cancellationToken);
 }

@@ -7,6 +7,9 @@ internal sealed class BitbudgetOptions
 {
     public const string Section = "Bitbudget";
 
+    private string store = StoreKinds.Sqlite;
+    private string role = Roles.All;
+
     /// <summary>Address the host listens on when no ASP.NET Core URL setting overrides it.</summary>
     [Required]
     public string Listen { get; set; } = "http://127.0.0.1:5080";
@@ -14,6 +17,27 @@ internal sealed class BitbudgetOptions
     /// <summary>Folder that holds the store, the job queue, blobs, logs and the generated API key.</summary>
     [Required]
     public string DataFolder { get; set; } = "./data";
+
+    /// <summary>Where the store and the job queue live: <c>sqlite</c> (files in the data folder) or <c>postgres</c> (a shared database, <see cref="ConnectionString"/>).</summary>
+    [Required]
+    public string Store { get => store; set => store = value?.Trim().ToLowerInvariant() ?? ""; }
+
+    /// <summary>Npgsql connection string of the shared PostgreSQL database (Store = postgres), e.g. <c>Host=db;Username=bitbudget;Password=...;Database=bitbudget</c>.</summary>
+    public string? ConnectionString { get; set; }
+
+    /// <summary>What this process does: <c>all</c> (HTTP API and jobs), <c>api</c> (HTTP API, queues jobs, runs none) or <c>worker</c> (runs jobs; serves only /healthz and /metrics).</summary>
+    [Required]
+    public string Role { get => role; set => role = value?.Trim().ToLowerInvariant() ?? ""; }
+
+    /// <summary>Folder of the content-addressed blobs (uploads, results); default &lt;DataFolder&gt;/blobs. Every process of a shared store must see the same folder.</summary>
+    public string? BlobFolder { get; set; }
+
+    /// <summary>
+    /// Parts a search's sensitivity sweep is split into, each a job any worker can take (groups of whole layers);
+    /// 1 runs the whole search as one job.
+    /// </summary>
+    [Range(1, 1_000)]
+    public int SweepParts { get; set; } = 1;
 
     /// <summary>Hangfire workers in this process; 0 makes the process API-only.</summary>
     [Range(0, 64)]
@@ -72,4 +96,13 @@ internal sealed class BitbudgetOptions
 
     /// <summary>Absolute path of <see cref="DataFolder"/>.</summary>
     public string DataPath => Path.GetFullPath(DataFolder);
+
+    /// <summary>Absolute path of <see cref="BlobFolder"/>, or the data folder's blobs folder.</summary>
+    public string BlobPath => Path.GetFullPath(string.IsNullOrEmpty(BlobFolder) ? Path.Combine(DataPath, "blobs") : BlobFolder);
+
+    /// <summary>True when this process serves the HTTP API (roles all and api).</summary>
+    public bool ServesApi => Role is not Roles.Worker;
+
+    /// <summary>True when this process runs jobs (roles all and worker, with at least one worker thread).</summary>
+    public bool RunsJobs => Role is not Roles.Api && Workers > 0;
 }

@@ -32,6 +32,20 @@ internal sealed class BitbudgetOptionsValidator(IConfiguration configuration) : 
             }
         }
 
+        if (options.Store is not (StoreKinds.Sqlite or StoreKinds.Postgres))
+        {
+            failures.Add($"{BitbudgetOptions.Section}:Store must be '{StoreKinds.Sqlite}' or '{StoreKinds.Postgres}'; got '{options.Store}'.");
+        }
+        else if (options.Store == StoreKinds.Postgres && string.IsNullOrWhiteSpace(options.ConnectionString))
+        {
+            failures.Add($"{BitbudgetOptions.Section}:ConnectionString is required when {BitbudgetOptions.Section}:Store is '{StoreKinds.Postgres}' (e.g. Host=db;Username=bitbudget;Password=...;Database=bitbudget).");
+        }
+
+        if (options.Role is not (Roles.All or Roles.Api or Roles.Worker))
+        {
+            failures.Add($"{BitbudgetOptions.Section}:Role must be '{Roles.All}', '{Roles.Api}' or '{Roles.Worker}'; got '{options.Role}'.");
+        }
+
         if (failures.Count == 0 && Auth.ApiKeyRing.UsesKeyFile(options, configuration)
             && Auth.ApiKeyRing.SharedKeyFileProblem(Path.Combine(options.DataPath, Auth.ApiKeyRing.KeyFileName)) is { } keyFile)
         {

@@ -6,6 +6,7 @@ using Bitbudget.Service.Searches;
 using Bitbudget.Service.Store;
 using Bitbudget.Service.Uploads;
 using Hangfire;
+using Hangfire.PostgreSql;
 using Hangfire.Storage.SQLite;
 using Microsoft.AspNetCore.Http.Timeouts;
 using Microsoft.Extensions.DependencyInjection.Extensions;
@@ -64,10 +65,12 @@ internal static class ServiceRegistration
         services.AddSingleton<SearchQueue>();
         services.AddSingleton<SearchRecovery>();
         services.AddTransient<SearchJob>();
+        services.AddTransient<SweepPartJob>();
+        services.AddSingleton<SweepParts>();
         // Before the Hangfire server so the store is migrated when the first job runs.
         services.AddHostedService<StartupTasks>();
         services.AddHostedService<RecoveryLoop>();
-        services.AddBitbudgetJobs(configured.Workers);
+        services.AddBitbudgetJobs(configured.RunsJobs);
         return builder;
     }
 
@@ -75,37 +78,60 @@ internal static class ServiceRegistration
     {
         services.AddSingleton(provider =>
         {
-            var data = provider.GetRequiredService<IOptions<BitbudgetOptions>>().Value.DataPath;
-            DataFolder.CreateDirectory(data);
-            DataFolder.CreatePrivateFile(Path.Combine(data, "bitbudget.db"));
-            return new Database(Path.Combine(data, "bitbudget.db"));
+            var options = provider.GetRequiredService<IOptions<BitbudgetOptions>>().Value;
+            if (options.Store == StoreKinds.Postgres)
+            {
+                return new Database(new PostgresDialect(options.ConnectionString!));
+            }
+
+            DataFolder.CreateDirectory(options.DataPath);
+            DataFolder.CreatePrivateFile(Path.Combine(options.DataPath, "bitbudget.db"));
+            return new Database(Path.Combine(options.DataPath, "bitbudget.db"));
         });
-        services.AddSingleton(provider => new BlobStore(Path.Combine(provider.GetRequiredService<IOptions<BitbudgetOptions>>().Value.DataPath, "blobs")));
+        services.AddSingleton(provider => new BlobStore(provider.GetRequiredService<IOptions<BitbudgetOptions>>().Value.BlobPath));
         services.AddSingleton<CatalogStore>();
         services.AddSingleton<SearchStore>();
+        services.AddSingleton<SweepPartStore>();
         services.AddSingleton<TrialStatistics>();
         services.AddSingleton<StoreProbe>();
         return services;
     }
 
-    private static IServiceCollection AddBitbudgetJobs(this IServiceCollection services, int workers)
+    private static IServiceCollection AddBitbudgetJobs(this IServiceCollection services, bool runsJobs)
     {
         services.AddHangfire((provider, hangfire) =>
         {
             var options = provider.GetRequiredService<IOptions<BitbudgetOptions>>().Value;
-            DataFolder.CreateDirectory(options.DataPath);
-            DataFolder.CreatePrivateFile(Path.Combine(options.DataPath, "jobs.db"));
             hangfire
                 .SetDataCompatibilityLevel(CompatibilityLevel.Version_180)
                 .UseSimpleAssemblyNameTypeSerializer()
-                .UseRecommendedSerializerSettings()
-                .UseSQLiteStorage(Path.Combine(options.DataPath, "jobs.db"), new SQLiteStorageOptions
-                {
-                    // The storage polls every 15 s by default, which leaves a new search waiting for nothing.
-                    QueuePollInterval = TimeSpan.FromMilliseconds(options.QueuePollIntervalMs),
-                });
+                .UseRecommendedSerializerSettings();
+            if (options.Store == StoreKinds.Postgres)
+            {
+                // Hangfire's own tables in a schema of their own beside the store's, in the same database.
+                hangfire.UsePostgreSqlStorage(
+                    connection => connection.UseNpgsqlConnection(options.ConnectionString),
+                    new PostgreSqlStorageOptions
+                    {
+                        SchemaName = "hangfire",
+                        PrepareSchemaIfNecessary = true,
+                        QueuePollInterval = TimeSpan.FromMilliseconds(options.QueuePollIntervalMs),
+                        // A job fetched by a worker that then died becomes visible again after this long; the store's
+                        // leases (Bitbudget:LeaseSeconds) hand its work to another worker long before that.
+                        InvisibilityTimeout = TimeSpan.FromMinutes(30),
+                    });
+                return;
+            }
+
+            DataFolder.CreateDirectory(options.DataPath);
+            DataFolder.CreatePrivateFile(Path.Combine(options.DataPath, "jobs.db"));
+            hangfire.UseSQLiteStorage(Path.Combine(options.DataPath, "jobs.db"), new SQLiteStorageOptions
+            {
+                // The storage polls every 15 s by default, which leaves a new search waiting for nothing.
+                QueuePollInterval = TimeSpan.FromMilliseconds(options.QueuePollIntervalMs),
+            });
         });
-        if (workers > 0)
+        if (runsJobs)
         {
             services.AddHangfireServer((provider, server) =>
             {

@@ -14,7 +14,7 @@ internal sealed partial class StartupTasks(Database database, BlobStore blobs, A
     public Task StartAsync(CancellationToken cancellationToken)
     {
         var version = database.Migrate();
-        LogStore(logger, database.Path, version);
+        LogStore(logger, database.Location, version);
         if (blobs.RemoveStaleStagedFiles(DateTimeOffset.UtcNow) is > 0 and var removed)
         {
             LogStaleStaged(logger, removed);

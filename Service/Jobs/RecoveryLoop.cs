@@ -15,7 +15,7 @@ internal sealed partial class RecoveryLoop(SearchRecovery recovery, IOptions<Bit
             {
                 recovery.Run();
             }
-            catch (Exception e) when (e is Microsoft.Data.Sqlite.SqliteException or InvalidOperationException)
+            catch (Exception e) when (e is System.Data.Common.DbException or InvalidOperationException)
             {
                 LogFailed(logger, e);
             }

@@ -22,6 +22,7 @@ internal sealed partial class SearchJob(
     ISearchEngine engine,
     SearchCancellations cancellations,
     StoreProbe probe,
+    SweepParts sweepParts,
     IOptions<BitbudgetOptions> options,
     ILogger<SearchJob> logger)
 {
@@ -69,7 +70,16 @@ internal sealed partial class SearchJob(
                 LogReusing(logger, searchId, reuse.Count, string.Join(", ", reuse));
             }
 
-            var trials = new TrialStore(database, searchId, reuse);
+            // A sweep reused from earlier searches needs no workers; otherwise it may be spread over them.
+            if (reuse.Count == 0 && sweepParts.Dispatch(searchId, modelBytes, model.Summary.Name, settings))
+            {
+                // Workers measure the parts; the one that finishes the last queues this job again.
+                searches.Release(searchId, owner);
+                LogDispatched(logger, searchId);
+                return;
+            }
+
+            var trials = new TrialStore(database, searchId, reuse, SweepPartJob.Worker);
 
             // The engine is synchronous and CPU-bound for minutes: give it a thread of its own rather than a pool thread.
             var result = await Task.Factory.StartNew(
@@ -221,7 +231,7 @@ internal sealed partial class SearchJob(
         {
             progress.Heartbeat();
         }
-        catch (Exception e) when (e is Microsoft.Data.Sqlite.SqliteException or ObjectDisposedException)
+        catch (Exception e) when (e is System.Data.Common.DbException or ObjectDisposedException)
         {
             LogHeartbeatFailed(logger, e);
         }
@@ -259,6 +269,9 @@ internal sealed partial class SearchJob(
 
     [LoggerMessage(EventId = 3011, Level = LogLevel.Information, Message = "Search {SearchId} reuses the sensitivity trials of {Count} earlier searches on the same model, dataset and settings: {EarlierIds}")]
     private static partial void LogReusing(ILogger logger, string searchId, int count, string earlierIds);
+
+    [LoggerMessage(EventId = 3012, Level = LogLevel.Information, Message = "Search {SearchId}: its sweep is in parts that any worker takes; this job ends until the last part is done")]
+    private static partial void LogDispatched(ILogger logger, string searchId);
 
     [LoggerMessage(EventId = 3009, Level = LogLevel.Warning, Message = "Could not renew a search lease")]
     private static partial void LogHeartbeatFailed(ILogger logger, Exception exception);

@@ -10,6 +10,11 @@ internal sealed class SearchQueue(IBackgroundJobClient client, JobStorage storag
     public string Enqueue(string searchId) =>
         client.Enqueue<SearchJob>(job => job.RunAsync(searchId, CancellationToken.None));
 
+    /// <summary>Queues one part of a search's sweep for any worker.</summary>
+    /// <returns>The Hangfire job id.</returns>
+    public string EnqueuePart(string searchId, int part) =>
+        client.Enqueue<SweepPartJob>(job => job.RunAsync(searchId, part, CancellationToken.None));
+
     public void Delete(string jobId) => client.Delete(jobId);
 
     /// <summary>True while the job exists and can still run (enqueued, scheduled, processing, or waiting for a retry).</summary>

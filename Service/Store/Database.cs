@@ -1,73 +1,76 @@
-using Microsoft.Data.Sqlite;
+using System.Data.Common;
 
 namespace Bitbudget.Service.Store;
 
-/// <summary>Opens connections to the service's SQLite file and brings its schema up to date.</summary>
-internal sealed class Database(string path)
+/// <summary>Opens connections to the store's database (SQLite by default, or a shared PostgreSQL) and brings its schema up to date.</summary>
+internal sealed class Database(StoreDialect dialect)
 {
-    // Microsoft.Data.Sqlite retries SQLITE_BUSY until the command timeout; busy_timeout covers the
-    // statements it runs outside commands (BEGIN, COMMIT).
-    private readonly string connectionString = new SqliteConnectionStringBuilder
+    /// <summary>The embedded SQLite store in one file.</summary>
+    public Database(string path)
+        : this(new SqliteDialect(path))
     {
-        DataSource = path,
-        Mode = SqliteOpenMode.ReadWriteCreate,
-        Cache = SqliteCacheMode.Private,
-        Pooling = true,
-        DefaultTimeout = 30,
-    }.ToString();
-
-    public string Path { get; } = path;
-
-    public SqliteConnection Open()
-    {
-        var connection = new SqliteConnection(connectionString);
-        connection.Open();
-        using var pragma = connection.CreateCommand();
-        pragma.CommandText = "PRAGMA busy_timeout = 10000; PRAGMA foreign_keys = ON; PRAGMA synchronous = NORMAL;";
-        pragma.ExecuteNonQuery();
-        return connection;
     }
 
-    /// <summary>Switches the file to WAL and applies every migration newer than the stored version; safe to run again.</summary>
+    public StoreDialect Dialect { get; } = dialect;
+
+    /// <summary>Where the store lives, for logs: the SQLite file or the PostgreSQL host and database.</summary>
+    public string Location => Dialect.Location;
+
+    public DbConnection Open() => Dialect.Open();
+
+    /// <summary>Applies every migration newer than the stored version; safe to run again, and from several processes at once.</summary>
     /// <returns>The schema version after migrating.</returns>
     public int Migrate()
     {
         using var connection = Open();
-        Execute(connection, "PRAGMA journal_mode = WAL;");
-        Execute(connection, "CREATE TABLE IF NOT EXISTS schema_version (version INTEGER NOT NULL, applied_at TEXT NOT NULL);");
-        using var transaction = connection.BeginTransaction();
-        var current = CurrentVersion(connection, transaction);
-        foreach (var (version, sql) in Migrations.All)
+        Dialect.PrepareForMigration(connection);
+        using (var create = connection.Command("CREATE TABLE IF NOT EXISTS schema_version (version INTEGER NOT NULL, applied_at TEXT NOT NULL);"))
         {
-            if (version <= current)
+            try
+            {
+                create.ExecuteNonQuery();
+            }
+            catch (DbException) when (Dialect is PostgresDialect)
+            {
+                // Two processes creating the table at once: PostgreSQL's IF NOT EXISTS can still collide on the
+                // catalog; the other one made it.
+            }
+        }
+
+        using var transaction = connection.BeginTransaction();
+        Dialect.LockForMigration(connection, transaction);
+        var current = CurrentVersion(connection, transaction);
+        foreach (var migration in Migrations.All)
+        {
+            if (migration.Version <= current)
             {
                 continue;
             }
 
-            Execute(connection, sql, transaction);
-            using var record = connection.CreateCommand();
-            record.Transaction = transaction;
-            record.CommandText = "INSERT INTO schema_version (version, applied_at) VALUES ($v, $t);";
-            record.Parameters.AddWithValue("$v", version);
-            record.Parameters.AddWithValue("$t", DateTimeOffset.UtcNow.ToString("O"));
+            using (var step = connection.Command(Dialect.SqlOf(migration), transaction))
+            {
+                step.ExecuteNonQuery();
+            }
+
+            using var record = connection.Command("INSERT INTO schema_version (version, applied_at) VALUES (@v, @t);", transaction)
+                .With("@v", migration.Version)
+                .With("@t", DateTimeOffset.UtcNow.ToString("O"));
             record.ExecuteNonQuery();
-            current = version;
+            current = migration.Version;
         }
 
         transaction.Commit();
         return current;
     }
 
-    /// <summary>Writes the one row of <c>store_probe</c>; throws when the file cannot take a write (disk full, read-only).</summary>
+    /// <summary>Writes the one row of <c>store_probe</c>; throws when the database cannot take a write (disk full, read-only).</summary>
     public void ProbeWrite()
     {
         using var connection = Open();
-        using var command = connection.CreateCommand();
-        command.CommandText = """
-            INSERT INTO store_probe (id, written_at) VALUES (1, $at)
+        using var command = connection.Command("""
+            INSERT INTO store_probe (id, written_at) VALUES (1, @at)
             ON CONFLICT(id) DO UPDATE SET written_at = excluded.written_at;
-            """;
-        command.Parameters.AddWithValue("$at", DateTimeOffset.UtcNow.ToString("O"));
+            """).With("@at", DateTimeOffset.UtcNow.ToString("O"));
         command.ExecuteNonQuery();
     }
 
@@ -77,19 +80,9 @@ internal sealed class Database(string path)
         return CurrentVersion(connection, null);
     }
 
-    private static int CurrentVersion(SqliteConnection connection, SqliteTransaction? transaction)
+    private static int CurrentVersion(DbConnection connection, DbTransaction? transaction)
     {
-        using var command = connection.CreateCommand();
-        command.Transaction = transaction;
-        command.CommandText = "SELECT COALESCE(MAX(version), 0) FROM schema_version;";
-        return Convert.ToInt32(command.ExecuteScalar(), System.Globalization.CultureInfo.InvariantCulture);
-    }
-
-    private static void Execute(SqliteConnection connection, string sql, SqliteTransaction? transaction = null)
-    {
-        using var command = connection.CreateCommand();
-        command.Transaction = transaction;
-        command.CommandText = sql;
-        command.ExecuteNonQuery();
+        using var command = connection.Command("SELECT COALESCE(MAX(version), 0) FROM schema_version;", transaction);
+        return (int)command.ScalarLong();
     }
 }

@@ -1,11 +1,15 @@
 namespace Bitbudget.Service.Store;
 
-/// <summary>The schema, one numbered step at a time; a released step is never edited, only followed by a new one.</summary>
+/// <summary>
+/// The schema, one numbered step at a time; a released step is never edited, only followed by a new one. Each
+/// step is written for SQLite and, where PostgreSQL needs other text, for PostgreSQL too (<see cref="PostgresSchema"/>);
+/// the store tests run every step on both.
+/// </summary>
 internal static class Migrations
 {
-    public static IReadOnlyList<(int Version, string Sql)> All { get; } =
+    public static IReadOnlyList<Migration> All { get; } =
     [
-        (1, """
+        new(1, """
             CREATE TABLE models (
                 id TEXT PRIMARY KEY,
                 sha256 TEXT NOT NULL UNIQUE,
@@ -68,12 +72,13 @@ internal static class Migrations
                 measured REAL NOT NULL,
                 trial_count INTEGER NOT NULL,
                 created_at TEXT NOT NULL);
-            """),
+            """,
+            Postgres: PostgresSchema.Step1),
         // Results of an infeasible search have no assignment, so its size and errors are NULL (SQLite cannot
         // hold NaN); results also carry warnings, held-out figures and the written file's size. Failures count
         // failed runs, not restarts. Counters kept by triggers in the writing transaction let /metrics read a
         // few rows instead of scanning the trials table.
-        (2, """
+        new(2, """
             CREATE TABLE results_v2 (
                 search_id TEXT PRIMARY KEY REFERENCES searches(id),
                 feasible INTEGER NOT NULL,
@@ -138,15 +143,44 @@ internal static class Migrations
                 sum_ms = (SELECT COALESCE(SUM(p.duration_ms), 0) FROM placed p WHERE p.bucket = trial_buckets.bucket);
 
             CREATE TABLE store_probe (id INTEGER PRIMARY KEY CHECK (id = 1), written_at TEXT NOT NULL);
-            """),
+            """,
+            Postgres: PostgresSchema.Step2),
         // One vocabulary (manifest format 4): a search's settings say "clip" where they said "calibration", and
         // sensitivity trial keys spell granularity and clip as the API does ("4b-symmetric-per-channel-min-max",
         // was "4b-symmetric-perchannel-minmax"), so a stored search resumed by this version finds its trials.
         // Each replace is anchored on the scheme that precedes the granularity in a key. Validation keys hash
         // a text that did not change (TrialKeys.AssignmentHash) and need nothing.
-        (3, """
+        new(3, ClipSetting + TrialKeyRenames, Postgres: PostgresSchema.Step3ClipSetting + TrialKeyRenames),
+        // A search spread over several workers: its sweep in parts (groups of whole layers), each taken by one
+        // worker at a time under a lease; parts_left counts down as parts finish, so exactly one worker (the last)
+        // queues the search's final stage. Trials say which worker measured them.
+        new(4, """
+            CREATE TABLE sweep_parts (
+                search_id TEXT NOT NULL REFERENCES searches(id),
+                part INTEGER NOT NULL,
+                layers_json TEXT NOT NULL,
+                trials INTEGER NOT NULL,
+                state TEXT NOT NULL DEFAULT 'pending',
+                job_id TEXT,
+                lease_owner TEXT,
+                lease_until TEXT,
+                attempts INTEGER NOT NULL DEFAULT 0,
+                finished_by TEXT,
+                finished_at TEXT,
+                PRIMARY KEY (search_id, part));
+            ALTER TABLE searches ADD COLUMN parts_left INTEGER;
+            ALTER TABLE trials ADD COLUMN measured_by TEXT;
+            """),
+    ];
+
+    // Step 3's parts: the settings rename in SQLite's JSON functions (PostgreSQL's is PostgresSchema.Step3ClipSetting)
+    // and the trial key renames, which are plain SQL on both.
+    private const string ClipSetting = """
             UPDATE searches SET settings_json = json_set(json_remove(settings_json, '$.calibration'), '$.clip', json_extract(settings_json, '$.calibration'))
                 WHERE json_type(settings_json, '$.calibration') IS NOT NULL;
+            """;
+
+    private const string TrialKeyRenames = """
             UPDATE trials SET key = replace(key, 'symmetric-perchannel-', 'symmetric-per-channel-') WHERE kind = 'sensitivity';
             UPDATE trials SET key = replace(key, 'symmetric-pertensor-', 'symmetric-per-tensor-') WHERE kind = 'sensitivity';
             UPDATE trials SET key = replace(key, 'symmetric-per-channel-minmax', 'symmetric-per-channel-min-max') WHERE kind = 'sensitivity';
@@ -157,6 +191,5 @@ internal static class Migrations
             UPDATE trials SET key = replace(key, 'symmetric-per-tensor-analyticlaplace', 'symmetric-per-tensor-analytic-laplace') WHERE kind = 'sensitivity';
             UPDATE trials SET key = replace(key, 'symmetric-per-channel-analyticgaussian', 'symmetric-per-channel-analytic-gaussian') WHERE kind = 'sensitivity';
             UPDATE trials SET key = replace(key, 'symmetric-per-tensor-analyticgaussian', 'symmetric-per-tensor-analytic-gaussian') WHERE kind = 'sensitivity';
-            """),
-    ];
+            """;
 }

@@ -1,6 +1,7 @@
 using Bitbudget.Search;
 using Bitbudget.Service.Problems;
 using Microsoft.Data.Sqlite;
+using Npgsql;
 
 namespace Bitbudget.Service.Store;
 
@@ -12,9 +13,6 @@ namespace Bitbudget.Service.Store;
 /// </summary>
 internal static class StorageFault
 {
-    // SQLite result codes (sqlite.org/rescode.html): READONLY 8, IOERR 10, FULL 13, CANTOPEN 14.
-    private static readonly int[] SqliteStorageCodes = [8, 10, 13, 14];
-
     // An IOException's HResult is the errno on Unix (EIO 5, ENOSPC 28, EROFS 30, EDQUOT 122) and
     // ERROR_HANDLE_DISK_FULL / ERROR_DISK_FULL on Windows.
     private static readonly int[] DiskErrors = [5, 28, 30, 122, unchecked((int)0x80070027), unchecked((int)0x80070070)];
@@ -23,7 +21,8 @@ internal static class StorageFault
     {
         // Refusals of the input, even when a parser's I/O exception sits inside them (a truncated protobuf).
         EngineException or ServiceException or BadHttpRequestException => false,
-        SqliteException sqlite => SqliteStorageCodes.Contains(sqlite.SqliteErrorCode),
+        SqliteException sqlite => SqliteDialect.IsStorageFault(sqlite),
+        NpgsqlException postgres => PostgresDialect.IsStorageFault(postgres),
         IOException io => DiskErrors.Contains(io.HResult),
         UnauthorizedAccessException => true,
         AggregateException { InnerExceptions: [var inner] } => Is(inner),

@@ -22,7 +22,7 @@ internal sealed class StoreProbe(Database database, BlobStore blobs)
         {
             database.ProbeWrite();
         }
-        catch (Exception e) when (e is Microsoft.Data.Sqlite.SqliteException || StorageFault.Is(e))
+        catch (Exception e) when (e is System.Data.Common.DbException || StorageFault.Is(e))
         {
             faults.Add($"the database cannot be written ({e.Message})");
         }

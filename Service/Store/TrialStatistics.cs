@@ -24,8 +24,8 @@ internal sealed class TrialStatistics(Database database)
         var sumMs = 0.0;
         while (reader.Read())
         {
-            var bucket = Math.Min(reader.GetInt32(0), cumulative.Length - 1);
-            cumulative[bucket] += reader.GetInt64(1);
+            var bucket = Math.Min(reader.Int(0), cumulative.Length - 1);
+            cumulative[bucket] += reader.Long(1);
             sumMs += reader.GetDouble(2);
         }
 

@@ -1,3 +1,4 @@
+using System.Data.Common;
 using Bitbudget.Search.Evaluation;
 using Bitbudget.Search.Planning;
 
@@ -10,7 +11,8 @@ namespace Bitbudget.Service.Store;
 /// <see cref="TrialContext"/>), their sensitivity trials are read as this search's own, so it does not sweep
 /// again; they are not copied, so this search's trial list (<see cref="Page"/>) holds only what it measured.
 /// </summary>
-internal sealed class TrialStore(Database database, string searchId, IReadOnlyList<string>? reuseFrom = null) : ITrialStore
+/// <param name="measuredBy">The worker that measures through this store (kept with each trial it saves), or null.</param>
+internal sealed class TrialStore(Database database, string searchId, IReadOnlyList<string>? reuseFrom = null, string? measuredBy = null) : ITrialStore
 {
     public IReadOnlyDictionary<string, TrialRecord> LoadAll()
     {
@@ -30,11 +32,11 @@ internal sealed class TrialStore(Database database, string searchId, IReadOnlyLi
     {
         using var connection = database.Open();
         using var command = connection.CreateCommand();
-        command.CommandText = """
+        command.CommandText = $"""
             SELECT key, kind, layer, bits, assignment_hash, metrics_json, duration_ms
-            FROM trials WHERE search_id = $id ORDER BY rowid;
+            FROM trials WHERE search_id = @id ORDER BY {database.Dialect.InsertOrder};
             """;
-        command.Parameters.AddWithValue("$id", searchId);
+        command.With("@id", searchId);
         var trials = new Dictionary<string, TrialRecord>(StringComparer.Ordinal);
         using var reader = command.ExecuteReader();
         while (reader.Read())
@@ -52,19 +54,20 @@ internal sealed class TrialStore(Database database, string searchId, IReadOnlyLi
         using var connection = database.Open();
         using var command = connection.CreateCommand();
         command.CommandText = """
-            INSERT INTO trials (search_id, key, kind, layer, bits, assignment_hash, metrics_json, duration_ms, created_at)
-            VALUES ($id, $key, $kind, $layer, $bits, $hash, $metrics, $duration, $at)
+            INSERT INTO trials (search_id, key, kind, layer, bits, assignment_hash, metrics_json, duration_ms, created_at, measured_by)
+            VALUES (@id, @key, @kind, @layer, @bits, @hash, @metrics, @duration, @at, @by)
             ON CONFLICT(search_id, key) DO NOTHING;
             """;
-        command.Parameters.AddWithValue("$id", searchId);
-        command.Parameters.AddWithValue("$key", trial.Key);
-        command.Parameters.AddWithValue("$kind", trial.Kind);
-        command.Parameters.AddWithValue("$layer", (object?)trial.Layer ?? DBNull.Value);
-        command.Parameters.AddWithValue("$bits", (object?)trial.Bits ?? DBNull.Value);
-        command.Parameters.AddWithValue("$hash", (object?)trial.AssignmentHash ?? DBNull.Value);
-        command.Parameters.AddWithValue("$metrics", StoreJson.Write(trial.Metrics));
-        command.Parameters.AddWithValue("$duration", trial.DurationMs);
-        command.Parameters.AddWithValue("$at", Clock.Format(DateTimeOffset.UtcNow));
+        command.With("@id", searchId);
+        command.With("@key", trial.Key);
+        command.With("@kind", trial.Kind);
+        command.With("@layer", (object?)trial.Layer ?? DBNull.Value);
+        command.With("@bits", (object?)trial.Bits ?? DBNull.Value);
+        command.With("@hash", (object?)trial.AssignmentHash ?? DBNull.Value);
+        command.With("@metrics", StoreJson.Write(trial.Metrics));
+        command.With("@duration", trial.DurationMs);
+        command.With("@at", Clock.Format(DateTimeOffset.UtcNow));
+        command.With("@by", measuredBy);
         command.ExecuteNonQuery();
     }
 
@@ -73,14 +76,14 @@ internal sealed class TrialStore(Database database, string searchId, IReadOnlyLi
     {
         using var connection = database.Open();
         using var command = connection.CreateCommand();
-        var names = searchIds.Select((_, i) => $"$s{i}").ToList();
+        var names = searchIds.Select((_, i) => $"@s{i}").ToList();
         command.CommandText = $"""
             SELECT key, kind, layer, bits, assignment_hash, metrics_json, duration_ms
-            FROM trials WHERE kind = 'sensitivity' AND search_id IN ({string.Join(", ", names)}) ORDER BY rowid;
+            FROM trials WHERE kind = 'sensitivity' AND search_id IN ({string.Join(", ", names)}) ORDER BY {database.Dialect.InsertOrder};
             """;
         for (var i = 0; i < names.Count; i++)
         {
-            command.Parameters.AddWithValue(names[i], searchIds[i]);
+            command.With(names[i], searchIds[i]);
         }
 
         var trials = new List<TrialRecord>();
@@ -93,23 +96,39 @@ internal sealed class TrialStore(Database database, string searchId, IReadOnlyLi
         return trials;
     }
 
+    /// <summary>How many trials each worker measured for this search (trials saved without a worker name are left out).</summary>
+    public IReadOnlyDictionary<string, int> CountByWorker()
+    {
+        using var connection = database.Open();
+        using var command = connection.Command("SELECT measured_by, COUNT(*) FROM trials WHERE search_id = @id AND measured_by IS NOT NULL GROUP BY measured_by;")
+            .With("@id", searchId);
+        var counts = new Dictionary<string, int>(StringComparer.Ordinal);
+        using var reader = command.ExecuteReader();
+        while (reader.Read())
+        {
+            counts[reader.GetString(0)] = reader.Int(1);
+        }
+
+        return counts;
+    }
+
     /// <summary>One page of trials in the order they were stored, and how many there are in all.</summary>
     public (long Total, IReadOnlyList<TrialRecord> Items) Page(int offset, int limit)
     {
         using var connection = database.Open();
         using var count = connection.CreateCommand();
-        count.CommandText = "SELECT COUNT(*) FROM trials WHERE search_id = $id;";
-        count.Parameters.AddWithValue("$id", searchId);
+        count.CommandText = "SELECT COUNT(*) FROM trials WHERE search_id = @id;";
+        count.With("@id", searchId);
         var total = Convert.ToInt64(count.ExecuteScalar(), System.Globalization.CultureInfo.InvariantCulture);
 
         using var command = connection.CreateCommand();
-        command.CommandText = """
+        command.CommandText = $"""
             SELECT key, kind, layer, bits, assignment_hash, metrics_json, duration_ms
-            FROM trials WHERE search_id = $id ORDER BY rowid LIMIT $limit OFFSET $offset;
+            FROM trials WHERE search_id = @id ORDER BY {database.Dialect.InsertOrder} LIMIT @limit OFFSET @offset;
             """;
-        command.Parameters.AddWithValue("$id", searchId);
-        command.Parameters.AddWithValue("$limit", limit);
-        command.Parameters.AddWithValue("$offset", offset);
+        command.With("@id", searchId);
+        command.With("@limit", limit);
+        command.With("@offset", offset);
         var items = new List<TrialRecord>();
         using var reader = command.ExecuteReader();
         while (reader.Read())
@@ -120,11 +139,11 @@ internal sealed class TrialStore(Database database, string searchId, IReadOnlyLi
         return (total, items);
     }
 
-    private static TrialRecord ReadTrial(Microsoft.Data.Sqlite.SqliteDataReader reader) => new(
+    private static TrialRecord ReadTrial(DbDataReader reader) => new(
         reader.GetString(0),
         reader.GetString(1),
         reader.IsDBNull(2) ? null : reader.GetString(2),
-        reader.IsDBNull(3) ? null : reader.GetInt32(3),
+        reader.IsDBNull(3) ? null : reader.Int(3),
         reader.IsDBNull(4) ? null : reader.GetString(4),
         StoreJson.Read<MetricSet>(reader.GetString(5)),
         reader.GetDouble(6));

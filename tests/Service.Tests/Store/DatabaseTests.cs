@@ -11,7 +11,7 @@ public sealed class DatabaseTests : IDisposable
     public void MigratingAgainChangesNothing()
     {
         var again = seed.Database.Migrate();
-        var third = new Database(seed.Database.Path).Migrate();
+        var third = new Database(seed.Database.Location).Migrate();
 
         Assert.Equal(Migrations.All.Max(m => m.Version), again);
         Assert.Equal(again, third);

@@ -20,7 +20,7 @@ public sealed class MigrationsTests : IDisposable
             // A store as version 2 left it: settings say "calibration", sensitivity keys run the enum names together.
             // A layer whose name contains an old spelling keeps its name.
             command.CommandText = "CREATE TABLE schema_version (version INTEGER NOT NULL, applied_at TEXT NOT NULL);"
-                + string.Concat(Migrations.All.Where(m => m.Version <= 2).Select(m => m.Sql))
+                + string.Concat(Migrations.All.Where(m => m.Version <= 2).Select(m => m.Sqlite))
                 + """
                 INSERT INTO schema_version VALUES (1, '2026-01-01T00:00:00Z'), (2, '2026-01-01T00:00:00Z');
                 INSERT INTO models VALUES ('mdl_1', 'sha', 'm', 1, '{}', '2026-01-01T00:00:00Z');

@@ -3,10 +3,11 @@ using Bitbudget.Service.Tests.Support;
 
 namespace Bitbudget.Service.Tests.Store;
 
-public sealed class SearchStoreTests : IDisposable
+/// <remarks>Runs on each store backend: <see cref="OnSqlite"/> and <see cref="OnPostgres"/>.</remarks>
+public abstract class SearchStoreTests(StoreBackend backend) : IDisposable
 {
     private static readonly TimeSpan Lease = TimeSpan.FromMinutes(1);
-    private readonly StoreSeed seed = new();
+    private readonly StoreSeed seed = new(backend);
 
     [Fact]
     public void OnlyOneRunHoldsASearchAtATime()
@@ -76,8 +77,16 @@ public sealed class SearchStoreTests : IDisposable
         Assert.Equal(StoreSeed.Spec.Budget, retry.Spec.Budget);
     }
 
-    public void Dispose() => seed.Dispose();
+    public void Dispose()
+    {
+        seed.Dispose();
+        GC.SuppressFinalize(this);
+    }
 
     private static ResultRecord Result(string id) =>
         new(id, true, "ok", new string('a', 64), null, new string('b', 64), new string('c', 64), 100, 4, 8, 30, 29.5, 12);
+
+    public sealed class OnSqlite() : SearchStoreTests(StoreBackend.Sqlite);
+
+    public sealed class OnPostgres() : SearchStoreTests(StoreBackend.Postgres);
 }

@@ -9,12 +9,13 @@ namespace Bitbudget.Service.Tests.Store;
 /// The metrics counters: kept by triggers as trials and searches are written, so a scrape never reads the
 /// trials (or searches) table. Checked against the histogram computed here directly from the durations.
 /// </summary>
-public sealed class TrialStatisticsTests : IDisposable
+/// <remarks>Runs on each store backend: <see cref="OnSqlite"/> and <see cref="OnPostgres"/>.</remarks>
+public abstract class TrialStatisticsTests(StoreBackend backend) : IDisposable
 {
     // Bucket edges (inclusive upper bounds, Prometheus "le") and a hair above them, plus one past the last bound.
     private static readonly double[] Durations = [0.5, 10, 10.001, 25, 99.9, 100, 2500, 2500.5, 30000, 30000.1, 125000];
 
-    private readonly StoreSeed seed = new();
+    private readonly StoreSeed seed = new(backend);
 
     [Fact]
     public void HistogramMatchesTheDurationsCountedDirectly()
@@ -94,7 +95,7 @@ public sealed class TrialStatisticsTests : IDisposable
         {
             // A store as version 1 left it, with a search and three trials.
             command.CommandText = "CREATE TABLE schema_version (version INTEGER NOT NULL, applied_at TEXT NOT NULL);"
-                + Migrations.All.Single(m => m.Version == 1).Sql
+                + Migrations.All.Single(m => m.Version == 1).Sqlite
                 + """
                 INSERT INTO schema_version VALUES (1, '2026-01-01T00:00:00Z');
                 INSERT INTO models VALUES ('mdl_1', 'sha', 'm', 1, '{}', '2026-01-01T00:00:00Z');
@@ -121,7 +122,11 @@ public sealed class TrialStatisticsTests : IDisposable
         Assert.Equal(31.5, new SearchStore(old).FindResult("srch_1")!.Measured);
     }
 
-    public void Dispose() => seed.Dispose();
+    public void Dispose()
+    {
+        seed.Dispose();
+        GC.SuppressFinalize(this);
+    }
 
     private static TrialRecord Trial(string key, double durationMs) =>
         new(key, "sensitivity", "fc", 4, null, new MetricSet(0.01, 20, 1, 0, 1, null), durationMs);
@@ -148,4 +153,8 @@ public sealed class TrialStatisticsTests : IDisposable
         command.CommandText = sql;
         command.ExecuteNonQuery();
     }
+
+    public sealed class OnSqlite() : TrialStatisticsTests(StoreBackend.Sqlite);
+
+    public sealed class OnPostgres() : TrialStatisticsTests(StoreBackend.Postgres);
 }

@@ -5,9 +5,10 @@ using Bitbudget.Service.Tests.Support;
 
 namespace Bitbudget.Service.Tests.Store;
 
-public sealed class TrialStoreTests : IDisposable
+/// <remarks>Runs on each store backend: <see cref="OnSqlite"/> and <see cref="OnPostgres"/>.</remarks>
+public abstract class TrialStoreTests(StoreBackend backend) : IDisposable
 {
-    private readonly StoreSeed seed = new();
+    private readonly StoreSeed seed = new(backend);
 
     [Fact]
     public void SavingAStoredKeyAgainChangesNothing()
@@ -70,8 +71,16 @@ public sealed class TrialStoreTests : IDisposable
         Assert.Equal(["t5", "t4", "t3"], items.Select(t => t.Key));
     }
 
-    public void Dispose() => seed.Dispose();
+    public void Dispose()
+    {
+        seed.Dispose();
+        GC.SuppressFinalize(this);
+    }
 
     private static TrialRecord Trial(string key, double sqnr) =>
         new(key, "sensitivity", "fc", 4, null, new MetricSet(Math.Pow(10, -sqnr / 10), sqnr, 1, 0, 1, null), 1.5);
+
+    public sealed class OnSqlite() : TrialStoreTests(StoreBackend.Sqlite);
+
+    public sealed class OnPostgres() : TrialStoreTests(StoreBackend.Postgres);
 }

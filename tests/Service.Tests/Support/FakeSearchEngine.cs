@@ -231,6 +231,30 @@ internal sealed class FakeSearchEngine : ISearchEngine
             trials.LoadAll().Count);
     }
 
+    public IReadOnlyList<LayerTrials> PlanSweep(byte[] model, string modelName, SearchSettings settings) =>
+        InspectModel(model, modelName).Layers
+            .Where(l => settings.Excluded?.Contains(l.Name) != true)
+            .Select(l => new LayerTrials(l.Name, (settings.Bits.Count == 0 ? SearchSettings.DefaultBits : settings.Bits).Count))
+            .ToList();
+
+    /// <summary>Measures the sensitivity trials of <paramref name="layers"/> under the keys <see cref="RunSearch"/> uses, so it finds them stored.</summary>
+    public void SweepLayers(byte[] model, string modelName, byte[] dataset, SearchSettings settings, IReadOnlyCollection<string> layers, ITrialStore trials, CancellationToken cancellationToken)
+    {
+        var bits = settings.Bits.Count == 0 ? SearchSettings.DefaultBits : settings.Bits;
+        var measured = Measured.GetOrAdd(modelName, _ => new ConcurrentQueue<string>());
+        trials.Save(new TrialRecord("reference", "reference", null, null, null, Metrics(double.PositiveInfinity), 2.0));
+        foreach (var layer in layers)
+        {
+            foreach (var b in bits)
+            {
+                cancellationToken.ThrowIfCancellationRequested();
+                var key = $"sensitivity/{layer}/{b}/{settings.Scheme}";
+                measured.Enqueue(key);
+                trials.Save(new TrialRecord(key, "sensitivity", layer, b, null, Metrics(Sqnr(layer, b)), 2.0 + b));
+            }
+        }
+    }
+
     /// <summary>6.02 dB per bit (common practice) plus a fixed offset per layer name.</summary>
     public static double Sqnr(string layer, int bits) => (6.02 * bits) + (layer.Length % 5);
 

@@ -4,18 +4,35 @@ using Bitbudget.Service.Store;
 
 namespace Bitbudget.Service.Tests.Support;
 
-/// <summary>A migrated store in a temporary folder, with rows the store tests build on.</summary>
+/// <summary>
+/// A migrated store, on SQLite in a temporary folder or on a fresh PostgreSQL database of its own, with rows the
+/// store tests build on.
+/// </summary>
 internal sealed class StoreSeed : IDisposable
 {
-    public StoreSeed()
+    private readonly string? postgres;
+
+    public StoreSeed(StoreBackend backend = StoreBackend.Sqlite)
     {
+        Backend = backend;
         Folder = Path.Combine(Path.GetTempPath(), "bitbudget-tests", Guid.NewGuid().ToString("N"));
         Directory.CreateDirectory(Folder);
-        Database = new Database(Path.Combine(Folder, "store.db"));
+        if (backend == StoreBackend.Postgres)
+        {
+            postgres = TestPostgres.CreateDatabase();
+            Database = new Database(new PostgresDialect(postgres));
+        }
+        else
+        {
+            Database = new Database(Path.Combine(Folder, "store.db"));
+        }
+
         Database.Migrate();
         Catalog = new CatalogStore(Database);
         Searches = new SearchStore(Database);
     }
+
+    public StoreBackend Backend { get; }
 
     public string Folder { get; }
 
@@ -39,5 +56,9 @@ internal sealed class StoreSeed : IDisposable
     {
         Microsoft.Data.Sqlite.SqliteConnection.ClearAllPools();
         Directory.Delete(Folder, recursive: true);
+        if (postgres is not null)
+        {
+            TestPostgres.DropDatabase(postgres);
+        }
     }
 }
