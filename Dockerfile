@@ -20,7 +20,9 @@ RUN dotnet publish Service/Service.csproj -c Release -o /app --no-restore
 FROM mcr.microsoft.com/dotnet/aspnet:10.0
 WORKDIR /app
 COPY --from=build /app ./
-RUN mkdir -p /data && chown "$APP_UID" /data
+# /blobs exists owned by the app user so a named volume mounted there (deploy/compose.yaml, shared by the
+# API and the workers) starts writable.
+RUN mkdir -p /data /blobs && chown "$APP_UID" /data /blobs
 # Everything the service keeps (store, job queue, blobs, logs, generated API key) lives in /data.
 VOLUME /data
 ENV Bitbudget__DataFolder=/data \

@@ -13,6 +13,9 @@ internal sealed class EngineAdapter(IOptions<BitbudgetOptions> options) : ISearc
         MaxTotalBytes: options.Value.MaxDatasetDecodedBytes,
         MaxArrayBytes: options.Value.MaxDatasetDecodedBytes);
 
+    /// <summary>The session settings every run of this process uses (Bitbudget:OnnxThreads).</summary>
+    private TrialSessionOptions SessionOptions => new() { IntraOpThreads = options.Value.OnnxThreads };
+
     public ModelSummary InspectModel(byte[] bytes, string name)
     {
         var model = OnnxModel.Load(bytes, name);
@@ -69,7 +72,7 @@ internal sealed class EngineAdapter(IOptions<BitbudgetOptions> options) : ISearc
         var loaded = OnnxModel.Load(model, modelName, settings.TargetOpset);
         var data = CalibrationSet.Create(DatasetReader.Read(dataset, Limits), loaded.Inputs, settings.SampleAxes);
         var held = holdout is null ? null : CalibrationSet.Create(DatasetReader.Read(holdout, Limits), loaded.Inputs, settings.SampleAxes);
-        return SearchRunner.Run(loaded, data, settings, trials, progress, cancellationToken, holdout: held);
+        return SearchRunner.Run(loaded, data, settings, trials, progress, cancellationToken, SessionOptions, holdout: held);
     }
 
     public IReadOnlyList<LayerTrials> PlanSweep(byte[] model, string modelName, SearchSettings settings) =>
@@ -89,7 +92,7 @@ internal sealed class EngineAdapter(IOptions<BitbudgetOptions> options) : ISearc
     {
         var loaded = OnnxModel.Load(model, modelName, settings.TargetOpset);
         var data = CalibrationSet.Create(DatasetReader.Read(dataset, Limits), loaded.Inputs, settings.SampleAxes);
-        SearchRunner.SweepLayers(loaded, data, settings, layers, trials, progress: null, cancellationToken);
+        SearchRunner.SweepLayers(loaded, data, settings, layers, trials, progress: null, cancellationToken, SessionOptions);
     }
 
 }

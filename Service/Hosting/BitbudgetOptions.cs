@@ -39,6 +39,10 @@ internal sealed class BitbudgetOptions
     [Range(1, 1_000)]
     public int SweepParts { get; set; } = 1;
 
+    /// <summary>ONNX Runtime intra-op threads per search run; unset lets ONNX Runtime choose (one per core). Set it to the cores a worker process is given.</summary>
+    [Range(1, 256)]
+    public int? OnnxThreads { get; set; }
+
     /// <summary>Hangfire workers in this process; 0 makes the process API-only.</summary>
     [Range(0, 64)]
     public int Workers { get; set; } = 1;
