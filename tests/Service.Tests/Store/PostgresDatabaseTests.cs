@@ -46,7 +46,7 @@ public sealed class PostgresDatabaseTests : IDisposable
             INSERT INTO datasets (id, sha256, bytes, summary_json, created_at) VALUES ('dst_1', 'sha', 1, '{}', 'x');
             INSERT INTO searches (id, model_id, dataset_id, settings_json, state, request_hash, created_at) VALUES ('srch_1', 'mdl_1', 'dst_1',
                 '{"budget":{"metric":"sqnr","atLeast":30},"bits":[4,8],"method":"knapsack","scheme":"asymmetric","granularity":"per-tensor","calibration":"mse-optimal","activations":false,"pin":{},"exclude":[],"storage":"container"}',
-                'running', 'h', 'x');
+                'running', 'h', '2026-01-01T00:00:00Z');
             INSERT INTO trials (search_id, key, kind, layer, bits, metrics_json, duration_ms, created_at)
                 VALUES ('srch_1', 'sensitivity/fc/4b-asymmetric-pertensor-mseoptimal', 'sensitivity', 'fc', 4, '{}', 5, 'x');
             """))
