@@ -83,7 +83,7 @@ public abstract class SweepPartStoreTests(StoreBackend backend) : IDisposable
         parts.Create(search.Id, Plan);
         seed.Searches.Release(search.Id, "owner");
         parts.TryClaim(search.Id, 1, "w", Lease);
-        var trials = new TrialStore(seed.Database, search.Id, "worker-1");
+        var trials = new TrialStore(seed.Database, search.Id, measuredBy: "worker-1");
         trials.Save(new("reference", "reference", null, null, null, new(0, double.PositiveInfinity, 1, 0, 1, null), 1));
         trials.Save(new("sensitivity/conv3/4", "sensitivity", "conv3", 4, null, new(0.1, 10, 1, 0, 1, null), 1));
 
