@@ -117,7 +117,7 @@ public sealed class RealBinaryTests : IDisposable
     private string Folder(string name) => Directory.CreateDirectory(Path.Combine(_root, name)).FullName;
 
     /// <summary>Random crops in [-1, 1) for the OCR classifier's input 'x' [N,3,48,192].</summary>
-    private static byte[] OcrDataset(int samples)
+    internal static byte[] OcrDataset(int samples)
     {
         var random = new Random(3);
         var x = new float[samples * 3 * 48 * 192];
@@ -131,7 +131,7 @@ public sealed class RealBinaryTests : IDisposable
         return stream.ToArray();
     }
 
-    private static async Task<JsonNode> WaitAsync(HttpClient client, string id, TimeSpan limit)
+    internal static async Task<JsonNode> WaitAsync(HttpClient client, string id, TimeSpan limit)
     {
         var deadline = DateTime.UtcNow + limit;
         while (true)
@@ -149,7 +149,7 @@ public sealed class RealBinaryTests : IDisposable
     }
 
     /// <summary>Every stored trial of a search (all pages): key to its metrics as JSON text.</summary>
-    private static async Task<Dictionary<string, string>> TrialsAsync(HttpClient client, string id)
+    internal static async Task<Dictionary<string, string>> TrialsAsync(HttpClient client, string id)
     {
         var trials = new Dictionary<string, string>(StringComparer.Ordinal);
         for (var offset = 0; ; offset += 100)
@@ -168,7 +168,7 @@ public sealed class RealBinaryTests : IDisposable
         }
     }
 
-    private static string WithoutTimestamp(string manifest)
+    internal static string WithoutTimestamp(string manifest)
     {
         var node = JsonNode.Parse(manifest)!;
         node["createdAt"] = null;

@@ -28,8 +28,12 @@ internal sealed class ServiceProcess : IDisposable
     /// <summary>Where the service listens, e.g. http://127.0.0.1:40123.</summary>
     public Uri BaseAddress => Client.BaseAddress!;
 
+    /// <summary>The process id, which names the worker in the store (machine:pid).</summary>
+    public int ProcessId => _process.Id;
+
     /// <summary>Starts the binary and waits until /healthz answers.</summary>
-    public static async Task<ServiceProcess> StartAsync(string dataFolder)
+    /// <param name="settings">More command-line settings, e.g. <c>--Bitbudget:Role=worker</c>.</param>
+    public static async Task<ServiceProcess> StartAsync(string dataFolder, params string[] settings)
     {
         var port = FreePort();
         var binary = Path.Combine(AppContext.BaseDirectory, "Bitbudget.Service.dll");
@@ -46,6 +50,11 @@ internal sealed class ServiceProcess : IDisposable
             UseShellExecute = false,
             WorkingDirectory = dataFolder,
         };
+        foreach (var setting in settings)
+        {
+            start.ArgumentList.Add(setting);
+        }
+
         start.Environment["BITBUDGET_API_KEYS"] = ApiKey;
         var process = Process.Start(start)!;
         process.OutputDataReceived += (_, _) => { };
