@@ -28,7 +28,7 @@ cleanup() {
 trap cleanup EXIT
 
 # The test server's connection string as a libpq URI for psql, on database $1.
-conn() { /usr/bin/python3 -c 'import sys; d = dict(p.split("=", 1) for p in sys.argv[1].split(";") if p); print(f"postgresql://{d["Username"]}@{d["Host"]}:{d["Port"]}/{sys.argv[2]}")' "$BITBUDGET_TEST_POSTGRES" "$1"; }
+conn() { /usr/bin/python3 -c 'import sys; d = dict(p.split("=", 1) for p in sys.argv[1].split(";") if p); print("postgresql://%s@%s:%s/%s" % (d["Username"], d["Host"], d["Port"], sys.argv[2]))' "$BITBUDGET_TEST_POSTGRES" "$1"; }
 free_port() { /usr/bin/python3 -c 'import socket; s = socket.socket(); s.bind(("127.0.0.1", 0)); print(s.getsockname()[1]); s.close()'; }
 json() { /usr/bin/python3 -c "import json, sys; print(json.load(sys.stdin)$1)"; }
 
