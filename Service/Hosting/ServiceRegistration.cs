@@ -44,7 +44,11 @@ internal static class ServiceRegistration
                 Path.Combine(provider.GetRequiredService<IOptions<BitbudgetOptions>>().Value.DataPath, "logs", "bitbudget-.log"),
                 rollingInterval: RollingInterval.Day,
                 retainedFileCountLimit: 14,
-                outputTemplate: "{Timestamp:O} [{Level:u3}] {SearchId} {SourceContext}: {Message:lj}{NewLine}{Exception}"));
+                outputTemplate: "{Timestamp:O} [{Level:u3}] {SearchId} {SourceContext}: {Message:lj}{NewLine}{Exception}"),
+            // Each host keeps its own logger: with the default, the host's logger factory writes through the process-wide
+            // Log.Logger, which the next host built in the process replaces and a disposed host closes, so a host's lines
+            // went to another host's file or nowhere (seen as a flaky key-file test when test hosts run in parallel).
+            preserveStaticLogger: true);
 
         services.ConfigureHttpJsonOptions(json =>
             json.SerializerOptions.NumberHandling = System.Text.Json.Serialization.JsonNumberHandling.AllowNamedFloatingPointLiterals);

@@ -2,6 +2,8 @@ using System.Net;
 using Bitbudget.Service.Hosting;
 using Bitbudget.Service.Store;
 using Bitbudget.Service.Tests.Support;
+using Microsoft.Extensions.DependencyInjection;
+using Microsoft.Extensions.Logging;
 using Microsoft.Extensions.Options;
 
 namespace Bitbudget.Service.Tests.Hosting;
@@ -23,6 +25,29 @@ public sealed class HostStartupTests
         var logs = string.Concat(Directory.GetFiles(Path.Combine(factory.DataFolder, "logs")).Select(ReadShared));
         Assert.Contains(Path.Combine(factory.DataFolder, "api-key"), logs, StringComparison.Ordinal);
         Assert.DoesNotContain(key, logs, StringComparison.Ordinal);
+    }
+
+    [Fact]
+    public void EachHostLogsToItsOwnFolderWhileOtherHostsInTheProcessStartAndStop()
+    {
+        // Test hosts run side by side in one process. A host that wrote through the process-wide Serilog logger lost
+        // its lines to whichever host was built last, and to nothing once that host was disposed; this is the order
+        // that showed it (the key-file test above read its log while another test's host came and went).
+        using var first = new ServiceFactory(workers: 0, configureKey: true);
+        using var firstClient = first.CreateClient();
+        using (var second = new ServiceFactory(workers: 0, configureKey: true))
+        {
+            using var secondClient = second.CreateClient();
+        }
+
+        var marker = "marker-" + Guid.NewGuid().ToString("N");
+        var logger = first.Services.GetRequiredService<ILoggerFactory>().CreateLogger("HostStartupTests");
+#pragma warning disable CA1848, CA2254 // a one-off line in a test, not a hot path
+        logger.LogWarning(marker);
+#pragma warning restore CA1848, CA2254
+
+        var logs = string.Concat(Directory.GetFiles(Path.Combine(first.DataFolder, "logs")).Select(ReadShared));
+        Assert.Contains(marker, logs, StringComparison.Ordinal);
     }
 
     [Fact]
