@@ -69,6 +69,11 @@ public static class SearchRunner
         var warnings = SearchWarnings.FewSamples(session.ReferenceOutputs, problem.Judge, settings.MetricSpace)
             .Concat(SearchWarnings.SilentOutputs(session.ReferenceOutputs, problem.Judge))
             .Concat(SearchWarnings.NonFiniteChoices(problem.NonFiniteChoices)).ToList();
+        if (SearchWarnings.Resolution(settings.Budget, session.ReferenceOutputs, problem.Judge, data.SampleCount, data.Labels?.Count) is { } resolution)
+        {
+            warnings.Add(resolution);
+        }
+
         if (heldOut is not null && settings.Budget is ErrorBudget bound && decision.Chosen is { } best
             && SearchWarnings.HeldOutMisses(heldOut, bound, problem.Judge, problem.Judge.Value(best.Measured, session.ReferenceMetrics)) is { } miss)
         {

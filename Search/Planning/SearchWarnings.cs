@@ -56,6 +56,72 @@ internal static class SearchWarnings
         }
     }
 
+    /// <summary>
+    /// A warning when the budget is finer than the calibration set can resolve. Top-1 agreement moves in steps of
+    /// one row of the judged output (one sample of a [samples, classes] output) and accuracy in steps of one
+    /// labelled sample; when one step is more than the budget's slack (1 - bound for top-1, the allowed drop for
+    /// accuracy), a single changed answer misses the budget, so only assignments that change no answer are kept,
+    /// which tends to force the highest widths everywhere. Says how many samples would let one answer change.
+    /// A budget that allows no change at all (top1&gt;=1, accuracy-drop&lt;=0) asks for exactly that and is not warned about.
+    /// </summary>
+    /// <param name="samples">Calibration samples.</param>
+    /// <param name="labels">Labelled samples (accuracy is computed over them); null without labels.</param>
+    public static string? Resolution(Budget budget, IReadOnlyList<OutputTensor> reference, OutputJudge judge, int samples, int? labels)
+    {
+        switch (budget)
+        {
+            case ErrorBudget { Metric: BudgetMetric.Top1Agreement, Limit: < 1 and > 0 } top1:
+            {
+                // The coarsest judged output decides: its rows are the fewest, so one of them weighs the most.
+                var coarsest = reference.Where(o => judge.Judges(o.Name) && o.Data.Length > 0)
+                    .Select(o => (o.Name, Rows: o.Data.Length / (o.Shape.Count == 0 ? 1 : Math.Max(1L, o.Shape[^1]))))
+                    .OrderBy(o => o.Rows)
+                    .FirstOrDefault();
+                if (coarsest.Rows == 0)
+                {
+                    return null;
+                }
+
+                var slack = 1 - top1.Limit;
+                var step = 1.0 / coarsest.Rows;
+                if (!TooCoarse(step, slack))
+                {
+                    return null;
+                }
+
+                var rowsNeeded = StepsNeeded(1, slack);
+                var samplesNeeded = (long)Math.Ceiling(rowsNeeded * (double)samples / coarsest.Rows);
+                var unit = coarsest.Rows == samples ? $"one of its {samples} samples" : $"one of the {coarsest.Rows} answers of output '{coarsest.Name}' ({samples} samples)";
+                return string.Create(
+                    CultureInfo.InvariantCulture,
+                    $"The budget top1>={top1.Limit} is finer than the calibration set can resolve: {unit} changes top-1 agreement by {step * 100:0.##}%, more than the {slack * 100:0.##}% the budget allows, so no answer may change and the search keeps only assignments that change none (often the highest widths). About {samplesNeeded} samples would let one answer in {rowsNeeded} change; calibrate on that many, or state the budget in another metric (sqnr, kl).");
+            }
+
+            case ErrorBudget { Metric: BudgetMetric.AccuracyDrop, Limit: > 0 } drop when labels is > 0 and var count:
+            {
+                // Accuracy drop is in percentage points: one labelled sample is 100 / count of them.
+                var step = 100.0 / count;
+                if (!TooCoarse(step, drop.Limit))
+                {
+                    return null;
+                }
+
+                var needed = StepsNeeded(100, drop.Limit);
+                return string.Create(
+                    CultureInfo.InvariantCulture,
+                    $"The budget accuracy-drop<={drop.Limit} is finer than the calibration set can resolve: one of its {count} labelled samples changes accuracy by {step:0.##} points, more than the {drop.Limit} points the budget allows, so the search keeps only assignments that lose no net answer (often the highest widths). About {needed} labelled samples would let one answer change; calibrate on that many, or state the budget in another metric (sqnr, kl).");
+            }
+
+            default:
+                return null;
+        }
+    }
+
+    // A relative tolerance, so 1/100 against the slack 1 - 0.99 (0.010000000000000009 in binary) is not "too coarse".
+    private static bool TooCoarse(double step, double slack) => step > slack * (1 + 1e-9);
+
+    private static long StepsNeeded(double whole, double slack) => (long)Math.Ceiling((whole / slack) * (1 - 1e-9));
+
     /// <summary>A warning when the held-out figure misses the error budget, with both figures side by side.</summary>
     public static string? HeldOutMisses(HeldOutCheck check, ErrorBudget budget, OutputJudge judge, double calibrationValue)
     {
