@@ -139,7 +139,7 @@ internal sealed class AssignmentValidator(
         {
             var clock = Stopwatch.StartNew();
             var metrics = session.MeasureAssignment(assignment);
-            record = new TrialRecord(key, "validation", null, null, hash, metrics, clock.Elapsed.TotalMilliseconds);
+            record = new TrialRecord(key, "validation", null, null, hash, metrics, clock.Elapsed.TotalMilliseconds, assignment, SensitivitySweep.ActivationsFor(problem.Settings));
             store.Save(record);
             _stored[key] = record;
         }

@@ -137,7 +137,7 @@ public static class SearchRunner
     private static TrialSession OpenWithReference(OnnxModel model, CalibrationSet data, TrialSessionOptions options, ITrialStore store)
     {
         var session = TrialSession.Open(model, data, options);
-        store.Save(new TrialRecord(TrialKeys.Reference, "reference", null, null, null, session.ReferenceMetrics, session.ForwardPassMilliseconds));
+        store.Save(new TrialRecord(TrialKeys.Reference, "reference", null, null, null, session.ReferenceMetrics, session.ForwardPassMilliseconds, new Dictionary<string, LayerSetting>()));
         return session;
     }
 

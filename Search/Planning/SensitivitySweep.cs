@@ -20,6 +20,7 @@ public static class SensitivitySweep
     {
         var trials = new List<SweepTrial>();
         var excluded = (settings.Excluded ?? []).ToHashSet(StringComparer.Ordinal);
+        var activations = ActivationsFor(settings);
         foreach (var layer in layers.Where(l => !excluded.Contains(l.Name)))
         {
             foreach (var bits in CandidateBits(layer, settings))
@@ -33,7 +34,7 @@ public static class SensitivitySweep
                 foreach (var rounding in RoundingChoices.For(layer.Name, settings, compensates))
                 {
                     var setting = SettingFor(bits, settings) with { Rounding = rounding };
-                    trials.Add(new SweepTrial(TrialKeys.Sensitivity(layer.Name, setting, ActivationsFor(settings)), layer, setting));
+                    trials.Add(new SweepTrial(TrialKeys.Sensitivity(layer.Name, setting, activations), layer, setting, activations));
                 }
             }
         }
@@ -83,7 +84,8 @@ public static class SensitivitySweep
                 cancellationToken.ThrowIfCancellationRequested();
                 var clock = Stopwatch.StartNew();
                 var metrics = session.MeasureLayer(trial.Layer, trial.Setting, perLayer[trial.Layer.Name]);
-                record = new TrialRecord(trial.Key, "sensitivity", trial.Layer.Name, trial.Setting.Bits, null, metrics, clock.Elapsed.TotalMilliseconds);
+                record = new TrialRecord(
+                    trial.Key, "sensitivity", trial.Layer.Name, trial.Setting.Bits, null, metrics, clock.Elapsed.TotalMilliseconds, new Dictionary<string, LayerSetting> { [trial.Layer.Name] = trial.Setting }, trial.Activations);
                 store.Save(record);
             }
 

@@ -1,4 +1,6 @@
 using System.Text;
+using System.Text.Json;
+using System.Text.Json.Serialization;
 
 namespace Bitbudget.Search.Planning;
 
@@ -41,6 +43,12 @@ public static class WireNames
         value = default;
         return false;
     }
+
+    /// <summary>
+    /// Writes enums in JSON in the same spelling (a trial's assignment: "per-channel", "min-max"), so the store,
+    /// the API and trials.json need no copy of the names; reads them back in any case.
+    /// </summary>
+    public static JsonConverter JsonConverter { get; } = new JsonStringEnumConverter(JsonNamingPolicy.KebabCaseLower, allowIntegerValues: false);
 
     /// <summary>Every accepted spelling, for error messages.</summary>
     public static string Choices<T>()

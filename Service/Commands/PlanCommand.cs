@@ -91,23 +91,11 @@ internal static class PlanCommand
     }
 
     /// <summary>
-    /// The stored trials in key order, metrics in the manifest's form: JSON has no infinity, and the
-    /// reference trial (and any lossless one) has an infinite SQNR, which is written as null.
+    /// The stored trials in key order, each as one item of the API's trial pages (GET /v1/searches/{id}/trials):
+    /// key, kind, metrics, duration and the assignment it measured.
     /// </summary>
-    private static List<object> Trials(ITrialStore store) =>
-        store.LoadAll().Values
-            .OrderBy(t => t.Key, StringComparer.Ordinal)
-            .Select(object (t) => new
-            {
-                t.Key,
-                t.Kind,
-                t.Layer,
-                t.Bits,
-                t.AssignmentHash,
-                Metrics = ManifestMetricsOf.From(t.Metrics),
-                t.DurationMs,
-            })
-            .ToList();
+    private static List<TrialRecord> Trials(ITrialStore store) =>
+        store.LoadAll().Values.OrderBy(t => t.Key, StringComparer.Ordinal).ToList();
 
     private static string Summary(AssignmentManifest manifest, SearchResult result)
     {

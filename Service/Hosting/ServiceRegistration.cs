@@ -51,7 +51,10 @@ internal static class ServiceRegistration
             preserveStaticLogger: true);
 
         services.ConfigureHttpJsonOptions(json =>
-            json.SerializerOptions.NumberHandling = System.Text.Json.Serialization.JsonNumberHandling.AllowNamedFloatingPointLiterals);
+        {
+            json.SerializerOptions.NumberHandling = System.Text.Json.Serialization.JsonNumberHandling.AllowNamedFloatingPointLiterals;
+            json.SerializerOptions.Converters.Add(Bitbudget.Search.Planning.WireNames.JsonConverter);
+        });
         services.AddBitbudgetProblems();
         services.AddBitbudgetAuth();
         services.AddRequestTimeouts(timeouts => timeouts.DefaultPolicy = new RequestTimeoutPolicy

@@ -171,6 +171,12 @@ internal static class Migrations
             ALTER TABLE searches ADD COLUMN parts_left INTEGER;
             ALTER TABLE trials ADD COLUMN measured_by TEXT;
             """),
+        // Every trial keeps what it measured (layer -> setting, and the activation quantization), so it can be run
+        // again from the store alone; trials stored before have NULL here. The same text on both databases.
+        new(5, """
+            ALTER TABLE trials ADD COLUMN assignment_json TEXT;
+            ALTER TABLE trials ADD COLUMN activations TEXT;
+            """),
     ];
 
     // Step 3's parts: the settings rename in SQLite's JSON functions (PostgreSQL's is PostgresSchema.Step3ClipSetting)

@@ -9,6 +9,7 @@ internal static class StoreJson
     public static JsonSerializerOptions Options { get; } = new(JsonSerializerDefaults.Web)
     {
         NumberHandling = JsonNumberHandling.AllowNamedFloatingPointLiterals,
+        Converters = { Bitbudget.Search.Planning.WireNames.JsonConverter },
     };
 
     public static string Write<T>(T value) => JsonSerializer.Serialize(value, Options);

@@ -1,6 +1,7 @@
 using System.Data.Common;
 using Bitbudget.Search.Evaluation;
 using Bitbudget.Search.Planning;
+using Bitbudget.Search.Quantization;
 
 namespace Bitbudget.Service.Store;
 
@@ -33,7 +34,7 @@ internal sealed class TrialStore(Database database, string searchId, IReadOnlyLi
         using var connection = database.Open();
         using var command = connection.CreateCommand();
         command.CommandText = $"""
-            SELECT key, kind, layer, bits, assignment_hash, metrics_json, duration_ms
+            SELECT key, kind, layer, bits, assignment_hash, metrics_json, duration_ms, assignment_json, activations
             FROM trials WHERE search_id = @id ORDER BY {database.Dialect.InsertOrder};
             """;
         command.With("@id", searchId);
@@ -54,8 +55,8 @@ internal sealed class TrialStore(Database database, string searchId, IReadOnlyLi
         using var connection = database.Open();
         using var command = connection.CreateCommand();
         command.CommandText = """
-            INSERT INTO trials (search_id, key, kind, layer, bits, assignment_hash, metrics_json, duration_ms, created_at, measured_by)
-            VALUES (@id, @key, @kind, @layer, @bits, @hash, @metrics, @duration, @at, @by)
+            INSERT INTO trials (search_id, key, kind, layer, bits, assignment_hash, metrics_json, duration_ms, created_at, measured_by, assignment_json, activations)
+            VALUES (@id, @key, @kind, @layer, @bits, @hash, @metrics, @duration, @at, @by, @assignment, @activations)
             ON CONFLICT(search_id, key) DO NOTHING;
             """;
         command.With("@id", searchId);
@@ -68,6 +69,8 @@ internal sealed class TrialStore(Database database, string searchId, IReadOnlyLi
         command.With("@duration", trial.DurationMs);
         command.With("@at", Clock.Format(DateTimeOffset.UtcNow));
         command.With("@by", measuredBy);
+        command.With("@assignment", trial.Assignment is null ? DBNull.Value : StoreJson.Write(trial.Assignment));
+        command.With("@activations", trial.Activations is { } activations ? WireNames.Format(activations) : DBNull.Value);
         command.ExecuteNonQuery();
     }
 
@@ -123,7 +126,7 @@ internal sealed class TrialStore(Database database, string searchId, IReadOnlyLi
 
         using var command = connection.CreateCommand();
         command.CommandText = $"""
-            SELECT key, kind, layer, bits, assignment_hash, metrics_json, duration_ms
+            SELECT key, kind, layer, bits, assignment_hash, metrics_json, duration_ms, assignment_json, activations
             FROM trials WHERE search_id = @id ORDER BY {database.Dialect.InsertOrder} LIMIT @limit OFFSET @offset;
             """;
         command.With("@id", searchId);
@@ -146,5 +149,7 @@ internal sealed class TrialStore(Database database, string searchId, IReadOnlyLi
         reader.IsDBNull(3) ? null : reader.Int(3),
         reader.IsDBNull(4) ? null : reader.GetString(4),
         StoreJson.Read<MetricSet>(reader.GetString(5)),
-        reader.GetDouble(6));
+        reader.GetDouble(6),
+        reader.IsDBNull(7) ? null : StoreJson.Read<Dictionary<string, LayerSetting>>(reader.GetString(7)),
+        reader.IsDBNull(8) ? null : WireNames.TryParse<ActivationCalibration>(reader.GetString(8), out var activations) ? activations : null);
 }

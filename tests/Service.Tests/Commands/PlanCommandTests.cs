@@ -40,6 +40,14 @@ public sealed class PlanCommandTests(PlanDemoFixture fixture) : IClassFixture<Pl
 
         using var trials = ReadJson("trials.json");
         Assert.Equal(manifest.RootElement.GetProperty("trials").GetInt32(), trials.RootElement.GetArrayLength());
+
+        // One trial format: each item of trials.json is an item of the API's trial pages, the assignment included.
+        Assert.All(trials.RootElement.EnumerateArray(), t => Assert.Equal(Api.TrialPagesTests.TrialProperties, t.EnumerateObject().Select(p => p.Name)));
+        var layerNames = manifest.RootElement.GetProperty("layers").EnumerateArray().Select(l => l.GetProperty("name").GetString()!).Order().ToList();
+        Assert.All(
+            trials.RootElement.EnumerateArray().Where(t => t.GetProperty("kind").GetString() == "validation"),
+            t => Assert.Equal(layerNames, t.GetProperty("assignment").EnumerateObject().Select(p => p.Name).Order().ToList()));
+        Assert.Contains(trials.RootElement.EnumerateArray(), t => t.GetProperty("assignment").EnumerateObject().Any(p => p.Value.GetProperty("granularity").GetString() == "per-channel"));
         using var frontier = ReadJson("frontier.json");
         Assert.True(frontier.RootElement.GetProperty("points").GetArrayLength() > 1);
         Assert.Contains("25.", run.Out, StringComparison.Ordinal);

@@ -44,7 +44,11 @@ public sealed class MigrationsTests : IDisposable
 
         var spec = new SearchStore(database).Find("srch_1")!.Spec;
         Assert.Equal("mse-optimal", spec.Clip);
-        var keys = new TrialStore(database, "srch_1").LoadAll().Keys.ToHashSet();
+        var stored = new TrialStore(database, "srch_1").LoadAll();
+        var keys = stored.Keys.ToHashSet();
+
+        // Trials stored before assignments were kept say so with null, never with an empty (reference-like) assignment.
+        Assert.All(stored.Values, t => Assert.Null(t.Assignment));
         var mse = new LayerSetting(4, QuantizationScheme.Asymmetric, Granularity.PerTensor, ClipMethod.MseOptimal);
         var assignment = new Dictionary<string, LayerSetting> { ["fc"] = mse, ["conv1"] = mse with { Bits = 8 } };
         Assert.Contains(TrialKeys.Sensitivity("conv1", mse with { Bits = 8 }), keys);
