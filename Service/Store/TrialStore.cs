@@ -81,7 +81,7 @@ internal sealed class TrialStore(Database database, string searchId, IReadOnlyLi
         using var command = connection.CreateCommand();
         var names = searchIds.Select((_, i) => $"@s{i}").ToList();
         command.CommandText = $"""
-            SELECT key, kind, layer, bits, assignment_hash, metrics_json, duration_ms
+            SELECT key, kind, layer, bits, assignment_hash, metrics_json, duration_ms, assignment_json, activations
             FROM trials WHERE kind = 'sensitivity' AND search_id IN ({string.Join(", ", names)}) ORDER BY {database.Dialect.InsertOrder};
             """;
         for (var i = 0; i < names.Count; i++)
