@@ -24,6 +24,11 @@ public sealed class TrialSession : IDisposable
     private readonly CalibrationSet _data;
     private readonly TrialSessionOptions _options;
     private readonly BatchPlan _plan;
+    private readonly IReadOnlyDictionary<string, long[]> _probeShapes;
+    private readonly int _probeRows;
+    private readonly NodeCosts? _nodeCosts;
+    private readonly long _cacheBudgetBytes;
+    private readonly string _batchReason;
     private readonly InferenceSession _full;
     private readonly RunOptions _runOptions = new();
     private readonly SessionOptions _sessionOptions;
@@ -31,21 +36,24 @@ public sealed class TrialSession : IDisposable
     private readonly Dictionary<string, OrtValue> _fp32Values;
     private readonly List<Dictionary<string, OrtValue>> _dataFeeds;
     private readonly GraphSlicer _slicer;
-    private readonly List<Dictionary<string, OrtValue>>? _cachedActivations;
+    private List<Dictionary<string, OrtValue>>? _cachedActivations;
+    private CutPlan? _cutPlan;
     private readonly Dictionary<string, (int ElementType, int Rank)> _activationTypes = new(StringComparer.Ordinal);
     private readonly HashSet<string> _switchedLayers = new(StringComparer.Ordinal);
     private readonly HashSet<string> _switchNames = new(StringComparer.Ordinal);
     private readonly OrtValue? _switchOff;
     private readonly OrtValue? _switchOn;
     private readonly IReadOnlyDictionary<string, int?> _outputAxes;
-    private (string Layer, InferenceSession Session)? _suffix;
+    private (int Cut, InferenceSession Session)? _suffix;
+
+    /// <summary>Trials per layer assumed when a suffix run comes before <see cref="PrepareSweep"/> (the usual number of candidate widths).</summary>
+    private const int AssumedTrialsPerLayer = 6;
 
     private TrialSession(OnnxModel model, CalibrationSet data, TrialSessionOptions options)
     {
         _model = model;
         _data = data;
         _options = options;
-        _plan = BatchPlan.For(data, options.MaxBatch);
         _sessionOptions = new SessionOptions { GraphOptimizationLevel = GraphOptimizationLevel.ORT_ENABLE_ALL };
         if (options.IntraOpThreads is { } threads)
         {
@@ -58,6 +66,13 @@ public sealed class TrialSession : IDisposable
             l => l.WeightName,
             l => OrtTensors.Wrap(_fp32ByLayer[l.Name], l.Shape.ToArray()),
             StringComparer.Ordinal);
+
+        // One sample through the model with every tensor tapped: shapes for the cost model and the memory the runs need.
+        (_probeShapes, _probeRows) = ProbeShapes(weightsAsInputs);
+        var memory = SweepMemory.Plan(data, options, _probeShapes, _probeRows, weightsAsInputs, model.Layers.Sum(l => l.ParameterCount));
+        _plan = BatchPlan.For(data, memory.SamplesPerRun);
+        _cacheBudgetBytes = memory.CacheBudgetBytes;
+        _batchReason = memory.Reason;
         _dataFeeds = BuildDataFeeds();
 
         var runModel = weightsAsInputs;
@@ -82,6 +97,7 @@ public sealed class TrialSession : IDisposable
         _full = new InferenceSession(runModel.ToByteArray(), _sessionOptions);
         SessionBuildMilliseconds = build.Elapsed.TotalMilliseconds;
 
+        _nodeCosts = _probeShapes.Count > 0 ? NodeCosts.Of(runModel.Graph, _probeShapes) : null;
         _outputAxes = OutputSampleAxes.Find(model.Outputs, _full.OutputNames, _plan, Probe);
         var pass = Stopwatch.StartNew();
         ReferenceOutputs = Run(_full, _full.OutputNames, feedsOverride: null, extraFeeds: null);
@@ -89,11 +105,7 @@ public sealed class TrialSession : IDisposable
         // Accuracy compares labels with the argmax over the first output's last axis: a label past it never matches.
         data.CheckLabels(ReferenceOutputs[0].Shape is [.., var classes] ? classes : 1, ReferenceOutputs[0].Name);
         ReferenceMetrics = Compare(ReferenceOutputs);
-
-        if (options.SuffixRuns)
-        {
-            _cachedActivations = CacheCutActivations();
-        }
+        SweepNote = $"{_batchReason}; no sensitivity trial was run, so no cut point was chosen";
     }
 
     /// <summary>Outputs of the FP32 model over the whole calibration set.</summary>
@@ -108,11 +120,33 @@ public sealed class TrialSession : IDisposable
     /// <summary>Time ONNX Runtime took to build the weights-as-inputs session, in ms.</summary>
     public double SessionBuildMilliseconds { get; }
 
+    /// <summary>Samples in one run (a chunk of the calibration set), chosen to fit <see cref="TrialSessionOptions.MaxSweepMemoryBytes"/>.</summary>
+    public int SamplesPerRun => _plan.BatchSize;
+
     /// <summary>Time of one pass of the FP32 model over the calibration set, in ms.</summary>
     public double ForwardPassMilliseconds { get; }
 
-    /// <summary>True when cut-set activations are cached, so single-layer trials may run a suffix.</summary>
-    public bool SuffixAvailable => _cachedActivations is not null;
+    /// <summary>True when cut-set activations are cached (planning the cuts first if needed), so single-layer trials may run a suffix.</summary>
+    public bool SuffixAvailable => EnsureCutPlan(null) is { Cuts.Count: > 0 } && _cachedActivations is not null;
+
+    /// <summary>
+    /// How the sweep was laid out, for the user: samples per run and why, and the cut points with their cache (once a
+    /// sweep has been prepared).
+    /// </summary>
+    public string SweepNote { get; private set; }
+
+    /// <summary>
+    /// Chooses the sweep's shared cut points for the trials still to run (by layer name) and caches their activations;
+    /// nothing is cached when no trial is left. Trials that run before this assume every layer has a few trials.
+    /// </summary>
+    public void PrepareSweep(IReadOnlyDictionary<string, int> pendingTrialsByLayer)
+    {
+        ArgumentNullException.ThrowIfNull(pendingTrialsByLayer);
+        if (pendingTrialsByLayer.Values.Sum() > 0)
+        {
+            EnsureCutPlan(pendingTrialsByLayer);
+        }
+    }
 
     /// <summary>
     /// The calibrated 8-bit quantization of each layer's input activation (one entry per consumer node of
@@ -180,8 +214,9 @@ public sealed class TrialSession : IDisposable
     {
         var weight = Quantized(layer, setting);
         var activation = QuantizesActivation(setting) && HasActivation(layer.Name);
-        var outputs = allowSuffix && PrefersSuffix(layer, trialsForLayer)
-            ? RunSuffix(layer, weight, activation)
+        var cut = allowSuffix ? PlannedCut(layer, trialsForLayer) : 0;
+        var outputs = cut > 0
+            ? RunSuffixFrom(cut, layer, weight, activation)
             : RunFull(new Dictionary<string, float[]>(StringComparer.Ordinal) { [layer.Name] = weight }, activation ? [layer.Name] : null);
         return Compare(outputs) with
         {
@@ -220,40 +255,35 @@ public sealed class TrialSession : IDisposable
     }
 
     /// <summary>
-    /// Whether running the suffix from <paramref name="layer"/> is estimated cheaper than full runs for
-    /// <paramref name="trials"/> trials: the nodes skipped (a share of a measured full pass) must repay
-    /// building one more session (measured). Node share as a cost proxy is a heuristic.
+    /// Whether trials of <paramref name="layer"/> run a suffix from a cached cut rather than the whole graph: the cut
+    /// plan (see <see cref="CutPlanner"/>) gives the layer a cut when the downstream work it saves over the sweep's
+    /// trials repays the cut's session build within the memory allowed.
     /// </summary>
-    public bool PrefersSuffix(WeightLayer layer, int trials)
-    {
-        if (_cachedActivations is null)
-        {
-            return false;
-        }
-
-        var position = CutPosition(layer);
-        if (position <= 0)
-        {
-            return false;
-        }
-
-        var skippedShare = (double)position / _slicer.NodeCount;
-        return trials * ForwardPassMilliseconds * skippedShare > SessionBuildMilliseconds;
-    }
+    public bool PrefersSuffix(WeightLayer layer, int trials) => PlannedCut(layer, trials) > 0;
 
     /// <summary>Runs only the graph downstream of <paramref name="layer"/>, with its weight replaced (and its activation quantized when asked).</summary>
     internal IReadOnlyList<OutputTensor> RunSuffix(WeightLayer layer, float[] weight, bool quantizeActivation = false)
     {
-        if (_cachedActivations is null)
+        if (!_options.SuffixRuns)
         {
             throw new InvalidOperationException("Suffix runs are off for this session.");
         }
 
-        var session = SuffixSession(layer);
+        var cut = PlannedCut(layer, AssumedTrialsPerLayer);
+        return cut > 0
+            ? RunSuffixFrom(cut, layer, weight, quantizeActivation)
+            : RunFull(new Dictionary<string, float[]>(StringComparer.Ordinal) { [layer.Name] = weight }, quantizeActivation ? [layer.Name] : null);
+    }
+
+    /// <summary>Runs the graph from the cached cut at <paramref name="cut"/> with one layer's weight replaced.</summary>
+    private List<OutputTensor> RunSuffixFrom(int cut, WeightLayer layer, float[] weight, bool quantizeActivation)
+    {
+        var cached = _cachedActivations ?? throw new InvalidOperationException("No activations are cached for suffix runs.");
+        var session = SuffixSession(cut);
         using var value = OrtTensors.Wrap(weight, layer.Shape.ToArray());
         var overrides = new Dictionary<string, OrtValue>(StringComparer.Ordinal) { [layer.WeightName] = value };
         SwitchOn(overrides, quantizeActivation ? [layer.Name] : []);
-        var suffixOutputs = Run(session, session.OutputNames, overrides, _cachedActivations);
+        var suffixOutputs = Run(session, session.OutputNames, overrides, cached);
         var byName = suffixOutputs.ToDictionary(o => o.Name, StringComparer.Ordinal);
 
         // Outputs made before the cut do not depend on the layer: they are the reference outputs.
@@ -315,21 +345,163 @@ public sealed class TrialSession : IDisposable
         _model.Layers.FirstOrDefault(l => l.Name == name)
         ?? throw new EngineException("unknown-layer", $"The model has no layer named '{name}'.");
 
-    private InferenceSession SuffixSession(WeightLayer layer)
+    private InferenceSession SuffixSession(int cut)
     {
-        if (_suffix is { } current && current.Layer == layer.Name)
+        if (_suffix is { } current && current.Cut == cut)
         {
             return current.Session;
         }
 
-        // Sweeps go layer by layer, so one suffix session at a time is enough.
+        // Sweeps go layer by layer in graph order, so one suffix session at a time is enough.
         _suffix?.Session.Dispose();
         _suffix = null;
-        var position = CutPosition(layer);
-        var suffix = _slicer.Suffix(position, _activationTypes);
+        var suffix = _slicer.Suffix(cut, _activationTypes);
         var session = new InferenceSession(suffix.ToByteArray(), _sessionOptions);
-        _suffix = (layer.Name, session);
+        _suffix = (cut, session);
         return session;
+    }
+
+    /// <summary>The cut a layer's trials run from (0: the whole graph), planning the cuts on first use.</summary>
+    private int PlannedCut(WeightLayer layer, int trialsForLayer)
+    {
+        var plan = EnsureCutPlan(null, trialsForLayer);
+        return plan is null || _cachedActivations is null ? 0 : plan.CutFor(CutPosition(layer));
+    }
+
+    /// <summary>
+    /// Chooses the cut points once and caches their activations. Pending trials by layer when the sweep says them,
+    /// else <paramref name="assumedTrials"/> for every layer.
+    /// </summary>
+    private CutPlan? EnsureCutPlan(IReadOnlyDictionary<string, int>? pending, int assumedTrials = AssumedTrialsPerLayer)
+    {
+        if (!_options.SuffixRuns)
+        {
+            return null;
+        }
+
+        if (_cutPlan is not null)
+        {
+            return _cutPlan;
+        }
+
+        var demands = _model.Layers
+            .Select(l => new CutPlanner.LayerDemand(CutPosition(l), pending is null ? assumedTrials : pending.GetValueOrDefault(l.Name)))
+            .Where(d => d.Trials > 0)
+            .ToList();
+        var perSample = new Dictionary<int, long>();
+        long CacheBytes(int position)
+        {
+            if (!perSample.TryGetValue(position, out var bytes))
+            {
+                bytes = _slicer.CutSet(position).Where(n => !_slicer.IsGraphInput(n)).Sum(n => ProbeBytes(n));
+                perSample[position] = bytes;
+            }
+
+            return (long)Math.Ceiling(bytes / (double)_probeRows * _data.SampleCount);
+        }
+
+        CutPlan plan;
+        if (_options.CutEveryLayer || _nodeCosts is null)
+        {
+            // Every layer its own cut (or, without measured shapes, the share of nodes skipped as the cost).
+            var positions = demands.Select(d => d.Position).Where(p => p > 0).Distinct().Order().ToList();
+            plan = _options.CutEveryLayer
+                ? new CutPlan(positions, 0, positions.Sum(CacheBytes))
+                : CutPlanner.Choose(demands, p => ForwardPassMilliseconds * (_slicer.NodeCount - p) / _slicer.NodeCount, BuildMilliseconds, CacheBytes, _cacheBudgetBytes);
+        }
+        else
+        {
+            var costs = _nodeCosts;
+            var perOperation = ForwardPassMilliseconds / Math.Max(1, costs.Downstream(0));
+            plan = CutPlanner.Choose(demands, p => costs.Downstream(p) * perOperation, BuildMilliseconds, CacheBytes, _cacheBudgetBytes);
+        }
+
+        _cutPlan = plan;
+        _cachedActivations = plan.Cuts.Count == 0 ? null : CacheCutActivations(plan.Cuts);
+        var whole = demands.Sum(d => d.Trials) * ForwardPassMilliseconds;
+        SweepNote = _cachedActivations is null
+            ? $"{_batchReason}; every trial runs the whole graph (no cut repays its session build{(plan.Cuts.Count > 0 ? " within the memory allowed" : string.Empty)})"
+            : string.Create(
+                System.Globalization.CultureInfo.InvariantCulture,
+                $"{_batchReason}; {plan.Cuts.Count} cut points shared by {demands.Count} layers (nodes {string.Join(", ", plan.Cuts)} of {_slicer.NodeCount}), chosen by downstream FLOPs and a {SessionBuildMilliseconds:0} ms measured session build, caching {plan.CacheBytes / 1048576.0:0.#} MiB of activations (allowed {_cacheBudgetBytes / 1048576.0:0.#} MiB); estimated {plan.EstimatedMilliseconds / 1000:0.0} s of runs and builds against {whole / 1000:0.0} s of whole-graph runs");
+        return plan;
+    }
+
+    /// <summary>
+    /// The sweep's limit under the cost model: every trial running only the graph downstream of its own layer (no build,
+    /// no caching), in whole forward passes (FLOP-weighted). For the benchmark's "ideal" column.
+    /// </summary>
+    internal double IdealSweepPasses(IReadOnlyDictionary<string, int> trialsByLayer)
+    {
+        var costs = _nodeCosts ?? throw new InvalidOperationException("No node costs: the shape probe failed on this model.");
+        return _model.Layers.Sum(l => trialsByLayer.GetValueOrDefault(l.Name) * costs.Downstream(Math.Max(0, CutPosition(l)))) / Math.Max(1, costs.Downstream(0));
+    }
+
+    /// <summary>A suffix build, estimated from the measured build of the whole graph by the share of nodes it keeps.</summary>
+    private double BuildMilliseconds(int position) =>
+        SessionBuildMilliseconds * Math.Max(1, _slicer.NodeCount - position) / Math.Max(1, _slicer.NodeCount);
+
+    private long ProbeBytes(string tensor) =>
+        _probeShapes.TryGetValue(tensor, out var shape) ? shape.Aggregate(sizeof(float), (long product, long d) => product * Math.Max(d, 0)) : 0;
+
+    /// <summary>
+    /// Runs the first sample (or the model's fixed batch) through the weights-as-inputs model with every node output
+    /// tapped, and returns every tensor's shape by name with the rows fed. Shapes of a model ONNX Runtime cannot tap
+    /// this way (non-tensor outputs) are left empty: the planner then falls back to node counts.
+    /// </summary>
+    private (IReadOnlyDictionary<string, long[]> Shapes, int Rows) ProbeShapes(global::Onnx.ModelProto plain)
+    {
+        var rows = _data.SamplesPerRun ?? 1;
+        var shapes = new Dictionary<string, long[]>(StringComparer.Ordinal);
+        foreach (var layer in _model.Layers)
+        {
+            shapes[layer.WeightName] = layer.Shape.ToArray();
+        }
+
+        foreach (var initializer in plain.Graph.Initializer)
+        {
+            shapes[initializer.Name] = initializer.Dims.ToArray();
+        }
+
+        var owned = new List<OrtValue>();
+        try
+        {
+            var tapped = plain.Graph.Node.SelectMany(n => n.Output).Where(o => o.Length > 0).Distinct(StringComparer.Ordinal).ToList();
+            using var session = new InferenceSession(new GraphSlicer(plain).WithExtraOutputs(tapped).ToByteArray(), _sessionOptions);
+            var feeds = new Dictionary<string, OrtValue>(StringComparer.Ordinal);
+            for (var i = 0; i < _model.Inputs.Count; i++)
+            {
+                var value = OrtTensors.SliceSamples(_data.Inputs[i], _data.SampleAxes[i], 0, Math.Min(rows, _data.SampleCount), rows);
+                owned.Add(value);
+                feeds[_model.Inputs[i].Name] = value;
+                shapes[_model.Inputs[i].Name] = value.GetTensorTypeAndShape().Shape;
+            }
+
+            foreach (var name in session.InputNames.Where(n => !feeds.ContainsKey(n)))
+            {
+                feeds[name] = _fp32Values[name];
+            }
+
+            var names = session.OutputNames.ToList();
+            using var results = session.Run(_runOptions, feeds.Keys.ToList(), feeds.Values.ToList(), names);
+            for (var o = 0; o < names.Count; o++)
+            {
+                if (results[o].OnnxType == OnnxValueType.ONNX_TYPE_TENSOR)
+                {
+                    shapes[names[o]] = results[o].GetTensorTypeAndShape().Shape;
+                }
+            }
+
+            return (shapes, rows);
+        }
+        catch (Exception e) when (e is OnnxRuntimeException or KeyNotFoundException)
+        {
+            return (new Dictionary<string, long[]>(StringComparer.Ordinal), rows);
+        }
+        finally
+        {
+            owned.ForEach(v => v.Dispose());
+        }
     }
 
     private bool QuantizesActivation(LayerSetting setting) =>
@@ -494,19 +666,15 @@ public sealed class TrialSession : IDisposable
     }
 
     /// <summary>
-    /// One run of the model with every cut-set activation any layer needs as an extra output; the
-    /// activations are kept per batch. Turns suffix runs off when they would take too much memory.
+    /// One run of the model with the cut-set activations of <paramref name="cuts"/> as extra outputs; the
+    /// activations are kept per batch. Turns suffix runs off when they would take more memory than allowed.
     /// </summary>
-    private List<Dictionary<string, OrtValue>>? CacheCutActivations()
+    private List<Dictionary<string, OrtValue>>? CacheCutActivations(IReadOnlyList<int> cuts)
     {
         var taps = new SortedSet<string>(StringComparer.Ordinal);
-        foreach (var layer in _model.Layers)
+        foreach (var position in cuts)
         {
-            var position = CutPosition(layer);
-            if (position > 0)
-            {
-                taps.UnionWith(_slicer.CutSet(position).Where(n => !_slicer.IsGraphInput(n)));
-            }
+            taps.UnionWith(_slicer.CutSet(position).Where(n => !_slicer.IsGraphInput(n)));
         }
 
         var cache = new List<Dictionary<string, OrtValue>>();
@@ -534,7 +702,9 @@ public sealed class TrialSession : IDisposable
                 _activationTypes[names[i]] = ((int)type.ElementDataType, shape.Length);
             }
 
-            if (bytes > _options.MaxCachedActivationBytes)
+            // The planner priced the cache from a one-sample probe; a model whose activations grow faster than its samples
+            // (or the every-layer cuts of a test) may still overrun it.
+            if (bytes > Math.Max(_cacheBudgetBytes, _options.CutEveryLayer ? _options.MaxCachedActivationBytes : 0))
             {
                 DisposeFeeds(cache);
                 return null;

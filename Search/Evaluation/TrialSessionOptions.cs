@@ -5,13 +5,16 @@ namespace Bitbudget.Search.Evaluation;
 /// <summary>Knobs of a <see cref="TrialSession"/>.</summary>
 /// <param name="MaxBatch">Most samples per run when the model's batch dimension is dynamic.</param>
 /// <param name="SuffixRuns">Allow running only the part of the graph downstream of a perturbed layer.</param>
-/// <param name="MaxCachedActivationBytes">Memory the cached cut-set activations may take; beyond it suffix runs are off.</param>
+/// <param name="MaxCachedActivationBytes">Most memory the cached cut-set activations (and kept percentile samples) may take, whatever <paramref name="MaxSweepMemoryBytes"/> leaves them.</param>
 /// <param name="IntraOpThreads">ONNX Runtime intra-op threads; null lets ONNX Runtime choose.</param>
 /// <param name="Activations">Calibration of 8-bit activations on the inputs of quantized layers; null for weights only.</param>
 /// <param name="MetricSpace">Where SQNR and relative MSE are computed (see <see cref="Evaluation.MetricSpace"/>).</param>
 /// <param name="FixedActivations">Activation scales and zero points to use as given instead of calibrating them on this
 /// session's data (a held-out check must quantize activations exactly as the calibration set did).</param>
 /// <param name="Rounder">Where weights set to compensated rounding get their integers; null when every weight is rounded to nearest.</param>
+/// <param name="MaxSweepMemoryBytes">Memory a sweep plans for: it bounds the samples per run and the activations cached at
+/// cut points (see <see cref="SweepMemory"/>), so the sweep's memory no longer grows with the calibration set beyond the data itself.</param>
+/// <param name="CutEveryLayer">Cut at every layer's own position instead of the planned shared cuts (tests of suffix runs use it).</param>
 public sealed record TrialSessionOptions(
     int MaxBatch = 32,
     bool SuffixRuns = true,
@@ -20,4 +23,10 @@ public sealed record TrialSessionOptions(
     ActivationCalibration? Activations = null,
     MetricSpace MetricSpace = MetricSpace.Linear,
     IReadOnlyList<ActivationQuantization>? FixedActivations = null,
-    WeightRounder? Rounder = null);
+    WeightRounder? Rounder = null,
+    long MaxSweepMemoryBytes = TrialSessionOptions.DefaultMaxSweepMemoryBytes,
+    bool CutEveryLayer = false)
+{
+    /// <summary>1 GiB: the OCR detector's sweep on 32 images fits in it.</summary>
+    public const long DefaultMaxSweepMemoryBytes = 1L << 30;
+}

@@ -41,4 +41,5 @@ public sealed record SearchResult(
     bool? HeldOutMeetsBudget = null,
     long? ModelFileBytes = null,
     string Storage = "container",
-    string? StorageNote = null);
+    string? StorageNote = null,
+    string? SweepNote = null);

@@ -82,7 +82,7 @@ public static class SearchRunner
 
         var report = new SearchReport(
             model, data, settings, session.ReferenceMetrics, problem, frontier, decision, exported, session.Activations, store.LoadAll().Count, raiseCheck, session.OutputAxes, heldOut, warnings, StorageAdvice.Describe(model, problem, decision, bitsGiven));
-        var result = report.ToResult();
+        var result = report.ToResult() with { SweepNote = session.SweepNote };
         progress?.Report(new SearchProgress(SearchStage.Export, 1, 1));
         return result;
     }

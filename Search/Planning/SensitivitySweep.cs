@@ -75,6 +75,9 @@ public static class SensitivitySweep
         var stored = store.LoadAll();
         var results = new Dictionary<string, TrialRecord>(StringComparer.Ordinal);
         var perLayer = trials.GroupBy(t => t.Layer.Name).ToDictionary(g => g.Key, g => g.Count(), StringComparer.Ordinal);
+
+        // Cut points are chosen for the trials still to measure; a sweep read whole from the store caches nothing.
+        session.PrepareSweep(trials.Where(t => !stored.ContainsKey(t.Key)).GroupBy(t => t.Layer.Name).ToDictionary(g => g.Key, g => g.Count(), StringComparer.Ordinal));
         var done = 0;
         progress?.Report(new SearchProgress(SearchStage.Sweep, 0, trials.Count));
         foreach (var trial in trials)

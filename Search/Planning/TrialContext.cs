@@ -18,7 +18,7 @@ public static class TrialContext
     /// Raised whenever a change to the engine changes what a stored trial would measure (the quantizer, the
     /// metrics, how runs are batched), so trials measured by an older engine are never reused.
     /// </summary>
-    public const int MeasurementVersion = 1;
+    public const int MeasurementVersion = 2;
 
     /// <summary>
     /// The context as a SHA-256 (hex) of a canonical text; <paramref name="modelSha256"/> and
@@ -56,8 +56,9 @@ public static class TrialContext
         text.Append("metricSpace=").Append(WireNames.Format(settings.MetricSpace)).Append('\n');
         text.Append("sampleAxes=").Append(axes).Append('\n');
 
-        // Samples per run decide how ONNX Runtime batches the data, which can move results in the last bits.
+        // Samples per run (from the batch cap and the sweep's memory) decide how ONNX Runtime batches the data, which can move results in the last bits.
         text.Append("maxBatch=").Append(session.MaxBatch.ToString(CultureInfo.InvariantCulture)).Append('\n');
+        text.Append("maxSweepMemory=").Append(session.MaxSweepMemoryBytes.ToString(CultureInfo.InvariantCulture)).Append('\n');
         return text.ToString();
     }
 }

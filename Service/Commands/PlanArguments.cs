@@ -7,8 +7,12 @@ namespace Bitbudget.Service.Commands;
 /// <summary>The parsed arguments of <see cref="PlanCommand"/>; malformed ones throw <see cref="ArgumentException"/> with what to write instead.</summary>
 /// <param name="Holdout">A second dataset the chosen assignment is checked on; null for none.</param>
 /// <param name="NoCache">Measure every trial and leave the trial cache (<see cref="TrialCache"/>) alone.</param>
-internal sealed record PlanArguments(string Model, string Data, SearchSettings Settings, string Out, string? Holdout = null, bool NoCache = false)
+/// <param name="MaxSweepMemoryBytes">Memory the sweep plans for (see <see cref="Search.Evaluation.TrialSessionOptions.MaxSweepMemoryBytes"/>).</param>
+internal sealed record PlanArguments(string Model, string Data, SearchSettings Settings, string Out, string? Holdout = null, bool NoCache = false, long MaxSweepMemoryBytes = Search.Evaluation.TrialSessionOptions.DefaultMaxSweepMemoryBytes)
 {
+    /// <summary>The least sweep memory accepted: below it a run of one sample of a small model barely fits.</summary>
+    public const long MinSweepMemoryBytes = 64L << 20;
+
     public static PlanArguments Parse(string[] args)
     {
         string? model = null, data = null, budget = null, bits = null, outDir = null, holdout = null;
@@ -21,6 +25,7 @@ internal sealed record PlanArguments(string Model, string Data, SearchSettings S
         var clip = ClipMethod.MinMax;
         var activations = false;
         var noCache = false;
+        var maxSweepMemory = Search.Evaluation.TrialSessionOptions.DefaultMaxSweepMemoryBytes;
         long? targetOpset = null;
         var storage = StorageRule.Container;
         var pins = new Dictionary<string, int>(StringComparer.Ordinal);
@@ -45,6 +50,12 @@ internal sealed record PlanArguments(string Model, string Data, SearchSettings S
                 case "--exclude": excluded.Add(Value()); break;
                 case "--activations": activations = true; break;
                 case "--no-cache": noCache = true; break;
+                case "--max-sweep-memory":
+                    var memoryText = Value();
+                    maxSweepMemory = long.TryParse(memoryText, NumberStyles.None, CultureInfo.InvariantCulture, out var memoryBytes) && memoryBytes >= MinSweepMemoryBytes
+                        ? memoryBytes
+                        : throw new ArgumentException($"--max-sweep-memory takes a number of bytes, at least {MinSweepMemoryBytes} (64 MiB), e.g. 1073741824 for 1 GiB; '{memoryText}' is not one.");
+                    break;
                 case "--target-opset":
                     var opsetText = Value();
                     targetOpset = long.TryParse(opsetText, NumberStyles.None, CultureInfo.InvariantCulture, out var opset)
@@ -98,7 +109,7 @@ internal sealed record PlanArguments(string Model, string Data, SearchSettings S
                 .ToList();
         var settings = new SearchSettings(
             BudgetText.Parse(budget), candidates, method, scheme, granularity, clip, activations, pins, excluded, targetOpset, outputs, metricSpace, sampleAxes.Count == 0 ? null : sampleAxes, storage, rounding);
-        return new PlanArguments(model, data, settings, outDir ?? "plan", holdout, noCache);
+        return new PlanArguments(model, data, settings, outDir ?? "plan", holdout, noCache, maxSweepMemory);
     }
 
     private static T Enum<T>(string option, string text)

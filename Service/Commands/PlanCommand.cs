@@ -13,7 +13,7 @@ namespace Bitbudget.Service.Commands;
 /// <c>plan --model M.onnx --data D.npz --budget "sqnr&gt;=30" [--bits 2,3,4,6,8] [--method knapsack|greedy]
 /// [--scheme symmetric|asymmetric] [--granularity per-channel|per-tensor] [--clip min-max|percentile|mse-optimal|analytic-laplace|analytic-gaussian]
 /// [--pin LAYER=BITS]... [--exclude LAYER]... [--activations] [--target-opset N] [--sample-axis INPUT=AXIS]... [--outputs A,B]
-/// [--metric-space linear|logit] [--holdout H.npz] [--storage container|packed] [--no-cache] [--out DIR]</c>: the whole search locally, writing the
+/// [--metric-space linear|logit] [--holdout H.npz] [--storage container|packed] [--no-cache] [--max-sweep-memory BYTES] [--out DIR]</c>: the whole search locally, writing the
 /// manifest, the quantized model, the sensitivity CSV and the frontier into DIR. Sensitivity trials are read from and
 /// written to the user's trial cache (<see cref="TrialCache"/>) unless <c>--no-cache</c> is given.
 /// </summary>
@@ -23,7 +23,7 @@ internal static class PlanCommand
         "usage: plan --model M.onnx --data D.npz --budget \"sqnr>=30\" [--bits 2,3,4,6,8] [--method knapsack|greedy] " +
         "[--scheme symmetric|asymmetric] [--granularity per-channel|per-tensor] [--clip min-max|percentile|mse-optimal|analytic-laplace|analytic-gaussian] " +
         "[--pin LAYER=BITS]... [--exclude LAYER]... [--activations] [--target-opset N] [--sample-axis INPUT=AXIS]... [--outputs A,B] " +
-        "[--metric-space linear|logit] [--holdout H.npz] [--storage container|packed] [--no-cache] [--out DIR]";
+        "[--metric-space linear|logit] [--holdout H.npz] [--storage container|packed] [--no-cache] [--max-sweep-memory BYTES] [--out DIR]";
 
     public static Task<int> RunAsync(string[] args)
     {
@@ -61,11 +61,12 @@ internal static class PlanCommand
         var dataBytes = File.ReadAllBytes(args.Data);
         var data = CalibrationSet.Create(DatasetReader.Read(dataBytes), model.Inputs, args.Settings.SampleAxes);
         var holdout = args.Holdout is null ? null : CalibrationSet.Create(DatasetReader.Read(File.ReadAllBytes(args.Holdout)), model.Inputs, args.Settings.SampleAxes);
+        var sessionOptions = new TrialSessionOptions(MaxSweepMemoryBytes: args.MaxSweepMemoryBytes);
         var store = args.NoCache
             ? TrialCache.Off()
-            : TrialCache.Open(TrialCache.Folder(), TrialContext.Of(TrialContext.HashBytes(File.ReadAllBytes(args.Model)), TrialContext.HashBytes(dataBytes), args.Settings));
+            : TrialCache.Open(TrialCache.Folder(), TrialContext.Of(TrialContext.HashBytes(File.ReadAllBytes(args.Model)), TrialContext.HashBytes(dataBytes), args.Settings, sessionOptions));
         var clock = System.Diagnostics.Stopwatch.StartNew();
-        var result = SearchRunner.Run(model, data, args.Settings, store, new TerminalProgress(), CancellationToken.None, holdout: holdout);
+        var result = SearchRunner.Run(model, data, args.Settings, store, new TerminalProgress(), CancellationToken.None, sessionOptions, holdout);
         Console.Error.WriteLine();
 
         Directory.CreateDirectory(args.Out);
@@ -82,6 +83,11 @@ internal static class PlanCommand
         Console.Out.Write(Summary(manifest, result));
         var reused = store.Reused > 0 ? $" ({store.Reused} sensitivity trials reused from the trial cache {store.File})" : string.Empty;
         Console.Out.WriteLine($"{result.TrialCount} trials{reused} in {clock.Elapsed.TotalSeconds:0.0} s; artifacts in {Path.GetFullPath(args.Out)}");
+        if (result.SweepNote is { } sweep)
+        {
+            Console.Out.WriteLine($"sweep: {sweep}");
+        }
+
         if (store.Problem is { } problem)
         {
             Console.Error.WriteLine($"warning: {problem}");

@@ -14,7 +14,7 @@ internal sealed class EngineAdapter(IOptions<BitbudgetOptions> options) : ISearc
         MaxArrayBytes: options.Value.MaxDatasetDecodedBytes);
 
     /// <summary>The session settings every run of this process uses (Bitbudget:OnnxThreads).</summary>
-    private TrialSessionOptions SessionOptions => new() { IntraOpThreads = options.Value.OnnxThreads };
+    private TrialSessionOptions SessionOptions => TrialOptions(options.Value);
 
     public ModelSummary InspectModel(byte[] bytes, string name)
     {
@@ -95,4 +95,7 @@ internal sealed class EngineAdapter(IOptions<BitbudgetOptions> options) : ISearc
         SearchRunner.SweepLayers(loaded, data, settings, layers, trials, progress: null, cancellationToken, SessionOptions);
     }
 
+    /// <summary>The trial-session knobs the service's settings decide; <see cref="Jobs.SearchJob"/> keys reused trials by the same.</summary>
+    public static TrialSessionOptions TrialOptions(BitbudgetOptions settings) =>
+        new() { IntraOpThreads = settings.OnnxThreads, MaxSweepMemoryBytes = settings.MaxSweepMemoryBytes };
 }

@@ -71,6 +71,14 @@ internal sealed class BitbudgetOptions
     [Range(1, long.MaxValue)]
     public long MaxSearchMemoryBytes { get; set; } = 2048L * 1024 * 1024;
 
+    /// <summary>
+    /// Memory a search's sweep plans for: the samples per run and the activations cached at cut points are chosen to fit
+    /// it (the decoded data and the outputs count first). Changing it can move trial results in the last bits (other
+    /// samples per run), so stored trials are reused only by searches run under the same value.
+    /// </summary>
+    [Range(64L * 1024 * 1024, long.MaxValue)]
+    public long MaxSweepMemoryBytes { get; set; } = Bitbudget.Search.Evaluation.TrialSessionOptions.DefaultMaxSweepMemoryBytes;
+
     /// <summary>Longest an uploaded model may take to load in ONNX Runtime, the check every model passes at upload.</summary>
     [Range(1, 600)]
     public int ModelCheckSeconds { get; set; } = 30;

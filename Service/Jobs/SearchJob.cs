@@ -111,6 +111,11 @@ internal sealed partial class SearchJob(
                 result.ModelFileBytes,
                 result.Storage,
                 result.StorageNote);
+            if (result.SweepNote is { } sweep)
+            {
+                LogSweepPlan(logger, searchId, sweep);
+            }
+
             if (searches.Complete(owner, record))
             {
                 LogSucceeded(logger, searchId, result.Feasible, result.Message);
@@ -170,11 +175,12 @@ internal sealed partial class SearchJob(
     /// </summary>
     private List<string> ReusableSearches(SearchRecord search, string modelSha256, string datasetSha256, SearchSettings settings)
     {
-        var context = TrialContext.Of(modelSha256, datasetSha256, settings);
+        var session = EngineAdapter.TrialOptions(options.Value);
+        var context = TrialContext.Of(modelSha256, datasetSha256, settings, session);
         var reusable = new List<string>();
         foreach (var earlier in searches.ListOnSameInputs(search.ModelId, search.DatasetId))
         {
-            if (earlier.Id != search.Id && TrialContext.Of(modelSha256, datasetSha256, SearchVocabulary.ToSettings(earlier.Spec)) == context)
+            if (earlier.Id != search.Id && TrialContext.Of(modelSha256, datasetSha256, SearchVocabulary.ToSettings(earlier.Spec), session) == context)
             {
                 reusable.Add(earlier.Id);
             }
@@ -266,6 +272,9 @@ internal sealed partial class SearchJob(
 
     [LoggerMessage(EventId = 3008, Level = LogLevel.Information, Message = "Search {SearchId} is held by another run; waiting for it")]
     private static partial void LogWaitingForOtherRun(ILogger logger, string searchId);
+
+    [LoggerMessage(EventId = 3012, Level = LogLevel.Information, Message = "Search {SearchId} sweep: {SweepPlan}")]
+    private static partial void LogSweepPlan(ILogger logger, string searchId, string sweepPlan);
 
     [LoggerMessage(EventId = 3011, Level = LogLevel.Information, Message = "Search {SearchId} reuses the sensitivity trials of {Count} earlier searches on the same model, dataset and settings: {EarlierIds}")]
     private static partial void LogReusing(ILogger logger, string searchId, int count, string earlierIds);

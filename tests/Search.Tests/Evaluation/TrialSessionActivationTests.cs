@@ -17,7 +17,7 @@ public sealed class TrialSessionActivationTests
         var model = SmallModels.Mlp();
         var data = SmallModels.MlpData(model);
         using var plain = TrialSession.Open(model, data);
-        using var session = TrialSession.Open(model, data, new TrialSessionOptions(Activations: calibration));
+        using var session = TrialSession.Open(model, data, new TrialSessionOptions(Activations: calibration, CutEveryLayer: true));
         Assert.Equal(3, session.Activations.Count);
 
         TrialSessionTests.AssertBitwiseEqual(plain.ReferenceOutputs, session.ReferenceOutputs);
@@ -66,7 +66,7 @@ public sealed class TrialSessionActivationTests
     {
         var model = SmallModels.Mlp();
         var data = SmallModels.MlpData(model);
-        using var withSuffix = TrialSession.Open(model, data, new TrialSessionOptions(Activations: ActivationCalibration.MinMax));
+        using var withSuffix = TrialSession.Open(model, data, new TrialSessionOptions(Activations: ActivationCalibration.MinMax, CutEveryLayer: true));
         using var without = TrialSession.Open(model, data, new TrialSessionOptions(SuffixRuns: false, Activations: ActivationCalibration.MinMax));
 
         foreach (var layer in model.Layers)

