@@ -39,7 +39,15 @@ internal static class BenchmarkRun
             var size = (Option(args, "--size") ?? "48x192").Split('x').Select(v => int.Parse(v, CultureInfo.InvariantCulture)).ToArray();
             var bits = (Option(args, "--bits") ?? "2,3,4,5,6,8").Split(',').Select(v => int.Parse(v, CultureInfo.InvariantCulture)).ToArray();
             var model = OnnxModel.LoadFile(File.Exists(sweepModel) ? sweepModel : Path.Combine(ocr, sweepModel));
-            SweepBenchmark.Run(model, SyntheticData(model, samples, size[0], size[1]), repeat, bits);
+            if (Option(args, "--trials") is { } limit)
+            {
+                SweepBenchmark.Memory(model, SyntheticData(model, samples, size[0], size[1]), bits, int.Parse(limit, CultureInfo.InvariantCulture));
+            }
+            else
+            {
+                SweepBenchmark.Run(model, SyntheticData(model, samples, size[0], size[1]), repeat, bits);
+            }
+
             var peak = Process.GetCurrentProcess().PeakWorkingSet64;
             Console.WriteLine($"peak working set: {peak / 1048576.0:0} MiB (goal for the detector and recogniser at 32 samples: <= 1024 MiB)");
             return 0;

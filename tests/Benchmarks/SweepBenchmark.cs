@@ -17,6 +17,25 @@ namespace Bitbudget.Benchmarks;
 /// </summary>
 internal static class SweepBenchmark
 {
+    /// <summary>
+    /// The sweep's memory on a real-size model without the hours of a whole sweep: the session opens, plans the cuts
+    /// for every trial and caches their activations as a whole sweep would, then runs <paramref name="trials"/> trials
+    /// spread over the model (every cut's suffix session is built on the way).
+    /// </summary>
+    public static void Memory(OnnxModel model, CalibrationSet data, IReadOnlyList<int> bits, int trials)
+    {
+        var planned = SensitivitySweep.Plan(model.Layers, new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 30), bits));
+        var clock = Stopwatch.StartNew();
+        using var session = TrialSession.Open(model, data);
+        session.PrepareSweep(planned.GroupBy(t => t.Layer.Name).ToDictionary(g => g.Key, g => g.Count(), StringComparer.Ordinal));
+        var open = clock.Elapsed.TotalMilliseconds;
+        var spread = Enumerable.Range(0, trials).Select(i => planned[i * (planned.Count - 1) / Math.Max(1, trials - 1)]).Distinct().ToList();
+        clock.Restart();
+        SensitivitySweep.Run(session, spread, new InMemoryTrialStore(), null, CancellationToken.None);
+        Console.WriteLine(string.Create(CultureInfo.InvariantCulture, $"== memory: {model.Name}: {model.Layers.Count} layers, {data.SampleCount} samples; open, plan and cache {open:0} ms; {spread.Count} of {planned.Count} trials in {clock.Elapsed.TotalMilliseconds:0} ms"));
+        Console.WriteLine($"   {session.SweepNote}");
+    }
+
     public static void Run(OnnxModel model, CalibrationSet data, int repeat, IReadOnlyList<int> bits)
     {
         Console.WriteLine();
