@@ -191,10 +191,7 @@ public static class CompensatedRounding
                     var error = (matrix[k] - (step * s)) / pivot;
                     errors[(r * BlockColumns) + (i - start)] = error;
                     var rest = matrix.AsSpan(k + 1, end - i - 1);
-                    for (var j = 0; j < rest.Length; j++)
-                    {
-                        rest[j] -= error * rowOfU[j];
-                    }
+                    TensorPrimitives.MultiplyAdd(rowOfU, -error, rest, rest);
                 }
             }
 
@@ -212,11 +209,7 @@ public static class CompensatedRounding
                     var error = errors[(r * BlockColumns) + i];
                     if (error != 0)
                     {
-                        var rowOfU = factor.AsSpan(((start + i) * d) + end, d - end);
-                        for (var j = 0; j < rest.Length; j++)
-                        {
-                            rest[j] -= error * rowOfU[j];
-                        }
+                        TensorPrimitives.MultiplyAdd(factor.AsSpan(((start + i) * d) + end, d - end), -error, rest, rest);
                     }
                 }
             }
