@@ -60,6 +60,47 @@ public sealed class RecurrentAndTableLayerTests
         }
     }
 
+    /// <summary>
+    /// Compensated rounding reaches a recurrent W, whose input vectors are the rows of X (every step of every sample);
+    /// the moments gathered from ONNX Runtime's run must be Σ x xᵀ of the fed sequence, recomputed here. R (fed by the
+    /// op's hidden state) has no input the graph exposes and stays at nearest.
+    /// </summary>
+    [Theory]
+    [InlineData("LSTM", 4, "bidirectional")]
+    [InlineData("GRU", 3, "forward")]
+    public void RecurrentWGetsTheMomentsOfItsInputSequenceAndRStaysAtNearest(string op, int gates, string direction)
+    {
+        var model = OnnxModel.Load(RecurrentModel(op, gates, direction), "rnn");
+        var x = GraphBuilder.RandomValues(3, Samples * Steps * InputSize, 1.5f);
+        var data = CalibrationSet.Create([new NpyArray("x", ElementType.Float32, [Samples, Steps, InputSize], x)], model.Inputs);
+
+        var inputs = LayerInputCollector.Collect(model, data, model.Layers, 32, 1L << 30);
+
+        var w = Assert.Single(inputs);
+        Assert.Equal($"{op}_1.W", w.Key);
+        var directions = direction == "bidirectional" ? 2 : 1;
+        Assert.Equal(new LinearLayout(1, directions * gates * Hidden, InputSize, true), w.Value.Layout);
+        Assert.Equal(Samples * Steps, w.Value.Moments.Count(0));
+        var moment = w.Value.Moments.SecondMoment(0);
+        for (var i = 0; i < InputSize; i++)
+        {
+            for (var j = 0; j < InputSize; j++)
+            {
+                double expected = 0;
+                for (var v = 0; v < Samples * Steps; v++)
+                {
+                    expected += x[(v * InputSize) + i] * (double)x[(v * InputSize) + j];
+                }
+
+                Assert.Equal(expected, moment[(i * InputSize) + j], 4);
+            }
+        }
+
+        var rounder = new WeightRounder(model, inputs);
+        Assert.Equal(RoundingMethod.Nearest, rounder.RoundingFor($"{op}_1.R", new LayerSetting(4, Rounding: RoundingMethod.Compensated)));
+        Assert.Equal(RoundingMethod.Compensated, rounder.RoundingFor($"{op}_1.W", new LayerSetting(4, Rounding: RoundingMethod.Compensated)));
+    }
+
     [Fact]
     public void RecurrentWeightsInsideAnIfBranchBehindIdentityAreFound()
     {
