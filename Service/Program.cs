@@ -2,16 +2,11 @@ using Bitbudget.Service.Api;
 using Bitbudget.Service.Commands;
 using Bitbudget.Service.Hosting;
 
-// Command-line verbs (inspect, plan, demo) run the engine locally; no verb (or "serve") starts the service.
-if (CommandLine.IsCommand(args))
+// Verbs (inspect, plan, demo, help), help and --version run here and never start the service; no verb, or
+// "serve", or only host settings (--urls, --Bitbudget:NAME=VALUE) start the HTTP service.
+if (!CommandLine.StartsService(args))
 {
     return await CommandLine.RunAsync(args);
-}
-
-if (CommandLine.UnknownVerb(args) is { } unknown)
-{
-    await Console.Error.WriteLineAsync(unknown);
-    return 2;
 }
 
 try

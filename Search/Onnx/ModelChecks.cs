@@ -18,12 +18,12 @@ internal static class ModelChecks
     {
         if (bytes.Length == 0)
         {
-            throw NotOnnx($"The file '{name}' is empty; upload the .onnx file of an FP32 model.");
+            throw NotOnnx($"The file '{name}' is empty; an FP32 model's .onnx file is needed.");
         }
 
         if (bytes.AsSpan().StartsWith(PngSignature))
         {
-            throw NotOnnx($"The file '{name}' is a PNG image, not an ONNX model; upload the .onnx file of an FP32 model.");
+            throw NotOnnx($"The file '{name}' is a PNG image, not an ONNX model; an FP32 model's .onnx file is needed.");
         }
 
         P.ModelProto model;
@@ -33,12 +33,12 @@ internal static class ModelChecks
         }
         catch (InvalidProtocolBufferException ex)
         {
-            throw NotOnnx($"The file '{name}' is not a readable ONNX model (it is truncated or not an ONNX protobuf); upload the complete .onnx file.", ex);
+            throw NotOnnx($"The file '{name}' is not a readable ONNX model (it is truncated or not an ONNX protobuf); the complete .onnx file is needed.", ex);
         }
 
         if (model.Graph is null || model.IrVersion <= 0 || model.OpsetImport.Count == 0)
         {
-            throw NotOnnx($"The file '{name}' is not an ONNX model (it has no graph, IR version or opset); upload the .onnx file of an FP32 model.");
+            throw NotOnnx($"The file '{name}' is not an ONNX model (it has no graph, IR version or opset); an FP32 model's .onnx file is needed.");
         }
 
         return model;
@@ -98,7 +98,7 @@ internal static class ModelChecks
 
             throw new EngineException(
                 "model-external-data",
-                $"Tensor '{tensor.Name}' keeps its data in an external file; uploads must embed every weight in the .onnx file (save the model without external data).");
+                $"Tensor '{tensor.Name}' keeps its data in an external file; every weight must be embedded in the .onnx file (save the model without external data).");
         }
     }
 
@@ -113,7 +113,7 @@ internal static class ModelChecks
                     var label = Label(node);
                     throw new EngineException(
                         "model-already-quantized",
-                        $"The model is already quantized: node '{label}' is {node.OpType}. Upload the FP32 model instead.");
+                        $"The model is already quantized: node '{label}' is {node.OpType}; give the FP32 model instead.");
                 }
             }
         }

@@ -182,7 +182,7 @@ internal sealed class ModelNormaliser
         {
             throw new EngineException(
                 "model-already-quantized",
-                $"The model is already quantized: the weight '{source.ConstantName}' of node '{label}' is stored as {TensorCodec.TypeName(source.Tensor.DataType)}. Upload the FP32 model instead.");
+                $"The model is already quantized: the weight '{source.ConstantName}' of node '{label}' is stored as {TensorCodec.TypeName(source.Tensor.DataType)}; give the FP32 model instead.");
         }
 
         if (source.ConsumedType != (int)P.TensorProto.Types.DataType.Float || !TensorCodec.IsCastableFloat(source.Tensor.DataType))

@@ -96,10 +96,13 @@ public sealed class OnnxModel
     /// so normalisation, layers, trials and export all see the raised graph; whether the raise kept the outputs is
     /// checked on the calibration set by <see cref="Evaluation.OpsetRaiseCheck"/>.
     /// </summary>
-    public static OnnxModel Load(byte[] bytes, string name, long? targetOpset = null)
+    public static OnnxModel Load(byte[] bytes, string name, long? targetOpset = null) => Load(bytes, name, targetOpset, name);
+
+    /// <param name="fileLabel">How refusals name the file: the upload's name, or the path given on the command line.</param>
+    private static OnnxModel Load(byte[] bytes, string name, long? targetOpset, string fileLabel)
     {
         ArgumentNullException.ThrowIfNull(bytes);
-        var proto = ModelChecks.Parse(bytes, name);
+        var proto = ModelChecks.Parse(bytes, fileLabel);
         ModelChecks.DefaultOpset(proto);
         ModelChecks.RefuseExternalData(proto);
         TensorValidation.Check(proto);
@@ -138,7 +141,7 @@ public sealed class OnnxModel
             throw new EngineException("model-unreadable", $"The model file '{path}' cannot be read: {ex.Message}", ex);
         }
 
-        return Load(bytes, Path.GetFileNameWithoutExtension(path), targetOpset);
+        return Load(bytes, Path.GetFileNameWithoutExtension(path), targetOpset, path);
     }
 
     /// <summary>FP32 values of a layer's weight after BatchNormalization folding, in C order.</summary>

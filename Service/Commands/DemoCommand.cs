@@ -1,3 +1,4 @@
+using System.CommandLine;
 using System.Globalization;
 using Bitbudget.Service.Demo;
 
@@ -10,41 +11,47 @@ namespace Bitbudget.Service.Commands;
 /// </summary>
 internal static class DemoCommand
 {
-    private const string Usage = "usage: demo [--out DIR] [--version N]   (writes the hive-monitor demo model and data sets; DIR defaults to ./demo; N > 1 writes a retrain of the model, seeds moved by N - 1)";
+    public static readonly IReadOnlyList<string> Examples =
+    [
+        $"{CommandLine.ProgramName} demo",
+        $"{CommandLine.ProgramName} demo --out /tmp/hive",
+        $"{CommandLine.ProgramName} demo --out demo-v2 --version 2",
+    ];
 
-    public static Task<int> RunAsync(string[] args)
+    public static Command Create()
     {
-        string outputFolder = "demo";
-        int version = 1;
-        for (int i = 0; i < args.Length; i++)
+        var output = new Option<string>("--out") { HelpName = "DIR", Description = "The folder to write into (created if missing).", DefaultValueFactory = _ => "demo" };
+        // The model's version, not the program's: the program's --version belongs to the top level only.
+        var version = new Option<int>("--version")
         {
-            switch (args[i])
+            HelpName = "N",
+            Description = "Write a retrain of the model (the same data, seeds moved by N - 1), to compare the searches of two versions.",
+            DefaultValueFactory = _ => 1,
+        };
+        version.CustomParser = result =>
+        {
+            var text = result.Tokens.Count == 1 ? result.Tokens[0].Value : string.Join(' ', result.Tokens.Select(t => t.Value));
+            if (int.TryParse(text, NumberStyles.None, CultureInfo.InvariantCulture, out var n) && n >= 1)
             {
-                case "--out" when i + 1 < args.Length:
-                    outputFolder = args[++i];
-                    break;
-                case "--version" when i + 1 < args.Length:
-                    if (!int.TryParse(args[++i], NumberStyles.None, CultureInfo.InvariantCulture, out version) || version < 1)
-                    {
-                        Console.Error.WriteLine($"demo: --version takes a whole number of 1 or more, not '{args[i]}'.");
-                        return Task.FromResult(2);
-                    }
-
-                    break;
-                case "--help" or "-h":
-                    Console.WriteLine(Usage);
-                    return Task.FromResult(0);
-                default:
-                    Console.Error.WriteLine(args[i] is "--out" or "--version"
-                        ? $"demo: {args[i]} needs a value after it."
-                        : $"demo: unknown argument '{args[i]}'.");
-                    Console.Error.WriteLine(Usage);
-                    return Task.FromResult(2);
+                return n;
             }
-        }
 
+            result.AddError($"--version takes a whole number of 1 or more, not '{text}'.");
+            return 0;
+        };
+        var demo = new Command("demo", "Trains the invented hive-monitor demo model (seconds, deterministic) and writes it with a calibration set, a held-out set and a README.")
+        {
+            output,
+            version,
+        };
+        demo.SetAction(result => Run(result.GetRequiredValue(output), result.GetValue(version)));
+        return demo;
+    }
+
+    private static int Run(string outputFolder, int version)
+    {
         CultureInfo invariant = CultureInfo.InvariantCulture;
-        Console.WriteLine(string.Create(CultureInfo.InvariantCulture, $"Hive monitor demo (invented setting): training a 4-state classifier on synthetic hive sound{(version > 1 ? $" (retrain, version {version})" : "")}"));
+        Console.WriteLine(string.Create(invariant, $"Hive monitor demo (invented setting): training a 4-state classifier on synthetic hive sound{(version > 1 ? $" (retrain, version {version})" : "")}"));
         Console.WriteLine(string.Create(invariant, $"  {HiveMonitorScenario.TrainingCount} training patches, {HiveMonitorScenario.Epochs} epochs, batch {HiveMonitorScenario.BatchSize}, Adam"));
 
         DemoResult result;
@@ -56,8 +63,8 @@ internal static class DemoCommand
         }
         catch (Exception e) when (e is IOException or UnauthorizedAccessException)
         {
-            Console.Error.WriteLine($"demo: cannot write to '{outputFolder}': {e.Message}");
-            return Task.FromResult(1);
+            Console.Error.WriteLine($"error: {FileErrors.CannotWrite(outputFolder, e)}");
+            return ExitCodes.BadFile;
         }
 
         Console.WriteLine(string.Create(invariant, $"FP32 accuracy on the held-out set: {result.HoldoutAccuracy * 100:F1}% ({result.Holdout.Count} patches)"));
@@ -70,6 +77,6 @@ internal static class DemoCommand
         // CPU time beside wall time: on a shared machine the wall clock says little about the work done.
         double cpuSeconds = System.Diagnostics.Process.GetCurrentProcess().TotalProcessorTime.TotalSeconds;
         Console.WriteLine(string.Create(invariant, $"Took {result.Elapsed.TotalSeconds:F1} s ({cpuSeconds:F1} s CPU for the whole process)"));
-        return Task.FromResult(0);
+        return ExitCodes.Done;
     }
 }

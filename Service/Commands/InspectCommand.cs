@@ -1,3 +1,4 @@
+using System.CommandLine;
 using System.Globalization;
 using System.Text;
 using System.Text.Json;
@@ -10,37 +11,29 @@ namespace Bitbudget.Service.Commands;
 /// <summary><c>inspect MODEL.onnx [--json]</c>: loads a model as an upload would be and prints its layer table.</summary>
 internal static class InspectCommand
 {
-    private const string Usage = "usage: inspect MODEL.onnx [--json]";
+    public static readonly IReadOnlyList<string> Examples =
+    [
+        $"{CommandLine.ProgramName} inspect demo/hive-monitor.onnx",
+        $"{CommandLine.ProgramName} inspect demo/hive-monitor.onnx --json > layers.json",
+    ];
 
     private static readonly JsonSerializerOptions Json = new(JsonSerializerDefaults.Web) { WriteIndented = true };
 
-    public static Task<int> RunAsync(string[] args)
+    public static Command Create()
     {
-        string? path = null;
-        var json = false;
-        foreach (var arg in args)
+        var model = new Argument<string>("MODEL.onnx") { Description = "The FP32 ONNX model to read." };
+        var json = new Option<bool>("--json") { Description = "Print JSON instead of the table." };
+        var inspect = new Command("inspect", "Loads a model as a search would and prints its layers (the weights it will quantize), the weights that stay FP32 and why, and notes.")
         {
-            if (arg == "--json")
-            {
-                json = true;
-            }
-            else if (arg.StartsWith('-') || path is not null)
-            {
-                Console.Error.WriteLine(Usage);
-                return Task.FromResult(2);
-            }
-            else
-            {
-                path = arg;
-            }
-        }
+            model,
+            json,
+        };
+        inspect.SetAction(result => Run(result.GetRequiredValue(model), result.GetValue(json)));
+        return inspect;
+    }
 
-        if (path is null)
-        {
-            Console.Error.WriteLine(Usage);
-            return Task.FromResult(2);
-        }
-
+    private static int Run(string path, bool json)
+    {
         OnnxModel model;
         try
         {
@@ -49,11 +42,11 @@ internal static class InspectCommand
         catch (EngineException ex)
         {
             Console.Error.WriteLine($"error: {ex.Message}");
-            return Task.FromResult(1);
+            return ExitCodes.BadFile;
         }
 
         Console.Out.Write(json ? ToJson(model) : ToTable(model));
-        return Task.FromResult(0);
+        return ExitCodes.Done;
     }
 
     private static string ToJson(OnnxModel model)

@@ -16,6 +16,9 @@ internal static partial class StartupFailure
     public static IReadOnlyList<string>? Describe(Exception exception) => exception switch
     {
         StartupRefusedException refused => [refused.Message],
+        // Kestrel: IOException "Failed to bind to address http://127.0.0.1:5080: address already in use." around AddressInUseException.
+        IOException { InnerException: Microsoft.AspNetCore.Connections.AddressInUseException } busy =>
+            [$"{busy.Message.TrimEnd('.')}; another program (perhaps another Bitbudget) listens there: stop it, or give this one another address with --urls http://127.0.0.1:PORT."],
         OptionsValidationException invalid => invalid.Failures.ToList(),
         InvalidOperationException conversion when ConversionFailed().Match(conversion.Message) is { Success: true } match =>
             [$"Setting {match.Groups["key"].Value} must be {Kind(match.Groups["type"].Value)}; got '{match.Groups["value"].Value}'."],

@@ -9,16 +9,24 @@ internal sealed partial class RecoveryLoop(SearchRecovery recovery, IOptions<Bit
     protected override async Task ExecuteAsync(CancellationToken stoppingToken)
     {
         using var timer = new PeriodicTimer(TimeSpan.FromSeconds(options.Value.RecoveryIntervalSeconds));
-        while (await timer.WaitForNextTickAsync(stoppingToken).ConfigureAwait(false))
+        try
         {
-            try
+            while (await timer.WaitForNextTickAsync(stoppingToken).ConfigureAwait(false))
             {
-                recovery.Run();
+                try
+                {
+                    recovery.Run();
+                }
+                catch (Exception e) when (e is System.Data.Common.DbException or InvalidOperationException)
+                {
+                    LogFailed(logger, e);
+                }
             }
-            catch (Exception e) when (e is System.Data.Common.DbException or InvalidOperationException)
-            {
-                LogFailed(logger, e);
-            }
+        }
+        catch (OperationCanceledException) when (stoppingToken.IsCancellationRequested)
+        {
+            // The host is stopping. When it never finished starting (its address was taken), it is disposed without a
+            // stop, and the host would log this cancellation as a crash of the loop, stack trace and all.
         }
     }
 

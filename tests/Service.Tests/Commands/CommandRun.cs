@@ -2,7 +2,7 @@ using Bitbudget.Service.Commands;
 
 namespace Bitbudget.Service.Tests.Commands;
 
-/// <summary>One in-process run of a verb through <see cref="CommandLine.RunAsync"/>: exit code and what it printed.</summary>
+/// <summary>One in-process run of the command line through <see cref="CommandLine.RunAsync"/> (what Program.cs calls): exit code and what it printed.</summary>
 internal sealed record CommandRun(int ExitCode, string Out, string Error)
 {
     private static readonly SemaphoreSlim ConsoleLock = new(1, 1);
@@ -15,7 +15,7 @@ internal sealed record CommandRun(int ExitCode, string Out, string Error)
 
     public static async Task<CommandRun> RunAsync(params string[] args)
     {
-        Assert.True(CommandLine.IsCommand(args), $"'{args[0]}' is not a registered verb.");
+        Assert.False(CommandLine.StartsService(args), $"'{string.Join(' ', args)}' would start the service.");
         await ConsoleLock.WaitAsync();
         var (oldOut, oldError) = (Console.Out, Console.Error);
         using var output = new StringWriter();

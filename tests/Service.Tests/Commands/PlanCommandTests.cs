@@ -155,7 +155,7 @@ public sealed class PlanCommandTests(PlanDemoFixture fixture) : IClassFixture<Pl
         Assert.True(Math.Abs(counted - written) <= written / 100, $"counted {counted} B, wrote {written} B");
         var fp32 = totals.GetProperty("float32Bytes").GetInt64();
         Assert.Equal(fp32 / (double)written, totals.GetProperty("compression").GetDouble(), 9);
-        Assert.Contains($"written: model.quantized.onnx {written} bytes", run.Out, StringComparison.Ordinal);
+        Assert.Contains($"written: model.quantized.onnx {written:N0} bytes", run.Out, StringComparison.Ordinal);
 
         // Every layer at 2-4 bits is int4 (ONNX IR: two values per byte), 5-8 bits int8.
         var proto = P.ModelProto.Parser.ParseFrom(File.ReadAllBytes(Path.Combine(outFolder, "model.quantized.onnx")));
@@ -179,6 +179,108 @@ public sealed class PlanCommandTests(PlanDemoFixture fixture) : IClassFixture<Pl
         Assert.Contains("With --storage packed", note, StringComparison.Ordinal);
         Assert.DoesNotContain("did not measure", note, StringComparison.Ordinal);
         Assert.Contains(note, run.Out, StringComparison.Ordinal);
+    }
+
+    [Theory]
+    [InlineData("--bits 1,4", "Bit width 1 is not supported")]
+    [InlineData("--budget top1>=99", "The budget limit 99 is out of range for top1")]
+    [InlineData("--pin fc9=4", "Pinned layer 'fc9' is not a layer of the model")]
+    [InlineData("--exclude nope", "Excluded layer 'nope' is not a layer of the model")]
+    [InlineData("--outputs nope", "Output 'nope' is not an output of the model")]
+    public async Task ArgumentsTheModelDoesNotTakeExit2AndWriteNothing(string arguments, string said)
+    {
+        var outFolder = Path.Combine(fixture.Folder, "refused-" + Guid.NewGuid().ToString("N"));
+        var given = arguments.Split(' ');
+        string[] budget = given[0] == "--budget" ? [] : ["--budget", "sqnr>=25"];
+        var run = await CommandRun.RunAsync(["plan", "--model", fixture.ModelPath, "--data", fixture.CalibrationPath, .. budget, .. given, "--out", outFolder]);
+
+        Assert.True(run.ExitCode == 2, run.ToString());
+        var line = Assert.Single(run.ErrorLinesStartingWithError);
+        Assert.Contains(said, line, StringComparison.Ordinal);
+        Assert.False(Directory.Exists(outFolder), "A refused plan must write nothing.");
+    }
+
+    [Fact]
+    public async Task AMissingDatasetIsOneSentenceNamingTheFileAndExit1()
+    {
+        var missing = Path.Combine(fixture.Folder, "no-such.npz");
+        var run = await CommandRun.RunAsync("plan", "--model", fixture.ModelPath, "--data", missing, "--budget", "sqnr>=25", "--out", Path.Combine(fixture.Folder, "x"));
+
+        Assert.True(run.ExitCode == 1, run.ToString());
+        Assert.Equal([$"error: Cannot read the dataset (--data) '{missing}': no such file."], run.ErrorLinesStartingWithError);
+    }
+
+    [Fact]
+    public async Task AModelFileThatIsNotOnnxIsNamedByItsPathWithoutSpeakingOfUploads()
+    {
+        var run = await CommandRun.RunAsync("plan", "--model", fixture.CalibrationPath, "--data", fixture.CalibrationPath, "--budget", "sqnr>=25", "--out", Path.Combine(fixture.Folder, "x"));
+
+        Assert.True(run.ExitCode == 1, run.ToString());
+        var line = Assert.Single(run.ErrorLinesStartingWithError);
+        Assert.Contains($"'{fixture.CalibrationPath}' is not a readable ONNX model", line, StringComparison.Ordinal);
+        Assert.DoesNotContain("upload", line, StringComparison.OrdinalIgnoreCase);
+    }
+
+    [Fact]
+    public async Task AnOutFolderThatCannotBeWrittenIsRefusedBeforeTheSearchInOneSentence()
+    {
+        // A file where a folder on the --out path should be: refused before any trial runs (nothing on standard output).
+        var blocker = Path.Combine(fixture.Folder, "a-file");
+        File.WriteAllText(blocker, "not a folder");
+        var run = await CommandRun.RunAsync("plan", "--model", fixture.ModelPath, "--data", fixture.CalibrationPath, "--budget", "sqnr>=25", "--out", Path.Combine(blocker, "plan"));
+
+        Assert.True(run.ExitCode == 1, run.ToString());
+        Assert.Equal([$"error: Cannot write to '{Path.Combine(blocker, "plan")}' (--out): '{blocker}' on its path is a file, not a folder."], run.ErrorLinesStartingWithError);
+        Assert.Empty(run.Out);
+    }
+
+    [Fact]
+    public async Task ATop1BudgetFinerThanTheCalibrationSetIsWarnedAboutWithTheSamplesNeeded()
+    {
+        // The demo's calibration set has 64 samples: one changed answer is 1.56% of top-1 agreement, more than the 1%
+        // that top1>=0.99 allows; 100 samples would allow one.
+        Assert.Equal(64, HiveMonitorScenario.CalibrationCount);
+        var outFolder = Path.Combine(fixture.Folder, "top1");
+        var run = await CommandRun.RunAsync("plan", "--model", fixture.ModelPath, "--data", fixture.CalibrationPath, "--budget", "top1>=0.99", "--bits", "2,4,8", "--quiet", "--out", outFolder);
+
+        Assert.True(run.ExitCode == 0, run.ToString());
+        var warning = Assert.Single(run.Out.Split('\n'), l => l.StartsWith("warning: The budget top1>=0.99 is finer than the calibration set can resolve", StringComparison.Ordinal));
+        Assert.Contains("one of its 64 samples changes top-1 agreement by 1.56%, more than the 1% the budget allows", warning, StringComparison.Ordinal);
+        Assert.Contains("About 100 samples would let one answer in 100 change", warning, StringComparison.Ordinal);
+        using var manifest = JsonDocument.Parse(File.ReadAllBytes(Path.Combine(outFolder, "manifest.json")));
+        Assert.Contains(manifest.RootElement.GetProperty("warnings").EnumerateArray(), w => warning.EndsWith(w.GetString()!, StringComparison.Ordinal));
+
+        // Quiet: no progress at all, so standard error is empty.
+        Assert.Empty(run.Error);
+    }
+
+    [Fact]
+    public async Task TheSummaryTableHasUnitsOneNumberFormatAndALegendForItsMarks()
+    {
+        var outFolder = Path.Combine(fixture.Folder, "excluded");
+        var run = await CommandRun.RunAsync("plan", "--model", fixture.ModelPath, "--data", fixture.CalibrationPath, "--budget", "sqnr>=25", "--bits", "2,4,8", "--exclude", "fc2", "--out", outFolder);
+
+        Assert.True(run.ExitCode == 0, run.ToString());
+        Assert.Matches(@"(?m)^layer\s+op\s+parameters\s+bits\s+size \(bytes\)$", run.Out);
+
+        // Every count of four digits or more carries thousands separators: conv2 has 1,152 parameters, fc1 32,768.
+        Assert.Matches(@"(?m)^conv2\s+Conv\s+1,152\s+\d\s+[\d,]+$", run.Out);
+        Assert.Matches(@"(?m)^fc1\s+Gemm\s+32,768\s", run.Out);
+        Assert.DoesNotMatch(@"\b\d{4,}\b", string.Join('\n', run.Out.Split('\n').Where(l => !l.Contains("artifacts in", StringComparison.Ordinal) && !l.StartsWith("sqnr", StringComparison.Ordinal))));
+        Assert.Matches(@"(?m)^fc2\s+Gemm\s+128\s+fp32\*", run.Out);
+        Assert.Contains("bits: fp32* excluded (--exclude), kept FP32", run.Out, StringComparison.Ordinal);
+        Assert.Matches(@"(?m)^sqnr: predicted \d+\.\d dB SQNR, measured \d+\.\d dB SQNR", run.Out);
+    }
+
+    [Fact]
+    public void WithoutATerminalProgressIsPlainStageLinesWithoutCarriageReturns()
+    {
+        // The fixture's run wrote to a StringWriter, not a terminal (the test host's standard error is redirected).
+        Assert.True(Console.IsErrorRedirected);
+        Assert.DoesNotContain('\r', fixture.Plan.Error);
+        Assert.Equal("reference: started (1 steps)", fixture.Plan.ErrorLines[0]);
+        Assert.Contains("sweep: done (12/12)", fixture.Plan.ErrorLines);
+        Assert.Equal("export: done (1/1)", fixture.Plan.ErrorLines[^1]);
     }
 
     private JsonDocument ReadJson(string name) => JsonDocument.Parse(File.ReadAllBytes(Path.Combine(fixture.PlanFolder, name)));
