@@ -128,6 +128,24 @@ public sealed class RealEngineWalkthroughTests : IClassFixture<RealEngineFixture
         Assert.StartsWith($"Layer '{UncoveredModel.UntakenLayer}' is not exercised", warning.GetString(), StringComparison.Ordinal);
     }
 
+    [Fact]
+    public async Task SearchSummaryWarnsWhenATop1BudgetIsFinerThanTheCalibrationSetCanResolve()
+    {
+        // 64 calibration samples: one changed answer is 1.56% of top-1 agreement, more than top1>=0.99 allows.
+        var (modelId, datasetId) = await client.UploadAsync(
+            "hive-monitor.onnx", File.ReadAllBytes(demo.PathOf(HiveMonitorScenario.ModelFileName)), File.ReadAllBytes(demo.PathOf(HiveMonitorScenario.CalibrationFileName)));
+
+        var started = await client.StartSearchAsync(new { modelId, datasetId, budget = new { metric = "top1", atLeast = 0.99 }, bits = new[] { 2, 4, 8 } });
+        var search = await WaitForEndAsync(client, started.GetProperty("id").GetString()!);
+
+        Assert.True(search.GetProperty("state").GetString() == "succeeded", search.ToString());
+        var warning = Assert.Single(
+            search.GetProperty("summary").GetProperty("warnings").EnumerateArray().Select(w => w.GetString()!),
+            w => w.StartsWith("The budget top1>=0.99 is finer than the calibration set can resolve", StringComparison.Ordinal));
+        Assert.Contains($"one of its {HiveMonitorScenario.CalibrationCount} samples changes top-1 agreement by 1.56%", warning, StringComparison.Ordinal);
+        Assert.Contains("About 100 samples", warning, StringComparison.Ordinal);
+    }
+
     /// <summary>Starts the search, waits for it, checks every artifact and returns the quantized model with what the manifest claims.</summary>
     private async Task<Downloaded> WalkAsync(string modelId, string datasetId, int[] bits, double atLeastDb, int layers, string downloadName)
     {
