@@ -27,7 +27,7 @@ internal static class SweepMemory
         var fixedBytes = (2 * dataBytes) + (3 * parameters * sizeof(float)) + (3 * outputsPerSample * data.SampleCount);
         var rest = Math.Max(0, options.MaxSweepMemoryBytes - fixedBytes);
         var cap = Math.Max(1, Math.Min(options.MaxBatch, data.SampleCount));
-        var limit = string.Create(CultureInfo.InvariantCulture, $"MaxSweepMemoryBytes {options.MaxSweepMemoryBytes / MiB:0} MiB, {fixedBytes / MiB:0.#} MiB of it for data, weights and outputs");
+        var limit = string.Create(CultureInfo.InvariantCulture, $"MaxSweepMemoryBytes {options.MaxSweepMemoryBytes / MiB:#,0} MiB, {fixedBytes / MiB:#,0.#} MiB of it for data, weights and outputs");
 
         if (data.SamplesPerRun is int fixedRun)
         {
@@ -44,6 +44,6 @@ internal static class SweepMemory
         return new Choice(
             chunk,
             cache,
-            string.Create(CultureInfo.InvariantCulture, $"{chunk} of {data.SampleCount} samples per run (at most {activationsPerSample / MiB:0.#} MiB of activations per sample; {limit})"));
+            string.Create(CultureInfo.InvariantCulture, $"{chunk:#,0} of {data.SampleCount:#,0} samples per run (at most {activationsPerSample / MiB:#,0.#} MiB of activations per sample; {limit})"));
     }
 }
