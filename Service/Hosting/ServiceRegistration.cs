@@ -1,3 +1,4 @@
+using Bitbudget.Service.Api;
 using Bitbudget.Service.Auth;
 using Bitbudget.Service.Engine;
 using Bitbudget.Service.Jobs;
@@ -62,7 +63,7 @@ internal static class ServiceRegistration
             Timeout = TimeSpan.FromSeconds(configured.RequestTimeoutSeconds),
             TimeoutStatusCode = StatusCodes.Status504GatewayTimeout,
         });
-        services.AddOpenApi();
+        services.AddBitbudgetOpenApi();
 
         services.AddBitbudgetStore();
         services.TryAddSingleton<ISearchEngine, EngineAdapter>();
