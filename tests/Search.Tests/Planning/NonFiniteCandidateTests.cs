@@ -16,8 +16,7 @@ public sealed class NonFiniteCandidateTests
     [Fact]
     public void AWidthThatMakesTheOutputsNonFiniteIsNotOfferedAndTheSearchSaysSo()
     {
-        var weights = GraphBuilder.RandomValues(3, 16, 0.5f);
-        weights[5] = 1e5f;
+        var weights = OverflowingFp16();
         var model = OnnxModel.Load(
             new GraphBuilder()
                 .Opset(13)
@@ -31,7 +30,7 @@ public sealed class NonFiniteCandidateTests
             "overflow");
         var data = SmallModels.MlpData(model); // labels in [0, 10), as y has 10 classes
 
-        var result = SearchRunner.Run(model, data, new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 20), [8, 16]), new InMemoryTrialStore(), null, CancellationToken.None);
+        var result = Search(model, data, [8, 16]);
 
         Assert.True(result.Feasible, result.Message);
         var manifest = ManifestJson.Deserialize(result.ManifestJson);
@@ -67,7 +66,7 @@ public sealed class NonFiniteCandidateTests
                 .ToBytes(),
             "silent");
 
-        var result = SearchRunner.Run(model, SmallModels.MlpData(model), new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 20), [8, 16]), new InMemoryTrialStore(), null, CancellationToken.None);
+        var result = Search(model, SmallModels.MlpData(model), [8, 16]);
 
         Assert.Contains(result.Warnings!, w => w.StartsWith("Output 'silent' is zero on every calibration sample", StringComparison.Ordinal));
         Assert.DoesNotContain(result.Warnings!, w => w.StartsWith("Output 'y'", StringComparison.Ordinal));
@@ -76,8 +75,7 @@ public sealed class NonFiniteCandidateTests
     [Fact]
     public void WhenNoWidthOfALayerWorksTheSearchSaysWhatToDo()
     {
-        var weights = GraphBuilder.RandomValues(3, 16, 0.5f);
-        weights[5] = 1e5f;
+        var weights = OverflowingFp16();
         var model = OnnxModel.Load(
             new GraphBuilder()
                 .Opset(13)
@@ -88,11 +86,21 @@ public sealed class NonFiniteCandidateTests
                 .ToBytes(),
             "overflow");
 
-        var error = Assert.Throws<EngineException>(() => SearchRunner.Run(
-            model, SmallModels.MlpData(model), new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 20), [16]), new InMemoryTrialStore(), null, CancellationToken.None));
+        var error = Assert.Throws<EngineException>(() => Search(model, SmallModels.MlpData(model), [16]));
 
         Assert.Equal("trial-non-finite", error.Code);
         Assert.Contains("'fc1'", error.Message, StringComparison.Ordinal);
         Assert.Contains("add 32", error.Message, StringComparison.Ordinal);
     }
+
+    /// <summary>16 small weights and one of 1e5, beyond FP16's largest finite value (65504, IEEE 754 binary16).</summary>
+    private static float[] OverflowingFp16()
+    {
+        var weights = GraphBuilder.RandomValues(3, 16, 0.5f);
+        weights[5] = 1e5f;
+        return weights;
+    }
+
+    private static SearchResult Search(OnnxModel model, CalibrationSet data, int[] bits) =>
+        SearchRunner.Run(model, data, new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 20), bits), new InMemoryTrialStore(), null, CancellationToken.None);
 }
