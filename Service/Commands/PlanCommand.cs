@@ -89,15 +89,15 @@ internal static class PlanCommand
     private static int Search(PlanArguments args, PlanProgress progress)
     {
         var model = OnnxModel.LoadFile(args.Model, args.Settings.TargetOpset);
-        var data = ReadDataset("the dataset (--data)", args.Data, model, args.Settings);
-        var holdout = args.Holdout is null ? null : ReadDataset("the held-out set (--holdout)", args.Holdout, model, args.Settings);
+        var (data, dataSha256) = ReadDataset("the dataset (--data)", args.Data, model, args.Settings);
+        var holdout = args.Holdout is null ? null : ReadDataset("the held-out set (--holdout)", args.Holdout, model, args.Settings).Set;
 
         // Before the search, so a long search never ends in an error about where to put its results.
         OutputFolder.CheckWritable(args.Out);
         var sessionOptions = new TrialSessionOptions(MaxSweepMemoryBytes: args.MaxSweepMemoryBytes);
         var store = args.NoCache
             ? TrialCache.Off()
-            : TrialCache.Open(TrialCache.Folder(), TrialContext.Of(TrialContext.HashBytes(File.ReadAllBytes(args.Model)), TrialContext.HashBytes(File.ReadAllBytes(args.Data)), args.Settings, sessionOptions));
+            : TrialCache.Open(TrialCache.Folder(), TrialContext.Of(model.Sha256, dataSha256, args.Settings, sessionOptions));
         var clock = System.Diagnostics.Stopwatch.StartNew();
         var result = SearchRunner.Run(model, data, args.Settings, store, progress, CancellationToken.None, sessionOptions, holdout);
         progress.Finish();
@@ -131,7 +131,8 @@ internal static class PlanCommand
         return result.Feasible ? ExitCodes.Done : ExitCodes.BudgetNotMet;
     }
 
-    private static CalibrationSet ReadDataset(string what, string path, OnnxModel model, SearchSettings settings)
+    /// <summary>The dataset and the SHA-256 of its bytes (the trial cache's key), from one read of the file.</summary>
+    private static (CalibrationSet Set, string Sha256) ReadDataset(string what, string path, OnnxModel model, SearchSettings settings)
     {
         byte[] bytes;
         try
@@ -145,7 +146,7 @@ internal static class PlanCommand
 
         try
         {
-            return CalibrationSet.Create(DatasetReader.Read(bytes), model.Inputs, settings.SampleAxes);
+            return (CalibrationSet.Create(DatasetReader.Read(bytes), model.Inputs, settings.SampleAxes), TrialContext.HashBytes(bytes));
         }
         catch (EngineException e) when (!ArgumentCodes.Contains(e.Code))
         {
