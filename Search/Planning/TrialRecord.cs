@@ -17,6 +17,11 @@ namespace Bitbudget.Search.Planning;
 /// validation. Null for trials stored before assignments were kept.
 /// </param>
 /// <param name="Activations">How layer inputs were quantized to 8 bits ("min-max", "percentile"); null when they stayed FP32.</param>
+/// <param name="ReusedFrom">
+/// Where a trial this search did not measure itself came from: the service gives the id of the earlier search that
+/// measured it (same model, dataset and settings), the command line the trial cache file; null for a trial measured
+/// by this search. The engine never reads it: a reused trial counts like any other.
+/// </param>
 public sealed record TrialRecord(
     string Key,
     string Kind,
@@ -26,4 +31,5 @@ public sealed record TrialRecord(
     MetricSet Metrics,
     double DurationMs,
     IReadOnlyDictionary<string, LayerSetting>? Assignment = null,
-    ActivationCalibration? Activations = null);
+    ActivationCalibration? Activations = null,
+    string? ReusedFrom = null);

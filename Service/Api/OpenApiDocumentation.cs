@@ -30,6 +30,15 @@ internal static class OpenApiDocumentation
         ["metric"] = SearchVocabulary.Metrics.Keys,
     };
 
+    /// <summary>What the trial page's counts and a trial's origin mean (the generator does not read doc comments).</summary>
+    private static readonly Dictionary<(Type, string), string> Meanings = new()
+    {
+        [(typeof(TrialPageResponse), "total")] = "Every trial the search's result rests on, measured or reused; the manifest's trials once the search is done.",
+        [(typeof(TrialPageResponse), "measured")] = "Trials this search measured itself: what its sweep and validations cost.",
+        [(typeof(TrialPageResponse), "reused")] = "Sensitivity trials taken from earlier searches on the same model, dataset and settings instead of measured again.",
+        [(typeof(Bitbudget.Search.Planning.TrialRecord), "reusedFrom")] = "The id of the earlier search that measured this trial (same model, dataset and settings); null for a trial this search measured.",
+    };
+
     public static IServiceCollection AddBitbudgetOpenApi(this IServiceCollection services) =>
         services.AddOpenApi(options =>
         {
@@ -48,6 +57,11 @@ internal static class OpenApiDocumentation
 
                     schema.Enum = accepted;
                     schema.Description = (schema.Description is null ? string.Empty : schema.Description + " ") + "Accepted in any case; answers spell it as listed.";
+                }
+
+                if (context.JsonPropertyInfo is { } described && Meanings.TryGetValue((described.DeclaringType, described.Name), out var meaning))
+                {
+                    schema.Description = meaning;
                 }
 
                 // A size budget ({"bytes": N} or {"averageBits": B}) needs no metric; an error budget's is checked by the service.
@@ -185,7 +199,7 @@ internal static class OpenApiDocumentation
             {
                 ("/v1/searches", "limit") => "How many searches to list, 1 to 500 (default 50), newest first.",
                 (_, "limit") => "Trials per page, 1 to 1000 (default 100).",
-                (_, "offset") => "Trials to skip, in the order measured (default 0); the page's total says how many there are.",
+                (_, "offset") => "Trials to skip, in the order stored (default 0); the page's total says how many there are.",
                 (_, "modelId") => "Only this model's searches.",
                 (_, "name") => "The model's name (default: the uploaded file's name).",
                 _ => null,

@@ -40,7 +40,7 @@ internal static class SearchesApi
             .WithSummary("Two succeeded searches side by side: per layer (matched by name, then by weight shape) the chosen bits, the sensitivity at each width and the change; plus the totals")
             .ProducesProblem(StatusCodes.Status404NotFound)
             .ProducesProblem(StatusCodes.Status409Conflict);
-        group.MapGet("/{id}/trials", Trials).WithName("GetSearchTrials").WithSummary("Every stored trial, in the order measured, one page at a time");
+        group.MapGet("/{id}/trials", Trials).WithName("GetSearchTrials").WithSummary("Every trial the search's result rests on, measured or reused from an earlier search (reusedFrom), in the order stored, one page at a time");
         return app;
     }
 
@@ -187,8 +187,8 @@ internal static class SearchesApi
         }
 
         var (start, size) = (offset ?? 0, limit ?? DefaultTrialPage);
-        var (total, items) = new TrialStore(database, id).Page(start, size);
-        return TypedResults.Ok(new TrialPageResponse(total, start, size, items));
+        var (total, reused, items) = new TrialStore(database, id).Page(start, size);
+        return TypedResults.Ok(new TrialPageResponse(total, total - reused, reused, start, size, items));
     }
 
     /// <summary>Serves one stored artifact with its SHA-256 as a strong ETag (If-None-Match gives 304), or says why it is not there yet.</summary>

@@ -116,7 +116,8 @@ internal static class PlanCommand
 
         var manifest = ManifestJson.Deserialize(result.ManifestJson);
         Console.Out.Write(PlanSummary.Write(manifest, result, args.Settings.Budget));
-        var reused = store.Reused > 0 ? $" ({store.Reused} sensitivity trials reused from the trial cache {store.File})" : string.Empty;
+        // The count is the manifest's and trials.json's (every trial the result rests on); what this run paid for is the measured part.
+        var reused = store.Reused > 0 ? $" ({result.TrialCount - store.Reused} measured, {store.Reused} sensitivity trials reused from the trial cache {store.File})" : string.Empty;
         Console.Out.WriteLine($"{result.TrialCount} trials{reused} in {clock.Elapsed.TotalSeconds:0.0} s; artifacts in {Path.GetFullPath(args.Out)}");
         if (result.SweepNote is { } sweep)
         {

@@ -23,7 +23,7 @@ internal sealed class TrialCache : ITrialStore
         Reused = reused;
     }
 
-    /// <summary>How many sensitivity trials came from the cache file.</summary>
+    /// <summary>How many sensitivity trials came from the cache file (each says so in <see cref="TrialRecord.ReusedFrom"/>: the file).</summary>
     public int Reused { get; }
 
     /// <summary>The cache file, or null when the cache is off or could not be read.</summary>
@@ -55,7 +55,7 @@ internal sealed class TrialCache : ITrialStore
         try
         {
             Directory.CreateDirectory(folder);
-            var cached = new InMemoryTrialStore(System.IO.File.Exists(file) ? Read(file) : []);
+            var cached = new InMemoryTrialStore(System.IO.File.Exists(file) ? Read(file).Select(t => t with { ReusedFrom = file }) : []);
             return new TrialCache(cached, file, cached.LoadAll().Count);
         }
         catch (Exception e) when (e is IOException or UnauthorizedAccessException)

@@ -177,6 +177,18 @@ internal static class Migrations
             ALTER TABLE trials ADD COLUMN assignment_json TEXT;
             ALTER TABLE trials ADD COLUMN activations TEXT;
             """),
+        // A search that reuses the sweep of earlier searches with the same trial context keeps a copy of each trial
+        // its result rests on, marked with the search that measured it (reused_from), so its trial list and count
+        // are the manifest's. A copy was not measured again: the duration histogram counts only rows without it.
+        new(6, """
+            ALTER TABLE trials ADD COLUMN reused_from TEXT;
+            DROP TRIGGER trial_counted;
+            CREATE TRIGGER trial_counted AFTER INSERT ON trials WHEN NEW.reused_from IS NULL BEGIN
+                UPDATE trial_buckets SET count = count + 1, sum_ms = sum_ms + NEW.duration_ms
+                WHERE bucket = (SELECT MIN(bucket) FROM trial_buckets WHERE upper_ms IS NULL OR NEW.duration_ms <= upper_ms);
+            END;
+            """,
+            Postgres: PostgresSchema.Step6ReusedTrials),
     ];
 
     // Step 3's parts: the settings rename in SQLite's JSON functions (PostgreSQL's is PostgresSchema.Step3ClipSetting)

@@ -138,4 +138,11 @@ internal static class PostgresSchema
         SET settings_json = ((settings_json::jsonb - 'calibration') || jsonb_build_object('clip', settings_json::jsonb -> 'calibration'))::text
         WHERE settings_json::jsonb -> 'calibration' IS NOT NULL;
         """;
+
+    /// <summary>Step 6: trials reused from an earlier search say which one; the histogram's trigger skips them.</summary>
+    public const string Step6ReusedTrials = """
+        ALTER TABLE trials ADD COLUMN reused_from TEXT;
+        DROP TRIGGER trial_counted ON trials;
+        CREATE TRIGGER trial_counted AFTER INSERT ON trials FOR EACH ROW WHEN (NEW.reused_from IS NULL) EXECUTE FUNCTION trial_buckets_follow();
+        """;
 }

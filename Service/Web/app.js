@@ -163,6 +163,17 @@ function card(label, value, title) {
   return el('div', { class: 'card', title: title || null }, el('div', { class: 'label' }, label), el('div', { class: 'value' }, value));
 }
 
+// Every trial the result rests on (the manifest's count); a search that reused an earlier search's sweep says how
+// much of it it measured itself, which is what it cost.
+function trialsCard(trials, rounds) {
+  const box = card('Trials / validation rounds', `${trials.total} / ${rounds}`);
+  box.id = 'trials-card';
+  if (trials.reused > 0) {
+    box.append(el('div', { class: 'detail' }, `${trials.measured} measured here, ${trials.reused} reused from earlier searches with the same model, data and settings`));
+  }
+  return box;
+}
+
 function stop() {
   if (timer) clearTimeout(timer);
   timer = null;
@@ -289,7 +300,7 @@ async function showSearch(id) {
     card(`Predicted ${metric.label}`, fmt(summary.predicted) + metric.unit, 'what the additive error model predicts'),
     card(`Measured ${metric.label}`, fmt(summary.measured) + metric.unit, 'the chosen assignment run end to end in ONNX Runtime'),
     held ? card(`Held-out ${metric.label}`, fmt(held.measured) + metric.unit, `${held.samples} held-out samples`) : null,
-    card('Trials / validation rounds', `${summary.trialCount} / ${manifest.outcome.validationRounds}`));
+    trialsCard(trials, manifest.outcome.validationRounds));
 
   const others = siblings.filter((s) => s.id !== id && s.state === 'succeeded');
   const compareList = others.length === 0 ? null : el('div', { id: 'compare-with' },

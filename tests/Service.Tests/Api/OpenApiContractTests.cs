@@ -71,6 +71,18 @@ public sealed partial class OpenApiContractTests(ServiceFactory factory) : IClas
         AssertValid(document, ResponseSchema(document, "/v1/searches/{id}", "get", "200"), JsonNode.Parse(search.GetRawText()));
         AssertValid(document, ResponseSchema(document, "/v1/searches", "get", "200"), JsonNode.Parse(await client.GetStringAsync("/v1/searches")));
         AssertValid(document, ResponseSchema(document, "/v1/searches/{id}/trials", "get", "200"), JsonNode.Parse(await client.GetStringAsync($"/v1/searches/{id}/trials")));
+
+        // A second search with only another budget reuses the first's sweep: its trial page (reused trials naming the
+        // first search) matches the document too, and the document says what the counts and reusedFrom mean.
+        var again = (await client.StartSearchAsync(new { modelId, datasetId, budget = new { metric = "sqnr", atLeast = 15 }, bits = new[] { 4, 8 } })).GetProperty("id").GetString()!;
+        await client.WaitForStateAsync(again, "succeeded");
+        var reusing = JsonNode.Parse(await client.GetStringAsync($"/v1/searches/{again}/trials"))!;
+        Assert.True(reusing["reused"]!.GetValue<long>() > 0, reusing.ToJsonString());
+        Assert.Contains(reusing["items"]!.AsArray(), t => t!["reusedFrom"]?.GetValue<string>() == id);
+        AssertValid(document, ResponseSchema(document, "/v1/searches/{id}/trials", "get", "200"), reusing);
+        var schemas = document["components"]!["schemas"]!;
+        Assert.Contains("manifest's trials", schemas["TrialPageResponse"]!["properties"]!["total"]!["description"]!.GetValue<string>(), StringComparison.Ordinal);
+        Assert.Contains("earlier search that measured", schemas["TrialRecord"]!["properties"]!["reusedFrom"]!["description"]!.GetValue<string>(), StringComparison.Ordinal);
         AssertValid(document, ResponseSchema(document, "/v1/models/{id}", "get", "200"), JsonNode.Parse(await client.GetStringAsync($"/v1/models/{modelId}")));
 
         // A problem, as served, matches the problem schema the document gives for it.

@@ -18,7 +18,7 @@ namespace Bitbudget.Service.Tests.Api;
 public sealed class TrialPagesTests(RealEngineFixture fixture, DemoFolderFixture demo) : IClassFixture<RealEngineFixture>
 {
     /// <summary>The properties of one trial, in trial pages and in the command line's trials.json alike.</summary>
-    public static readonly string[] TrialProperties = ["key", "kind", "layer", "bits", "assignmentHash", "metrics", "durationMs", "assignment", "activations"];
+    public static readonly string[] TrialProperties = ["key", "kind", "layer", "bits", "assignmentHash", "metrics", "durationMs", "assignment", "activations", "reusedFrom"];
 
     private static readonly JsonSerializerOptions Wire = new(JsonSerializerDefaults.Web)
     {

@@ -32,7 +32,14 @@ public sealed class PlanTrialCacheTests(PlanDemoFixture fixture) : IClassFixture
 
         var second = await PlanAsync("second", "sqnr>=15");
 
-        Assert.Contains($"({SweepTrials} sensitivity trials reused from the trial cache", second.Out, StringComparison.Ordinal);
+        // The count is every trial the plan rests on, as in the manifest and trials.json; what it measured is the rest.
+        var manifest = JsonDocument.Parse(File.ReadAllBytes(Out("second", "manifest.json"))).RootElement;
+        var trials = manifest.GetProperty("trials").GetInt32();
+        Assert.Contains($"{trials} trials ({trials - SweepTrials} measured, {SweepTrials} sensitivity trials reused from the trial cache {cacheFile})", second.Out, StringComparison.Ordinal);
+        var listed = JsonDocument.Parse(File.ReadAllBytes(Out("second", "trials.json"))).RootElement.EnumerateArray().ToList();
+        Assert.Equal(trials, listed.Count);
+        Assert.Equal(SweepTrials, listed.Count(t => t.GetProperty("reusedFrom").GetString() == cacheFile));
+        Assert.All(listed.Where(t => t.GetProperty("reusedFrom").ValueKind == JsonValueKind.Null), t => Assert.NotEqual("sensitivity", t.GetProperty("kind").GetString()));
         // Nothing new was swept: the cache file still holds the first run's lines only.
         Assert.Equal(SweepTrials, File.ReadAllLines(cacheFile).Length);
         Assert.Equal(File.ReadAllText(Out("first", "sensitivity.csv")), File.ReadAllText(Out("second", "sensitivity.csv")));

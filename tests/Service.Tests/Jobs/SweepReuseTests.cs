@@ -30,11 +30,22 @@ public sealed class SweepReuseTests(DemoFolderFixture demo)
         var second = await RunAsync(client, new { modelId, datasetId, budget = new { metric = "sqnr", atLeast = 15 }, bits = new[] { 2, 4, 8 } });
         var otherScheme = await RunAsync(client, new { modelId, datasetId, budget = new { metric = "sqnr", atLeast = 15 }, bits = new[] { 2, 4, 8 }, scheme = "asymmetric" });
 
-        Assert.Equal(SweepTrials, (await KindsAsync(client, first)).Count(k => k == "sensitivity"));
-        var measuredBySecond = await KindsAsync(client, second);
+        Assert.Equal(SweepTrials, (await MeasuredKindsAsync(client, first)).Count(k => k == "sensitivity"));
+        var measuredBySecond = await MeasuredKindsAsync(client, second);
         Assert.DoesNotContain("sensitivity", measuredBySecond);
         Assert.Contains("validation", measuredBySecond);
-        Assert.Equal(SweepTrials, (await KindsAsync(client, otherScheme)).Count(k => k == "sensitivity"));
+        Assert.Equal(SweepTrials, (await MeasuredKindsAsync(client, otherScheme)).Count(k => k == "sensitivity"));
+
+        // The second search's trial list holds every trial its result rests on (its manifest's count): the first's
+        // sweep, each naming the first, and what it measured itself; the page's counts split the two.
+        var page = await TrialsAsync(client, second);
+        var manifest = await (await client.GetAsync($"/v1/searches/{second}/manifest")).JsonAsync();
+        Assert.Equal(manifest.GetProperty("trials").GetInt32(), page.GetProperty("total").GetInt32());
+        Assert.Equal(SweepTrials, page.GetProperty("reused").GetInt32());
+        Assert.Equal(measuredBySecond.Count, page.GetProperty("measured").GetInt32());
+        var reused = page.GetProperty("items").EnumerateArray().Where(t => t.GetProperty("reusedFrom").ValueKind == JsonValueKind.String).ToList();
+        Assert.Equal(SweepTrials, reused.Count);
+        Assert.All(reused, t => Assert.Equal((first, "sensitivity"), (t.GetProperty("reusedFrom").GetString(), t.GetProperty("kind").GetString())));
 
         Assert.Equal(await client.GetStringAsync($"/v1/searches/{first}/sensitivity"), await client.GetStringAsync($"/v1/searches/{second}/sensitivity"));
         Assert.NotEqual(await client.GetStringAsync($"/v1/searches/{first}/sensitivity"), await client.GetStringAsync($"/v1/searches/{otherScheme}/sensitivity"));
@@ -48,10 +59,13 @@ public sealed class SweepReuseTests(DemoFolderFixture demo)
         return id;
     }
 
-    /// <summary>The kind of every trial the search stored itself (measured, not reused).</summary>
-    private static async Task<List<string>> KindsAsync(HttpClient client, string id)
-    {
-        var page = await (await client.GetAsync($"/v1/searches/{id}/trials?limit=500")).JsonAsync();
-        return page.GetProperty("items").EnumerateArray().Select(t => t.GetProperty("kind").GetString()!).ToList();
-    }
+    private static async Task<JsonElement> TrialsAsync(HttpClient client, string id) =>
+        await (await client.GetAsync($"/v1/searches/{id}/trials?limit=500")).JsonAsync();
+
+    /// <summary>The kind of every trial the search measured itself (not reused from an earlier search).</summary>
+    private static async Task<List<string>> MeasuredKindsAsync(HttpClient client, string id) =>
+        (await TrialsAsync(client, id)).GetProperty("items").EnumerateArray()
+            .Where(t => t.GetProperty("reusedFrom").ValueKind == JsonValueKind.Null)
+            .Select(t => t.GetProperty("kind").GetString()!)
+            .ToList();
 }

@@ -65,7 +65,7 @@ public abstract class TrialStoreTests(StoreBackend backend) : IDisposable
             trials.Save(Trial($"t{(7 - i).ToString(System.Globalization.CultureInfo.InvariantCulture)}", i));
         }
 
-        var (total, items) = trials.Page(2, 3);
+        var (total, _, items) = trials.Page(2, 3);
 
         Assert.Equal(7, total);
         Assert.Equal(["t5", "t4", "t3"], items.Select(t => t.Key));

@@ -38,6 +38,8 @@ public sealed class BrowserService : IAsyncLifetime
     private readonly SemaphoreSlim gate = new(1, 1);
     private readonly string dataFolder = Path.Combine(Path.GetTempPath(), "bitbudget-browser-" + Guid.NewGuid().ToString("N"));
     private ServiceProcess? service;
+    private string? datasetId;
+    private string? reusing;
     private IPlaywright? playwright;
 
     public IBrowser Browser { get; private set; } = null!;
@@ -67,6 +69,7 @@ public sealed class BrowserService : IAsyncLifetime
             var dataset = await service.Client.PostBytesAsync("/v1/datasets", File.ReadAllBytes(demo.PathOf(HiveMonitorScenario.CalibrationFileName)));
             Assert.Equal(HttpStatusCode.Created, dataset.StatusCode);
             var datasetId = (await dataset.JsonAsync()).GetProperty("id").GetString()!;
+            this.datasetId = datasetId;
             var first = await SearchAsync(demo.PathOf(HiveMonitorScenario.ModelFileName), datasetId);
             var second = await SearchAsync(demo.RetrainPathOf(HiveMonitorScenario.ModelFileName), datasetId);
             Searches = (first, second);
@@ -140,11 +143,29 @@ public sealed class BrowserService : IAsyncLifetime
         }
     }
 
-    private async Task<string> SearchAsync(string modelPath, string datasetId)
+    /// <summary>
+    /// A third search, made on first use: version 1 again with only a lower budget, so it reuses the first search's
+    /// sweep. It is newer than <see cref="Searches"/>; the search list shows it first.
+    /// </summary>
+    public async Task<string> ReusingSearchAsync(DemoFolderFixture demo)
+    {
+        await EnsureAsync(demo);
+        await gate.WaitAsync();
+        try
+        {
+            return reusing ??= await SearchAsync(demo.PathOf(HiveMonitorScenario.ModelFileName), datasetId!, atLeast: 20);
+        }
+        finally
+        {
+            gate.Release();
+        }
+    }
+
+    private async Task<string> SearchAsync(string modelPath, string datasetId, double atLeast = 30)
     {
         var model = await service!.Client.PostBytesAsync($"/v1/models?name={ModelName}", File.ReadAllBytes(modelPath));
         var modelId = (await model.JsonAsync()).GetProperty("id").GetString()!;
-        var started = await service.Client.StartSearchAsync(new { modelId, datasetId, budget = new { metric = "sqnr", atLeast = 30 }, bits = new[] { 2, 3, 4, 6, 8 } });
+        var started = await service.Client.StartSearchAsync(new { modelId, datasetId, budget = new { metric = "sqnr", atLeast }, bits = new[] { 2, 3, 4, 6, 8 } });
         var id = started.GetProperty("id").GetString()!;
         var done = await RealEngineWalkthroughTests.WaitForEndAsync(service.Client, id);
         Assert.True(done.GetProperty("state").GetString() == "succeeded", done.ToString());

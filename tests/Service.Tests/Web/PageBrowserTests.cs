@@ -30,10 +30,10 @@ public sealed class PageBrowserTests(BrowserService browser, DemoFolderFixture d
         await page.FillAsync("#key-input", browser.ApiKey);
         await page.ClickAsync("#key-form button[type=submit]");
 
-        var rows = page.Locator("#searches tbody tr");
-        await rows.First.WaitForAsync();
-        Assert.Equal(2, await rows.CountAsync());
+        // The fixture's two searches, newest first (a test that ran before may have added a reusing search of version 1).
         var (first, second) = browser.Searches;
+        var rows = page.Locator($"#searches tbody tr[data-search-id='{first}'], #searches tbody tr[data-search-id='{second}']");
+        await rows.First.WaitForAsync();
         Assert.Equal([second, first], await rows.EvaluateAllAsync<string[]>("rows => rows.map(r => r.dataset.searchId)"));
         var newest = await rows.First.InnerTextAsync();
         Assert.Contains("hive-monitor.onnx v2", newest, StringComparison.Ordinal);
@@ -105,6 +105,28 @@ public sealed class PageBrowserTests(BrowserService browser, DemoFolderFixture d
         Assert.Equal(layers.Count, await page.Locator("#layers tbody tr").CountAsync());
 
         await Screenshot(page, "page-search.png");
+        Assert.Empty(errors);
+        await page.Context.CloseAsync();
+    }
+
+    [Fact]
+    public async Task ASearchThatReusedASweepCountsEveryTrialItRestsOnAndSaysHowManyItMeasured()
+    {
+        var id = await browser.ReusingSearchAsync(demo);
+        var (first, _) = browser.Searches;
+        var manifest = await browser.GetJsonAsync($"/v1/searches/{id}/manifest");
+        var trials = await browser.GetJsonAsync($"/v1/searches/{id}/trials?limit=1000");
+        var sweep = (await browser.GetJsonAsync($"/v1/searches/{first}/trials?limit=1000")).GetProperty("items").EnumerateArray().Count(t => t.GetProperty("kind").GetString() == "sensitivity");
+        Assert.Equal(sweep, trials.GetProperty("reused").GetInt32());
+
+        var (page, errors) = await browser.SignedInPageAsync($"#/search/{id}");
+        var card = page.Locator("#trials-card");
+        await card.WaitForAsync();
+        var text = await card.InnerTextAsync();
+
+        // The card's count is the manifest's; the note says what this search measured and what it took from the first.
+        Assert.Contains($"{manifest.GetProperty("trials").GetInt32()} / {manifest.GetProperty("outcome").GetProperty("validationRounds").GetInt32()}", text, StringComparison.Ordinal);
+        Assert.Contains($"{manifest.GetProperty("trials").GetInt32() - sweep} measured here, {sweep} reused", text, StringComparison.Ordinal);
         Assert.Empty(errors);
         await page.Context.CloseAsync();
     }
