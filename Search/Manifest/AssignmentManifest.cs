@@ -27,9 +27,10 @@ public sealed record AssignmentManifest(
     /// The version this code writes (2: per-output metrics, budgets judged per output, held-out check, warnings;
     /// 3: sizes are the written file's, storage rule, modelFileBytes; 4: a non-finite number is the string
     /// "Infinity", "-Infinity" or "NaN" instead of null, and null only ever means absent; 5: one vocabulary:
-    /// settings.pin/exclude, bits ascending, totals/heldOut.measured is the budget metric's number and .metrics every metric).
+    /// settings.pin/exclude, bits ascending, totals/heldOut.measured is the budget metric's number and .metrics every metric;
+    /// 6: settings.pairs, outcome.rounds (predicted, with pairs, and measured per validation round) and outcome.pairs).
     /// </summary>
-    public const int CurrentFormatVersion = 5;
+    public const int CurrentFormatVersion = 6;
 }
 
 /// <summary>The model searched.</summary>
@@ -69,14 +70,38 @@ public sealed record ManifestSettings(
     IReadOnlyList<string>? Outputs = null,
     string MetricSpace = "linear",
     string Storage = "container",
-    IReadOnlyList<string>? Rounding = null);
+    IReadOnlyList<string>? Rounding = null,
+    int Pairs = 0);
 
 /// <summary>The budget: an error bound on <see cref="Metric"/> (AtLeast or AtMost) or a size bound (Bytes or AverageBits).</summary>
 public sealed record ManifestBudget(string Kind, string Metric, double? AtLeast, double? AtMost, long? Bytes, double? AverageBits, string AdditiveModel);
 
 /// <summary>Whether the budget was met, and one sentence saying how.</summary>
 /// <param name="StorageNote">What the storage rule closed off (widths that save nothing, smaller choices with packed storage or opset 21); null when nothing.</param>
-public sealed record ManifestOutcome(bool Feasible, string Message, int ValidationRounds, string? StorageNote = null);
+/// <param name="Rounds">Every assignment the validation measured, in order, predicted beside measured.</param>
+/// <param name="Pairs">The pair trials behind the corrected predictions; empty when pair terms were off.</param>
+public sealed record ManifestOutcome(
+    bool Feasible,
+    string Message,
+    int ValidationRounds,
+    string? StorageNote = null,
+    IReadOnlyList<ManifestRound>? Rounds = null,
+    IReadOnlyList<ManifestPair>? Pairs = null);
+
+/// <summary>One validation round: an assignment measured end to end, beside what was predicted for it.</summary>
+/// <param name="Bytes">Predicted size of the model file under the assignment.</param>
+/// <param name="Predicted">The budget metric as the additive model predicts it.</param>
+/// <param name="PredictedWithPairs">The budget metric as the additive model plus the pair terms predicts it; null when no pair term was known.</param>
+/// <param name="Measured">The budget metric measured end to end (the worst judged output).</param>
+/// <param name="MeetsBudget">Whether the measurement meets the budget.</param>
+public sealed record ManifestRound(long Bytes, double Predicted, double? PredictedWithPairs, double Measured, bool MeetsBudget);
+
+/// <summary>
+/// A pair trial: two layers quantized together, every other layer FP32. <see cref="Term"/> is what the additive model
+/// misses for the pair: the pair's additive error minus the two layers' own (in the units of budget.additiveModel).
+/// </summary>
+/// <param name="Measured">The budget metric of the pair trial.</param>
+public sealed record ManifestPair(string First, int FirstBits, string Second, int SecondBits, double Measured, double Term);
 
 /// <summary>Totals of the chosen assignment.</summary>
 /// <param name="Bytes">Predicted size of the model file, counted by <paramref name="Storage"/>.</param>

@@ -16,6 +16,9 @@ internal sealed class AssignmentValidator(
     IProgress<SearchProgress>? progress,
     CancellationToken cancellationToken)
 {
+    // Solves of the additive model per corrected choice; each is fast next to a trial, and the steering converges in a few.
+    private const int MaxCorrectedSolves = 24;
+
     private readonly List<AssignmentMeasurement> _rounds = [];
 
     // Read once: a store may be a database, and this loop only adds validations it saves itself.
@@ -38,10 +41,12 @@ internal sealed class AssignmentValidator(
         }
 
         // The additive model can be pessimistic (noise from many layers partly cancels) or optimistic
-        // (errors compound), so the additive target is steered by measurement in both directions:
+        // (errors compound), so the model's limit is steered by measurement in both directions:
         // rescale it by how far the measurement landed from the budget, and bisect between the
-        // largest target whose choice met the budget and the smallest whose choice missed.
+        // largest limit whose choice met the budget and the smallest whose choice missed. With pair terms,
+        // the limit bounds the corrected prediction and the solver's additive target is found without measuring.
         var limit = AdditiveError.LimitToAdditive(metric, budget.Limit);
+        var model = MeasurePairs(limit, method);
         var target = limit;
         double met = 0, missed = double.PositiveInfinity;
         AssignmentMeasurement best = highest;
@@ -49,22 +54,12 @@ internal sealed class AssignmentValidator(
         for (var round = 1; round <= SearchRunner.MaxValidationRounds; round++)
         {
             cancellationToken.ThrowIfCancellationRequested();
-            var selection = method == SearchMethod.Knapsack
-                ? KnapsackSolver.MinimumBytes(problem.Layers, target)
-                : GreedySolver.MinimumBytes(problem.Layers, target);
-
-            // Greedy answers with its closest assignment even when that misses the target.
-            if (selection is null || selection.Error > target)
-            {
-                // Below what the highest candidates predict: only the highest fits, and it was measured.
-                selection = problem.Highest();
-            }
-
+            var (selection, predicted) = SolveFor(model, target, method);
             var hash = TrialKeys.AssignmentHash(problem.AssignmentOf(selection));
             AssignmentMeasurement measured;
             if (seen.Add(hash))
             {
-                measured = Measure(selection, budget);
+                measured = Measure(selection, budget, model.IsAdditive ? null : predicted);
                 progress?.Report(new SearchProgress(SearchStage.Validate, round, SearchRunner.MaxValidationRounds + 1));
             }
             else
@@ -78,7 +73,7 @@ internal sealed class AssignmentValidator(
             }
 
             var measuredAdditive = problem.Judge.ToAdditive(measured.Measured, reference);
-            var rescaled = measuredAdditive > 0 ? Math.Max(selection.Error, target * 0.25) * limit / measuredAdditive : target * 4;
+            var rescaled = measuredAdditive > 0 ? Math.Max(predicted, target * 0.25) * limit / measuredAdditive : target * 4;
             if (measured.MeetsBudget)
             {
                 met = Math.Max(met, target);
@@ -103,7 +98,7 @@ internal sealed class AssignmentValidator(
 
         var value = problem.Judge.Value(best.Measured, reference);
         var text = $"{FormatBytes(best.Bytes)} ({problem.Float32Bytes / (double)best.Bytes:0.00}x smaller than FP32) measured at {MetricValues.Format(metric, value)} against a budget of {MetricValues.Format(metric, budget.Limit)}.";
-        return new SearchDecision(true, text, best, _rounds, best.PredictedAdditive);
+        return new SearchDecision(true, text, best, _rounds, best.PredictedAdditive, model.Terms);
     }
 
     public SearchDecision MeetSizeBudget(SizeBudget budget, SearchMethod method)
@@ -130,7 +125,130 @@ internal sealed class AssignmentValidator(
         return new SearchDecision(true, text, measured, _rounds, measured.PredictedAdditive);
     }
 
-    private AssignmentMeasurement Measure(Selection selection, Budget budget)
+    /// <summary>
+    /// The pair terms for this budget (<see cref="PairRanking"/>): first the ranked pairs at the additive plan's widths; then,
+    /// where the plan the corrected model picks puts a measured pair at other widths, that pair again at those widths, so
+    /// the first assignment validated is predicted from terms measured at its own widths. At most two trials per pair.
+    /// </summary>
+    private PairwiseModel MeasurePairs(double limit, SearchMethod method)
+    {
+        var model = new PairwiseModel(problem.Layers);
+        if (problem.Settings.Pairs <= 0)
+        {
+            return model;
+        }
+
+        var plan = Solve(limit, method);
+        var pairs = PairRanking.Choose(problem.Layers, plan, problem.Settings.Pairs);
+        foreach (var (first, second) in pairs)
+        {
+            model.Add(MeasurePair(first, plan.ChoiceIndex[first], second, plan.ChoiceIndex[second]));
+        }
+
+        var (corrected, _) = SolveFor(model, limit, method);
+        foreach (var (first, second) in pairs.Where(p => !model.Measured(p.First, corrected.ChoiceIndex[p.First], p.Second, corrected.ChoiceIndex[p.Second])))
+        {
+            if (Error(first, corrected) > 0 && Error(second, corrected) > 0)
+            {
+                model.Add(MeasurePair(first, corrected.ChoiceIndex[first], second, corrected.ChoiceIndex[second]));
+            }
+        }
+
+        return model;
+    }
+
+    private double Error(int layer, Selection selection) => problem.Layers[layer].Choices[selection.ChoiceIndex[layer]].Error;
+
+    /// <summary>One pair trial, read from the store when a run before measured it.</summary>
+    private PairTerm MeasurePair(int first, int firstChoice, int second, int secondChoice)
+    {
+        cancellationToken.ThrowIfCancellationRequested();
+        var activations = SensitivitySweep.ActivationsFor(problem.Settings);
+        var (a, b) = (problem.Layers[first], problem.Layers[second]);
+        var (settingA, settingB) = (Setting(a.Choices[firstChoice]), Setting(b.Choices[secondChoice]));
+        var key = TrialKeys.Pair(a.Name, settingA, b.Name, settingB, activations);
+        if (!_stored.TryGetValue(key, out var record))
+        {
+            var clock = Stopwatch.StartNew();
+            var assignment = new SortedDictionary<string, LayerSetting>(StringComparer.Ordinal) { [a.Name] = settingA, [b.Name] = settingB };
+            var metrics = session.MeasureAssignment(assignment);
+            record = new TrialRecord(key, "pair", null, null, null, metrics, clock.Elapsed.TotalMilliseconds, assignment, activations);
+            store.Save(record);
+            _stored[key] = record;
+        }
+
+        var joint = problem.Judge.ToAdditive(record.Metrics, session.ReferenceMetrics);
+        return new PairTerm(first, firstChoice, second, secondChoice, joint, joint - a.Choices[firstChoice].Error - b.Choices[secondChoice].Error, key);
+    }
+
+    private LayerSetting Setting(PlanningChoice choice) => SensitivitySweep.SettingFor(choice.Bits, problem.Settings) with { Rounding = choice.Rounding };
+
+    /// <summary>The solver's choice for an additive target; when nothing meets the target, every layer at its highest candidate.</summary>
+    private Selection Solve(double target, SearchMethod method)
+    {
+        var selection = method == SearchMethod.Knapsack
+            ? KnapsackSolver.MinimumBytes(problem.Layers, target)
+            : GreedySolver.MinimumBytes(problem.Layers, target);
+
+        // Greedy answers with its closest assignment even when that misses the target; below what the
+        // highest candidates predict, only the highest fits, and it was measured.
+        return selection is null || selection.Error > target ? problem.Highest() : selection;
+    }
+
+    /// <summary>
+    /// The solver's choice whose prediction meets <paramref name="limit"/>, and that prediction. Additive alone, the solver's
+    /// target is the limit. With pair terms, the solver still solves the additive model exactly, and its target is steered
+    /// (rescaled by how far the corrected prediction landed from the limit, bisected between the largest target that met it
+    /// and the smallest that did not) to the largest one whose choice the corrected model predicts to meet the limit: no measurement.
+    /// </summary>
+    private (Selection Selection, double Predicted) SolveFor(PairwiseModel model, double limit, SearchMethod method)
+    {
+        if (model.IsAdditive)
+        {
+            var additive = Solve(limit, method);
+            return (additive, additive.Error);
+        }
+
+        double target = limit, good = 0, bad = double.PositiveInfinity;
+        (Selection Selection, double Predicted)? found = null;
+        for (var step = 0; step < MaxCorrectedSolves; step++)
+        {
+            var selection = Solve(target, method);
+            var predicted = model.Predict(selection);
+            if (predicted <= limit)
+            {
+                if (target > good)
+                {
+                    (good, found) = (target, (selection, predicted));
+                }
+            }
+            else
+            {
+                bad = Math.Min(bad, target);
+            }
+
+            var rescaled = predicted > 0 ? target * limit / predicted : target * 4;
+            var next = rescaled > good && rescaled < bad
+                ? rescaled
+                : double.IsPositiveInfinity(bad) ? good * 2 : good > 0 ? Math.Sqrt(good * bad) : bad / 2;
+            if (next <= 0 || Math.Abs(next - target) <= target * 1e-3)
+            {
+                break;
+            }
+
+            target = next;
+        }
+
+        if (found is { } chosen)
+        {
+            return chosen;
+        }
+
+        var highest = problem.Highest();
+        return (highest, model.Predict(highest));
+    }
+
+    private AssignmentMeasurement Measure(Selection selection, Budget budget, double? corrected = null)
     {
         var assignment = problem.AssignmentOf(selection);
         var hash = TrialKeys.AssignmentHash(assignment);
@@ -146,7 +264,7 @@ internal sealed class AssignmentValidator(
 
         var meets = budget is ErrorBudget error
             && problem.Judge.Meets(error.Limit, record.Metrics, session.ReferenceMetrics);
-        var measurement = new AssignmentMeasurement(assignment, hash, problem.TotalBytes(selection), selection.Error, record.Metrics, meets);
+        var measurement = new AssignmentMeasurement(assignment, hash, problem.TotalBytes(selection), selection.Error, record.Metrics, meets, corrected);
         _rounds.Add(measurement);
         return measurement;
     }

@@ -101,9 +101,10 @@ internal sealed class SearchReport(
                 settings.Outputs is { Count: > 0 } judged ? judged.ToList() : model.Outputs.Select(o => o.Name).ToList(),
                 Wire(settings.MetricSpace),
                 Wire(settings.Storage),
-                RoundingChoices.Asked(settings).Select(r => Wire(r)).ToList()),
+                RoundingChoices.Asked(settings).Select(r => Wire(r)).ToList(),
+                settings.Pairs),
             Budget(),
-            new ManifestOutcome(decision.Feasible, decision.Message, decision.Rounds.Count, storageNote),
+            new ManifestOutcome(decision.Feasible, decision.Message, decision.Rounds.Count, storageNote, Rounds(), Pairs()),
             totals,
             Metrics(reference),
             layers,
@@ -113,6 +114,21 @@ internal sealed class SearchReport(
             model.Skipped.Select(s => new ManifestSkipped(s.Node, s.Op, s.Input, s.Parameters, s.Reason)).ToList(),
             held);
     }
+
+    private List<ManifestRound> Rounds() => decision.Rounds.Select(r => new ManifestRound(
+        r.Bytes,
+        AdditiveError.FromAdditive(problem.Metric, r.PredictedAdditive, reference),
+        r.PredictedCorrected is { } corrected ? AdditiveError.FromAdditive(problem.Metric, corrected, reference) : null,
+        problem.Judge.Value(r.Measured, reference),
+        r.MeetsBudget)).ToList();
+
+    private List<ManifestPair> Pairs() => (decision.Pairs ?? []).Select(p => new ManifestPair(
+        problem.Layers[p.First].Name,
+        problem.Layers[p.First].Choices[p.FirstChoice].Bits,
+        problem.Layers[p.Second].Name,
+        problem.Layers[p.Second].Choices[p.SecondChoice].Bits,
+        AdditiveError.FromAdditive(problem.Metric, p.Joint, reference),
+        p.Term)).ToList();
 
     private ManifestOpsetRaise? OpsetRaise() => model.Raise is not { } raise
         ? null

@@ -14,6 +14,10 @@ namespace Bitbudget.Search.Planning;
 /// <param name="SampleAxes">Sample axes given outright, by input name (see <see cref="Evaluation.CalibrationSet"/>); recorded in the manifest.</param>
 /// <param name="Storage">How sizes are counted: what the export writes (default) or ideal packed bits.</param>
 /// <param name="Rounding">The roundings measured per layer and width (<see cref="RoundingChoices"/>); null or empty for nearest only.</param>
+/// <param name="Pairs">
+/// Most layer pairs measured together for the interaction-aware prediction (<see cref="PairwiseModel"/>, <see cref="PairRanking"/>);
+/// each pair costs one or two extra trials. 0 turns pair terms off (the additive model alone). Error budgets only.
+/// </param>
 public sealed record SearchSettings(
     Budget Budget,
     IReadOnlyList<int> Bits,
@@ -29,8 +33,15 @@ public sealed record SearchSettings(
     Evaluation.MetricSpace MetricSpace = Evaluation.MetricSpace.Linear,
     IReadOnlyDictionary<string, int>? SampleAxes = null,
     StorageRule Storage = StorageRule.Container,
-    IReadOnlyList<RoundingMethod>? Rounding = null)
+    IReadOnlyList<RoundingMethod>? Rounding = null,
+    int Pairs = SearchSettings.DefaultPairs)
 {
+    /// <summary>The pairs measured when none is said (see the benchmark in DEVELOPERS.md).</summary>
+    public const int DefaultPairs = 0;
+
+    /// <summary>The most pairs a search may ask for: the trials stay a small part of a sweep's.</summary>
+    public const int MaxPairs = 64;
+
     /// <summary>The candidate widths most teams start from when sub-byte widths are packed (common practice).</summary>
     public static IReadOnlyList<int> DefaultBits { get; } = [2, 3, 4, 5, 6, 8];
 }

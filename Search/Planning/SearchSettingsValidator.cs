@@ -20,6 +20,11 @@ public static class SearchSettingsValidator
             Fail($"Bit width {bits} is not supported; candidates are 2..8, 16 (FP16) and 32 (keep FP32).");
         }
 
+        if (settings.Pairs is < 0 or > SearchSettings.MaxPairs)
+        {
+            Fail($"{settings.Pairs} pairs is out of range; give 0 (pair terms off) to {SearchSettings.MaxPairs}.");
+        }
+
         var names = model.Layers.Select(l => l.Name).ToHashSet(StringComparer.Ordinal);
         foreach (var (layer, bits) in settings.Pins ?? new Dictionary<string, int>())
         {

@@ -21,6 +21,15 @@ public static class TrialKeys
     public static string Validation(string assignmentHash, ActivationCalibration? activations = null) =>
         $"validation/{assignmentHash}{Activations(activations)}";
 
+    /// <summary>
+    /// Key of a pair trial: two layers quantized together, every other layer FP32 (<see cref="PairwiseModel"/>). The two
+    /// layers are written in ordinal name order, so a pair has one key whichever way round it was asked for.
+    /// </summary>
+    public static string Pair(string layer, LayerSetting setting, string other, LayerSetting otherSetting, ActivationCalibration? activations = null) =>
+        string.CompareOrdinal(layer, other) <= 0
+            ? $"pair/{layer}/{Describe(setting)}/{other}/{Describe(otherSetting)}{Activations(activations)}"
+            : Pair(other, otherSetting, layer, setting, activations);
+
     /// <summary>SHA-256 (hex) of an assignment, independent of dictionary order.</summary>
     /// <remarks>
     /// The hashed text is an identity, not a spelling shown to anyone: it stays what the first stored

@@ -16,6 +16,14 @@ public sealed class TrialKeysTests
     }
 
     [Fact]
+    public void APairHasOneKeyWhicheverWayRoundItIsAskedFor()
+    {
+        var key = TrialKeys.Pair("fc2", new LayerSetting(4), "fc1", new LayerSetting(6), ActivationCalibration.MinMax);
+        Assert.Equal("pair/fc1/6b-symmetric-per-channel-min-max/fc2/4b-symmetric-per-channel-min-max/activations-min-max", key);
+        Assert.Equal(key, TrialKeys.Pair("fc1", new LayerSetting(6), "fc2", new LayerSetting(4), ActivationCalibration.MinMax));
+    }
+
+    [Fact]
     public void AssignmentHashIsTheOneStoredValidationsWereKeyedBy()
     {
         var setting = new LayerSetting(4, QuantizationScheme.Asymmetric, Granularity.PerTensor, ClipMethod.MseOptimal);
