@@ -46,8 +46,11 @@ internal sealed class PairwiseModel
     public bool Measured(int first, int firstChoice, int second, int secondChoice) =>
         _terms.TryGetValue((first, second), out var list) && list.Exists(t => t.FirstChoice == firstChoice && t.SecondChoice == secondChoice);
 
-    /// <summary>The pairs with at least one measured term.</summary>
-    public IEnumerable<(int First, int Second)> Pairs => _terms.Keys;
+    /// <summary>Layer pairs with at least one measured term.</summary>
+    public int PairCount => _terms.Count;
+
+    /// <summary>Width combinations measured for a pair.</summary>
+    public int Combinations(int first, int second) => _terms.TryGetValue((first, second), out var list) ? list.Count : 0;
 
     /// <summary>The corrected prediction of a selection: its additive sum plus the pair terms, floored at 0.</summary>
     public double Predict(Selection selection)

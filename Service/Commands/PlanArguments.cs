@@ -87,6 +87,13 @@ internal sealed record PlanArguments(string Model, string Data, SearchSettings S
         var rounding = result.GetValue(options.Rounding) is { } roundingList
             ? roundingList.Split(',', StringSplitOptions.RemoveEmptyEntries | StringSplitOptions.TrimEntries).Select(r => Enum<RoundingMethod>(options.Rounding.Name, r)).ToList()
             : null;
+        var pairs = SearchSettings.DefaultPairs;
+        if (result.GetValue(options.Pairs) is { } pairsText
+            && (!int.TryParse(pairsText, NumberStyles.None, CultureInfo.InvariantCulture, out pairs) || pairs > SearchSettings.MaxPairs))
+        {
+            throw new ArgumentException($"--pairs takes a number of layer pairs from 0 (off) to {SearchSettings.MaxPairs}; '{pairsText}' is not one.");
+        }
+
         Budget budget;
         try
         {
@@ -112,7 +119,8 @@ internal sealed record PlanArguments(string Model, string Data, SearchSettings S
             Enum<Search.Evaluation.MetricSpace>(result, options.MetricSpace),
             sampleAxes.Count == 0 ? null : sampleAxes,
             Enum<StorageRule>(result, options.Storage),
-            rounding);
+            rounding,
+            pairs);
         return new PlanArguments(
             result.GetRequiredValue(options.Model),
             result.GetRequiredValue(options.Data),

@@ -61,6 +61,12 @@ internal sealed class PlanOptions
         Description = "Rounding methods to try per layer and width: " + WireNames.Choices<RoundingMethod>() + " (compensated: the GPTQ update, Frantar et al. 2022). Default: nearest.",
     };
 
+    public Option<string> Pairs { get; } = new("--pairs")
+    {
+        HelpName = "N",
+        Description = "Most layer pairs measured together so the search predicts how layers' errors interact (0 to 64; 0: off). Default: " + SearchSettings.DefaultPairs.ToString(System.Globalization.CultureInfo.InvariantCulture) + ".",
+    };
+
     public Option<string> Out { get; } = new("--out") { HelpName = "DIR", Description = "Where the artifacts are written (created if missing).", DefaultValueFactory = _ => "plan" };
 
     public Option<bool> Quiet { get; } = new("--quiet", "-q") { Description = "No progress; errors, warnings and the summary only." };
@@ -72,7 +78,7 @@ internal sealed class PlanOptions
     public IEnumerable<Option> All =>
     [
         Model, Data, Budget, Bits, Method, Scheme, Granularity, Clip, Pin, Exclude, Activations, TargetOpset, SampleAxis, Outputs, MetricSpace,
-        Holdout, Storage, Rounding, Out, Quiet, NoCache, MaxSweepMemory,
+        Holdout, Storage, Rounding, Pairs, Out, Quiet, NoCache, MaxSweepMemory,
     ];
 
     // Choices are read case-insensitively by PlanArguments (WireNames), so the option takes any string and help lists the spellings.

@@ -16,6 +16,7 @@ namespace Bitbudget.Service.Searches;
 /// <param name="HoldoutDatasetId">A second uploaded dataset the chosen assignment is checked on.</param>
 /// <param name="Rounding">The roundings measured per layer and width, each width keeping the better: ["nearest"] (default), ["compensated"] or both.</param>
 /// <param name="Storage">"container" (default: sizes are what the written file stores at the model's opset) or "packed" (b-bit weights count b bits, for targets that pack sub-byte widths themselves).</param>
+/// <param name="Pairs">Most layer pairs measured together for the interaction-aware prediction (0 to 64; 0 turns pair terms off). Default: see README.</param>
 internal sealed record SearchRequest(
     string? ModelId,
     string? DatasetId,
@@ -34,4 +35,5 @@ internal sealed record SearchRequest(
     string? MetricSpace = null,
     string? HoldoutDatasetId = null,
     string? Storage = null,
-    IReadOnlyList<string>? Rounding = null);
+    IReadOnlyList<string>? Rounding = null,
+    int? Pairs = null);

@@ -1,5 +1,6 @@
 using System.Globalization;
 using Bitbudget.Search.Onnx;
+using Bitbudget.Search.Planning;
 using Bitbudget.Search.Quantization;
 using Bitbudget.Service.Problems;
 using Bitbudget.Service.Store;
@@ -26,6 +27,10 @@ internal static class SearchRequestValidator
         var clip = Choice(request.Clip, "min-max", SearchVocabulary.Clips.Keys, "clip", Add);
         var storage = Choice(request.Storage, "container", SearchVocabulary.Storages.Keys, "storage", Add);
         var rounding = ValidateRounding(request.Rounding, Add);
+        if (request.Pairs is < 0 or > SearchSettings.MaxPairs)
+        {
+            Add("pairs", $"pairs takes 0 (pair terms off) to {SearchSettings.MaxPairs}; {request.Pairs} is out of range.");
+        }
 
         var layerNames = model.Summary.Layers.Select(l => l.Name).ToHashSet(StringComparer.Ordinal);
         var pin = new SortedDictionary<string, int>(StringComparer.Ordinal);
@@ -111,7 +116,7 @@ internal static class SearchRequestValidator
         }
 
         return new SearchSpec(
-            budget, bits, method!, scheme!, granularity!, clip!, request.Activations ?? false, pin, exclude, request.TargetOpset, sampleAxes, outputs, metricSpace!, holdout?.Id, storage!, rounding);
+            budget, bits, method!, scheme!, granularity!, clip!, request.Activations ?? false, pin, exclude, request.TargetOpset, sampleAxes, outputs, metricSpace!, holdout?.Id, storage!, rounding, request.Pairs ?? SearchSettings.DefaultPairs);
     }
 
     /// <summary>Lower-case names, nearest first, each once; input accepted in any case.</summary>

@@ -4,6 +4,7 @@ namespace Bitbudget.Service.Searches;
 /// <param name="Bits">The candidate widths as given; null for the widths the storage tells apart at the model's opset (the manifest lists them).</param>
 /// <param name="Storage">"container" (sizes as the export writes them) or "packed" (ideal packed bits).</param>
 /// <param name="Rounding">The roundings measured ("nearest", "compensated"); null (stored before the option existed) means nearest.</param>
+/// <param name="Pairs">Most layer pairs measured together; null (stored before the option existed) means none.</param>
 internal sealed record SearchSpec(
     BudgetSpec Budget,
     IReadOnlyList<int>? Bits,
@@ -20,4 +21,5 @@ internal sealed record SearchSpec(
     string MetricSpace = "linear",
     string? HoldoutDatasetId = null,
     string Storage = "container",
-    IReadOnlyList<string>? Rounding = null);
+    IReadOnlyList<string>? Rounding = null,
+    int? Pairs = null);

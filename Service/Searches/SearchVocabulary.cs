@@ -90,6 +90,7 @@ internal static class SearchVocabulary
             MetricSpaces[spec.MetricSpace],
             spec.SampleAxes,
             Storages[spec.Storage],
-            spec.Rounding?.Select(r => Roundings[r]).ToList());
+            spec.Rounding?.Select(r => Roundings[r]).ToList(),
+            spec.Pairs ?? 0);
     }
 }

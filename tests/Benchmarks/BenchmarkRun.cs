@@ -53,6 +53,40 @@ internal static class BenchmarkRun
             return 0;
         }
 
+        if (args.Contains("--pairwise"))
+        {
+            // Pair terms off against on (PairwiseBenchmark): the demo and the three OCR models, at the budgets of README's size table.
+            var pairCounts = (Option(args, "--pairs") ?? "8").Split(',').Select(v => int.Parse(v, CultureInfo.InvariantCulture)).ToList();
+            if (demo is not null)
+            {
+                var hive = OnnxModel.LoadFile(Path.Combine(demo, "hive-monitor.onnx"));
+                PairwiseBenchmark.Run(hive, CalibrationSet.Create(DatasetReader.Read(File.ReadAllBytes(Path.Combine(demo, "calibration.npz"))), hive.Inputs), 30, pairCounts, args.Contains("--rounds"));
+            }
+
+            // The OCR calibration sets: scripts/make-ocr-pages.py's NumPy pages in --data, else uniform noise of the same sizes.
+            var pages = Option(args, "--data");
+            foreach (var (file, set, sqnr, height, width) in new[] { ("ch_ppocr_mobile_v2.0_cls_infer.onnx", "classifier", 30.0, 48, 192), ("ch_PP-OCRv4_det_infer.onnx", "detector", 15.0, 128, 128), ("ch_PP-OCRv4_rec_infer.onnx", "recogniser", 30.0, 48, 320) })
+            {
+                var path = Path.Combine(ocr, file);
+                if (Option(args, "--model") is { } only && !file.Contains(only, StringComparison.Ordinal))
+                {
+                    continue;
+                }
+
+                if (File.Exists(path))
+                {
+                    var model = OnnxModel.LoadFile(path);
+                    var npz = pages is null ? null : Path.Combine(pages, set + ".npz");
+                    var data = npz is not null && File.Exists(npz)
+                        ? CalibrationSet.Create(DatasetReader.Read(File.ReadAllBytes(npz)), model.Inputs)
+                        : SyntheticData(model, samples, height, width);
+                    PairwiseBenchmark.Run(model, data, sqnr, pairCounts, args.Contains("--rounds"));
+                }
+            }
+
+            return 0;
+        }
+
         if (args.Contains("--rounding"))
         {
             // Nearest against compensated rounding on whole searches (RoundingBenchmark): the demo, the OCR classifier and recogniser.

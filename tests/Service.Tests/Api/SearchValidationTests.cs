@@ -39,6 +39,8 @@ public sealed class SearchValidationTests(ServiceFactory factory) : IClassFixtur
     [InlineData("\"storage\":\"bits\"", "storage", "container, packed")]
     [InlineData("\"rounding\":[\"stochastic\"]", "rounding", "Unknown rounding 'stochastic'; use one or both of nearest, compensated")]
     [InlineData("\"rounding\":[]", "rounding", "at least one of nearest, compensated")]
+    [InlineData("\"pairs\":65", "pairs", "0 (pair terms off) to 64; 65 is out of range")]
+    [InlineData("\"pairs\":-1", "pairs", "0 (pair terms off) to 64; -1 is out of range")]
     [InlineData("\"pin\":{\"conv9\":4}", "pin.conv9", "no layer 'conv9'")]
     [InlineData("\"pin\":{\"fc\":12}", "pin.fc", "Bit width 12")]
     [InlineData("\"exclude\":[\"nope\"]", "exclude", "no layer 'nope'")]

@@ -71,6 +71,20 @@ public sealed class SearchesApiTests(ServiceFactory factory) : IClassFixture<Ser
     }
 
     [Fact]
+    public async Task PairsAreEchoedInTheSettings()
+    {
+        var (modelId, datasetId) = await client.UploadAsync("pairs");
+
+        var accepted = await client.PostAsJsonAsync("/v1/searches", new { modelId, datasetId, budget = new { metric = "sqnr", atLeast = 20 }, bits = new[] { 2, 4, 8 }, storage = "packed", pairs = 3 });
+
+        Assert.Equal(HttpStatusCode.Accepted, accepted.StatusCode);
+        var id = (await accepted.JsonAsync()).GetProperty("id").GetString()!;
+        var done = await client.WaitForStateAsync(id, "succeeded", "failed");
+        Assert.Equal("succeeded", done.GetProperty("state").GetString());
+        Assert.Equal(3, done.GetProperty("settings").GetProperty("pairs").GetInt32());
+    }
+
+    [Fact]
     public async Task ManifestCarriesAnETagAndIfNoneMatchGivesNotModified()
     {
         var id = await RunToSuccessAsync("etag");

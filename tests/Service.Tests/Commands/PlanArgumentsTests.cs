@@ -27,6 +27,21 @@ public sealed class PlanArgumentsTests
     }
 
     [Fact]
+    public void PairsReachTheSettingsAndACountOutOfRangeIsRefused()
+    {
+        string[] common = ["--model", "m.onnx", "--data", "d.npz", "--budget", "sqnr>=30"];
+
+        Assert.Equal(12, PlanArguments.Parse([.. common, "--pairs", "12"]).Settings.Pairs);
+        Assert.Equal(0, PlanArguments.Parse([.. common, "--pairs", "0"]).Settings.Pairs);
+        Assert.Equal(Search.Planning.SearchSettings.DefaultPairs, PlanArguments.Parse(common).Settings.Pairs);
+        foreach (var bad in new[] { "65", "-1", "many" })
+        {
+            var error = Assert.Throws<ArgumentException>(() => PlanArguments.Parse([.. common, "--pairs", bad]));
+            Assert.Contains($"'{bad}'", error.Message, StringComparison.Ordinal);
+        }
+    }
+
+    [Fact]
     public void TargetOpsetIsCarriedIntoTheSettings()
     {
         string[] common = ["--model", "m.onnx", "--data", "d.npz", "--budget", "sqnr>=30"];
