@@ -4,7 +4,8 @@ namespace Bitbudget.Search.Evaluation;
 
 /// <summary>
 /// Splits <see cref="TrialSessionOptions.MaxSweepMemoryBytes"/> between what a sweep must hold whatever it does (the data
-/// and its feeds, the weights three times over, the reference and one trial's outputs for every sample), the activations
+/// and its feeds, the weights three times over, the reference and one trial's outputs for every sample, and the dead
+/// outputs of finished trials that wait for the collector, see <see cref="DeadOutputs"/>), the activations
 /// ONNX Runtime holds while it runs a chunk of samples (at most every tensor of the graph for each sample of the chunk,
 /// measured on a one-sample run), and the activations cached at cut points, which get what is left. Half of what is left
 /// after the fixed part goes to a run's chunk, so the cache never starves a run.
@@ -14,7 +15,14 @@ internal static class SweepMemory
     /// <param name="SamplesPerRun">Samples in one run (a chunk).</param>
     /// <param name="CacheBudgetBytes">Memory the cut points' cached activations may take together.</param>
     /// <param name="Reason">How the chunk was chosen, for the user.</param>
-    public sealed record Choice(int SamplesPerRun, long CacheBudgetBytes, string Reason);
+    /// <param name="DeadOutputBytes">Outputs of finished trials allowed to wait for the collector (see <see cref="DeadOutputs"/>).</param>
+    public sealed record Choice(int SamplesPerRun, long CacheBudgetBytes, string Reason, long DeadOutputBytes);
+
+    /// <summary>
+    /// The least allowance for dead outputs: a model with small outputs is then collected once every few MiB of trials
+    /// rather than after each one (our choice; a collection costs milliseconds).
+    /// </summary>
+    public const long MinimumDeadOutputBytes = 16L << 20;
 
     public static Choice Plan(CalibrationSet data, TrialSessionOptions options, IReadOnlyDictionary<string, long[]> shapes, int probeRows, global::Onnx.ModelProto plain, long parameters)
     {
@@ -24,19 +32,21 @@ internal static class SweepMemory
         var activationsPerSample = plain.Graph.Node.SelectMany(n => n.Output).Where(o => o.Length > 0).Distinct(StringComparer.Ordinal).Sum(Bytes) / rows;
         var outputsPerSample = plain.Graph.Output.Sum(o => Bytes(o.Name)) / rows;
         var dataBytes = data.Inputs.Sum(a => (long)Buffer.ByteLength(a.Data));
-        var fixedBytes = (2 * dataBytes) + (3 * parameters * sizeof(float)) + (3 * outputsPerSample * data.SampleCount);
+        var outputBytes = outputsPerSample * data.SampleCount;
+        var dead = Math.Max(outputBytes, MinimumDeadOutputBytes);
+        var fixedBytes = (2 * dataBytes) + (3 * parameters * sizeof(float)) + (3 * outputBytes) + dead;
         var rest = Math.Max(0, options.MaxSweepMemoryBytes - fixedBytes);
         var cap = Math.Max(1, Math.Min(options.MaxBatch, data.SampleCount));
-        var limit = string.Create(CultureInfo.InvariantCulture, $"MaxSweepMemoryBytes {options.MaxSweepMemoryBytes / MiB:#,0} MiB, {fixedBytes / MiB:#,0.#} MiB of it for data, weights and outputs");
+        var limit = string.Create(CultureInfo.InvariantCulture, $"MaxSweepMemoryBytes {options.MaxSweepMemoryBytes / MiB:#,0} MiB, {fixedBytes / MiB:#,0.#} MiB of it for data, weights and outputs, including {dead / MiB:#,0.#} MiB of finished trials' outputs awaiting the garbage collector");
 
         if (data.SamplesPerRun is int fixedRun)
         {
-            return new Choice(fixedRun, Math.Min(options.MaxCachedActivationBytes, Math.Max(0, rest - (fixedRun * activationsPerSample))), $"{fixedRun} samples per run, as the model fixes its batch ({limit})");
+            return new Choice(fixedRun, Math.Min(options.MaxCachedActivationBytes, Math.Max(0, rest - (fixedRun * activationsPerSample))), $"{fixedRun} samples per run, as the model fixes its batch ({limit})", dead);
         }
 
         if (activationsPerSample <= 0)
         {
-            return new Choice(cap, Math.Min(options.MaxCachedActivationBytes, rest), $"up to {cap} samples per run (activation sizes could not be measured; {limit})");
+            return new Choice(cap, Math.Min(options.MaxCachedActivationBytes, rest), $"up to {cap} samples per run (activation sizes could not be measured; {limit})", dead);
         }
 
         var chunk = (int)Math.Clamp(rest / 2 / activationsPerSample, 1, cap);
@@ -44,6 +54,7 @@ internal static class SweepMemory
         return new Choice(
             chunk,
             cache,
-            string.Create(CultureInfo.InvariantCulture, $"{chunk:#,0} of {data.SampleCount:#,0} samples per run (at most {activationsPerSample / MiB:#,0.#} MiB of activations per sample; {limit})"));
+            string.Create(CultureInfo.InvariantCulture, $"{chunk:#,0} of {data.SampleCount:#,0} samples per run (at most {activationsPerSample / MiB:#,0.#} MiB of activations per sample; {limit})"),
+            dead);
     }
 }

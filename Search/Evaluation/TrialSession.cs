@@ -29,6 +29,7 @@ public sealed class TrialSession : IDisposable
     private readonly NodeCosts? _nodeCosts;
     private readonly long _cacheBudgetBytes;
     private readonly string _batchReason;
+    private readonly DeadOutputs _deadOutputs;
     private readonly InferenceSession _full;
     private readonly RunOptions _runOptions = new();
     private readonly SessionOptions _sessionOptions;
@@ -73,6 +74,7 @@ public sealed class TrialSession : IDisposable
         _plan = BatchPlan.For(data, memory.SamplesPerRun);
         _cacheBudgetBytes = memory.CacheBudgetBytes;
         _batchReason = memory.Reason;
+        _deadOutputs = new DeadOutputs(memory.DeadOutputBytes);
         _dataFeeds = BuildDataFeeds();
 
         var runModel = weightsAsInputs;
@@ -125,6 +127,9 @@ public sealed class TrialSession : IDisposable
 
     /// <summary>Time of one pass of the FP32 model over the calibration set, in ms.</summary>
     public double ForwardPassMilliseconds { get; }
+
+    /// <summary>Bytes of activations cached at the cut points (0 when none are), as the cut plan priced them.</summary>
+    internal long CachedActivationBytes => _cachedActivations is null ? 0 : _cutPlan?.CacheBytes ?? 0;
 
     /// <summary>True when cut-set activations are cached (planning the cuts first if needed), so single-layer trials may run a suffix.</summary>
     public bool SuffixAvailable => EnsureCutPlan(null) is { Cuts.Count: > 0 } && _cachedActivations is not null;
@@ -202,7 +207,10 @@ public sealed class TrialSession : IDisposable
             }
         }
 
-        return Compare(RunFull(weights, activations));
+        var outputs = RunFull(weights, activations);
+        var metrics = Compare(outputs);
+        _deadOutputs.Add(outputs, ReferenceOutputs);
+        return metrics;
     }
 
     /// <summary>
@@ -218,10 +226,12 @@ public sealed class TrialSession : IDisposable
         var outputs = cut > 0
             ? RunSuffixFrom(cut, layer, weight, activation)
             : RunFull(new Dictionary<string, float[]>(StringComparer.Ordinal) { [layer.Name] = weight }, activation ? [layer.Name] : null);
-        return Compare(outputs) with
+        var metrics = Compare(outputs) with
         {
             SamplesChanged = SampleChanges.Count(ReferenceOutputs, outputs, _data.SampleCount),
         };
+        _deadOutputs.Add(outputs, ReferenceOutputs);
+        return metrics;
     }
 
     /// <summary>

@@ -16,9 +16,10 @@ public static class TrialContext
 {
     /// <summary>
     /// Raised whenever a change to the engine changes what a stored trial would measure (the quantizer, the
-    /// metrics, how runs are batched), so trials measured by an older engine are never reused.
+    /// metrics, how runs are batched), so trials measured by an older engine are never reused. 3: the sweep's memory plan
+    /// sets aside room for finished trials' outputs, which can change the samples per run under the same setting.
     /// </summary>
-    public const int MeasurementVersion = 2;
+    public const int MeasurementVersion = 3;
 
     /// <summary>
     /// The context as a SHA-256 (hex) of a canonical text; <paramref name="modelSha256"/> and
