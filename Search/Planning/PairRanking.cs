@@ -3,7 +3,7 @@ namespace Bitbudget.Search.Planning;
 /// <summary>
 /// Which layer pairs get a pair trial. The pairs that can move the prediction most are those whose cross term can
 /// be largest at the widths the search is about to choose: for noise powers the term is at most 2 sqrt(e_i e_j)
-/// (Cauchy-Schwarz), so pairs are ranked by e_i(b_i) e_j(b_j) at the widths of the additive plan for the budget,
+/// (Cauchy-Schwarz), so pairs are ranked by e_i(b_i) e_j(b_j) at the widths of the assignment about to be validated,
 /// whether the layers are adjacent or not, and the first <c>maxPairs</c> are kept. A layer the plan leaves without
 /// error (FP32, or a width that changed no output) is in no pair.
 /// </summary>

@@ -36,6 +36,7 @@ internal static class PlanSummary
             }
 
             text.AppendLine(C, $"{metricName}: predicted {MetricValues.Format(metric, result.PredictedError)}, measured {MetricValues.Format(metric, result.MeasuredError)}{Binding(totals.BindingOutput)}");
+            Validation(text, manifest, metric);
             Outputs(text, totals.Metrics, manifest.HeldOut?.Metrics);
             if (manifest.HeldOut is { } held)
             {
@@ -123,6 +124,20 @@ internal static class PlanSummary
             var held = heldOut?.Outputs?.FirstOrDefault(o => o.Name == output.Name);
             text.AppendLine(C, $"{output.Name.PadRight(width)}  {(output.Judged ? "yes" : "no"),6} {Decibels(output.SqnrDb),10}{(heldOut is null ? "" : $" {Decibels(held?.SqnrDb),13}")}");
         }
+    }
+
+    /// <summary>How many assignments the validation measured and how far the first one chosen landed from its prediction.</summary>
+    private static void Validation(StringBuilder text, AssignmentManifest manifest, BudgetMetric metric)
+    {
+        if (manifest.Outcome.Rounds is not { Count: > 1 } rounds)
+        {
+            return;
+        }
+
+        var first = rounds[1];
+        var pairs = manifest.Outcome.Pairs is { Count: > 0 } measured ? $", {measured.Count} pair trials" : string.Empty;
+        var corrected = first.PredictedWithPairs is { } withPairs ? $" ({MetricValues.Format(metric, withPairs)} with pair terms)" : string.Empty;
+        text.AppendLine(C, $"validation: {rounds.Count} assignments measured{pairs}; the first chosen was predicted at {MetricValues.Format(metric, first.Predicted)}{corrected}, measured {MetricValues.Format(metric, first.Measured)}");
     }
 
     private static string Binding(string? output) => output is null ? string.Empty : $" (worst judged output: '{output}')";

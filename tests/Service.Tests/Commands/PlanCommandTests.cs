@@ -273,6 +273,25 @@ public sealed class PlanCommandTests(PlanDemoFixture fixture) : IClassFixture<Pl
     }
 
     [Fact]
+    public async Task PairsAreMeasuredCountedAndSummarised()
+    {
+        var outFolder = Path.Combine(fixture.Folder, "pairs");
+        var run = await CommandRun.RunAsync("plan", "--model", fixture.ModelPath, "--data", fixture.CalibrationPath, "--budget", "sqnr>=25", "--bits", "2,4,8", "--storage", "packed", "--pairs", "4", "--no-cache", "--out", outFolder);
+
+        Assert.True(run.ExitCode == 0, run.ToString());
+        using var manifest = JsonDocument.Parse(File.ReadAllBytes(Path.Combine(outFolder, "manifest.json")));
+        using var trials = JsonDocument.Parse(File.ReadAllBytes(Path.Combine(outFolder, "trials.json")));
+        var outcome = manifest.RootElement.GetProperty("outcome");
+        var pairs = outcome.GetProperty("pairs").GetArrayLength();
+        var rounds = outcome.GetProperty("rounds");
+        Assert.InRange(pairs, 1, 8);
+        Assert.Equal(pairs, trials.RootElement.EnumerateArray().Count(t => t.GetProperty("kind").GetString() == "pair"));
+        Assert.Equal(4, manifest.RootElement.GetProperty("settings").GetProperty("pairs").GetInt32());
+        Assert.Equal(outcome.GetProperty("validationRounds").GetInt32(), rounds.GetArrayLength());
+        Assert.Matches($@"(?m)^validation: {rounds.GetArrayLength()} assignments measured, {pairs} pair trials; the first chosen was predicted at \d+\.\d dB SQNR \(\d+\.\d dB SQNR with pair terms\), measured \d+\.\d dB SQNR$", run.Out);
+    }
+
+    [Fact]
     public void WithoutATerminalProgressIsPlainStageLinesWithoutCarriageReturns()
     {
         // The fixture's run wrote to a StringWriter, not a terminal (the test host's standard error is redirected).
