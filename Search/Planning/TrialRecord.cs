@@ -9,12 +9,12 @@ namespace Bitbudget.Search.Planning;
 /// restarted search skips what it has. <see cref="Assignment"/> and <see cref="Activations"/> say everything
 /// that was measured, so any trial can be run again from its record and the search's model and dataset.
 /// </summary>
-/// <param name="Kind">"reference", "sensitivity" or "validation".</param>
+/// <param name="Kind">"reference", "sensitivity", "validation" or "pair" (two layers quantized together, see <see cref="PairwiseModel"/>).</param>
 /// <param name="AssignmentHash">SHA-256 (hex) of the whole assignment for validations; null otherwise.</param>
 /// <param name="Assignment">
 /// The setting (bits, scheme, granularity, clip, ...) of every quantized layer, by layer name; a layer not
-/// listed stayed FP32. Empty for the reference, one layer for a sensitivity trial, every searched layer for a
-/// validation. Null for trials stored before assignments were kept.
+/// listed stayed FP32. Empty for the reference, one layer for a sensitivity trial, two for a pair trial, every searched
+/// layer for a validation. Null for trials stored before assignments were kept.
 /// </param>
 /// <param name="Activations">How layer inputs were quantized to 8 bits ("min-max", "percentile"); null when they stayed FP32.</param>
 /// <param name="ReusedFrom">
