@@ -1,4 +1,5 @@
 using System.Text.Json.Nodes;
+using Bitbudget.Search.Planning;
 using Bitbudget.Service.Searches;
 using Microsoft.AspNetCore.OpenApi;
 using Microsoft.OpenApi;
@@ -62,6 +63,14 @@ internal static class OpenApiDocumentation
                 if (context.JsonPropertyInfo is { } described && Meanings.TryGetValue((described.DeclaringType, described.Name), out var meaning))
                 {
                     schema.Description = meaning;
+                }
+
+                // The pair count's range, as SearchRequestValidator checks it.
+                if (context.JsonPropertyInfo is { Name: "pairs" } pairs
+                    && (pairs.DeclaringType == typeof(SearchRequest) || pairs.DeclaringType == typeof(SearchSpec)))
+                {
+                    schema.Minimum = "0";
+                    schema.Maximum = SearchSettings.MaxPairs.ToString(System.Globalization.CultureInfo.InvariantCulture);
                 }
 
                 // A size budget ({"bytes": N} or {"averageBits": B}) needs no metric; an error budget's is checked by the service.

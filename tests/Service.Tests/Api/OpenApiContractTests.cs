@@ -55,6 +55,11 @@ public sealed partial class OpenApiContractTests(ServiceFactory factory) : IClas
         // Numbers are numbers and choices are the listed ones.
         Assert.False(Evaluate(document, request, JsonNode.Parse("""{"modelId":"m","datasetId":"d","budget":{"metric":"sqnr","atLeast":"thirty"}}""")).IsValid);
         Assert.False(Evaluate(document, request, JsonNode.Parse("""{"modelId":"m","datasetId":"d","budget":{"bytes":1000},"method":"annealing"}""")).IsValid);
+
+        // pairs: 0 (off) to 64, as the service checks it.
+        AssertValid(document, request, JsonNode.Parse("""{"modelId":"m","datasetId":"d","budget":{"metric":"sqnr","atLeast":30},"pairs":16}"""));
+        Assert.False(Evaluate(document, request, JsonNode.Parse("""{"modelId":"m","datasetId":"d","budget":{"metric":"sqnr","atLeast":30},"pairs":65}""")).IsValid);
+        Assert.False(Evaluate(document, request, JsonNode.Parse("""{"modelId":"m","datasetId":"d","budget":{"metric":"sqnr","atLeast":30},"pairs":-1}""")).IsValid);
     }
 
     [Fact]
