@@ -31,27 +31,9 @@ public static class LayerInputCollector
     {
         ArgumentNullException.ThrowIfNull(model);
         ArgumentNullException.ThrowIfNull(data);
-        var graph = model.Proto.Graph;
-        var wanted = new List<(WeightLayer Layer, IReadOnlyList<LinearInputSite> Sites, LayerInputs Inputs)>();
-        long bytes = 0;
-        foreach (var layer in layers.Where(LinearInputSite.Applies))
-        {
-            if (LinearInputSite.Of(layer, graph) is not { } sites)
-            {
-                continue;
-            }
-
-            var layout = sites[0].Layout;
-            var size = InputMoments.BytesFor(layout.Groups, layout.Columns);
-            if (layout.Columns > MaxColumns || bytes + size > maxBytes)
-            {
-                continue;
-            }
-
-            bytes += size;
-            wanted.Add((layer, sites, new LayerInputs(layout, new InputMoments(layout.Groups, layout.Columns))));
-        }
-
+        var wanted = Chosen(model, layers, maxBytes)
+            .Select(c => (c.Layer, c.Sites, Inputs: new LayerInputs(c.Sites[0].Layout, new InputMoments(c.Sites[0].Layout.Groups, c.Sites[0].Layout.Columns))))
+            .ToList();
         if (wanted.Count == 0)
         {
             return new Dictionary<string, LayerInputs>(StringComparer.Ordinal);
@@ -76,7 +58,8 @@ public static class LayerInputCollector
                     feeds[model.Inputs[i].Name] = OrtTensors.SliceSamples(data.Inputs[i], data.SampleAxes[i], start, count, plan.RowsFed(count));
                 }
 
-                using var results = session.Run(runOptions, feeds.Keys.ToList(), feeds.Values.ToList(), tapped);
+                // ONNX Runtime runs nothing without an output: when every layer reads a graph input, ask for a model output.
+                using var results = session.Run(runOptions, feeds.Keys.ToList(), feeds.Values.ToList(), tapped.Count > 0 ? tapped : [session.OutputNames[0]]);
                 foreach (var (layer, sites, inputs) in wanted)
                 {
                     foreach (var site in sites)
@@ -104,6 +87,42 @@ public static class LayerInputCollector
 
         return wanted.Where(w => Enumerable.Range(0, w.Inputs.Moments.Groups).All(g => w.Inputs.Moments.Count(g) > 0))
             .ToDictionary(w => w.Layer.Name, w => w.Inputs, StringComparer.Ordinal);
+    }
+
+    /// <summary>
+    /// Bytes the moments <see cref="Collect"/> gathers for these layers take (Σ x x^T and Σ x per group, in double), known
+    /// from the graph alone, for estimating a search's memory before it runs.
+    /// </summary>
+    public static long MomentBytes(OnnxModel model, IReadOnlyList<WeightLayer> layers, long maxBytes)
+    {
+        ArgumentNullException.ThrowIfNull(model);
+        return Chosen(model, layers, maxBytes).Sum(c => c.Bytes);
+    }
+
+    /// <summary>The layers whose moments are gathered, in model order, while they fit <paramref name="maxBytes"/>.</summary>
+    private static List<(WeightLayer Layer, IReadOnlyList<LinearInputSite> Sites, long Bytes)> Chosen(OnnxModel model, IReadOnlyList<WeightLayer> layers, long maxBytes)
+    {
+        var chosen = new List<(WeightLayer, IReadOnlyList<LinearInputSite>, long)>();
+        long bytes = 0;
+        foreach (var layer in layers.Where(LinearInputSite.Applies))
+        {
+            if (LinearInputSite.Of(layer, model.Proto.Graph) is not { } sites)
+            {
+                continue;
+            }
+
+            var layout = sites[0].Layout;
+            var size = InputMoments.BytesFor(layout.Groups, layout.Columns);
+            if (layout.Columns > MaxColumns || bytes + size > maxBytes)
+            {
+                continue;
+            }
+
+            bytes += size;
+            chosen.Add((layer, sites, size));
+        }
+
+        return chosen;
     }
 
     /// <summary>Adds one batch of a site's input tensor to the layer's moments.</summary>

@@ -7,7 +7,9 @@ namespace Bitbudget.Search.Evaluation;
 /// headers alone (nothing decoded): the decoded arrays, an FP32 copy of any input array of another float type,
 /// the reference outputs and one trial's outputs for every sample, the activation cache at its cap (the cache
 /// grows with the calibration set until that cap, see <see cref="TrialSessionOptions.MaxCachedActivationBytes"/>),
-/// and the weights three times over (the loaded model, its FP32 weights and the weights fed to the session).
+/// the weights three times over (the loaded model, its FP32 weights and the weights fed to the session), and, when the
+/// search rounds with compensation or corrects biases, the layers' input moments (<see cref="LayerInputCollector.MomentBytes"/>:
+/// Columns² + Columns doubles per group, whatever the sample count).
 /// Output dimensions the model leaves dynamic count as 1, so the figure is a lower bound where they are.
 /// </summary>
 /// <param name="Bytes">The estimate: <see cref="FixedBytes"/> + <see cref="PerSampleBytes"/> x <see cref="Samples"/>.</param>
@@ -16,9 +18,10 @@ namespace Bitbudget.Search.Evaluation;
 public sealed record SearchMemoryEstimate(long Bytes, long PerSampleBytes, long FixedBytes, long Samples)
 {
     /// <param name="heldBytes">Bytes the caller holds for the whole search besides (e.g. the dataset file read whole).</param>
+    /// <param name="inputMomentBytes">Bytes of the layers' input moments the search gathers (0 when it gathers none).</param>
     /// <param name="sampleAxes">Sample axes given outright, by input name; the others follow <see cref="CalibrationSet"/>'s rule, and an
     /// array of its input's whole fixed shape is a constant, held once rather than per sample.</param>
-    public static SearchMemoryEstimate Of(OnnxModel model, IReadOnlyList<NpyArrayInfo> arrays, long activationCacheBytes, long heldBytes = 0, IReadOnlyDictionary<string, int>? sampleAxes = null)
+    public static SearchMemoryEstimate Of(OnnxModel model, IReadOnlyList<NpyArrayInfo> arrays, long activationCacheBytes, long heldBytes = 0, IReadOnlyDictionary<string, int>? sampleAxes = null, long inputMomentBytes = 0)
     {
         ArgumentNullException.ThrowIfNull(model);
         ArgumentNullException.ThrowIfNull(arrays);
@@ -65,7 +68,7 @@ public sealed record SearchMemoryEstimate(long Bytes, long PerSampleBytes, long 
         }
 
         var weights = model.Layers.Sum(l => (double)l.ParameterCount) * sizeof(float) * 3;
-        var fixedBytes = weights + activationCacheBytes + heldBytes + constantBytes;
+        var fixedBytes = weights + activationCacheBytes + heldBytes + constantBytes + inputMomentBytes;
         var total = fixedBytes + (perSample * samples);
         return new SearchMemoryEstimate(Clamp(total), Clamp(Math.Ceiling(perSample)), Clamp(fixedBytes), samples);
     }
@@ -83,7 +86,7 @@ public sealed record SearchMemoryEstimate(long Bytes, long PerSampleBytes, long 
         throw new EngineException(
             "search-too-large",
             $"A search on this model and dataset would hold about {DatasetErrors.FormatBytes(Bytes)} in memory " +
-            $"({DatasetErrors.FormatBytes(PerSampleBytes)} per sample for {Samples} samples, plus {DatasetErrors.FormatBytes(FixedBytes)} for weights, the activation cache and the dataset file), " +
+            $"({DatasetErrors.FormatBytes(PerSampleBytes)} per sample for {Samples} samples, plus {DatasetErrors.FormatBytes(FixedBytes)} for weights, the activation cache, the layers' input moments and the dataset file), " +
             $"more than the {DatasetErrors.FormatBytes(limitBytes)} of {limitName}; {advice}.");
     }
 

@@ -35,6 +35,7 @@ public sealed class TrialSession : IDisposable
     private readonly SessionOptions _sessionOptions;
     private readonly Dictionary<string, float[]> _fp32ByLayer;
     private readonly Dictionary<string, OrtValue> _fp32Values;
+    private readonly IReadOnlyDictionary<string, BiasSite> _biasSites;
     private readonly List<Dictionary<string, OrtValue>> _dataFeeds;
     private readonly GraphSlicer _slicer;
     private List<Dictionary<string, OrtValue>>? _cachedActivations;
@@ -67,6 +68,15 @@ public sealed class TrialSession : IDisposable
             l => l.WeightName,
             l => OrtTensors.Wrap(_fp32ByLayer[l.Name], l.Shape.ToArray()),
             StringComparer.Ordinal);
+
+        // Corrected biases are fed like weights: each corrected layer reads its bias from a graph input, fed its own
+        // bias (or zeros) in FP32 runs, so the reference is the uploaded model's.
+        _biasSites = options.Rounder?.BiasSites ?? new Dictionary<string, BiasSite>(StringComparer.Ordinal);
+        foreach (var site in _biasSites.Values)
+        {
+            site.AddSessionInput(weightsAsInputs.Graph);
+            _fp32Values[site.InputName] = OrtTensors.Wrap(site.Original, site.Dims);
+        }
 
         // One sample through the model with every tensor tapped: shapes for the cost model and the memory the runs need.
         (_probeShapes, _probeRows) = ProbeShapes(weightsAsInputs);
@@ -193,6 +203,7 @@ public sealed class TrialSession : IDisposable
     public MetricSet MeasureAssignment(IReadOnlyDictionary<string, LayerSetting> assignment)
     {
         var weights = new Dictionary<string, float[]>(StringComparer.Ordinal);
+        var biases = new Dictionary<string, float[]>(StringComparer.Ordinal);
         var activations = new List<string>();
         foreach (var (name, setting) in assignment)
         {
@@ -201,17 +212,26 @@ public sealed class TrialSession : IDisposable
                 weights[name] = Quantized(Layer(name), setting);
             }
 
+            if (CorrectedBias(Layer(name), setting) is { } bias)
+            {
+                biases[name] = bias;
+            }
+
             if (QuantizesActivation(setting) && HasActivation(name))
             {
                 activations.Add(name);
             }
         }
 
-        var outputs = RunFull(weights, activations);
+        var outputs = RunFull(weights, activations, biases);
         var metrics = Compare(outputs);
         _deadOutputs.Add(outputs, ReferenceOutputs);
         return metrics;
     }
+
+    /// <summary>The bias <paramref name="layer"/> runs with under <paramref name="setting"/> when it differs from its own (bias correction).</summary>
+    private float[]? CorrectedBias(WeightLayer layer, LayerSetting setting) =>
+        _biasSites.ContainsKey(layer.Name) ? _options.Rounder!.CorrectedBias(layer, setting) : null;
 
     /// <summary>
     /// Measures one layer at one setting with every other layer FP32 (a sensitivity trial). Runs only the
@@ -221,11 +241,12 @@ public sealed class TrialSession : IDisposable
     public MetricSet MeasureLayer(WeightLayer layer, LayerSetting setting, int trialsForLayer = 1, bool allowSuffix = true)
     {
         var weight = Quantized(layer, setting);
+        var bias = CorrectedBias(layer, setting);
         var activation = QuantizesActivation(setting) && HasActivation(layer.Name);
         var cut = allowSuffix ? PlannedCut(layer, trialsForLayer) : 0;
         var outputs = cut > 0
-            ? RunSuffixFrom(cut, layer, weight, activation)
-            : RunFull(new Dictionary<string, float[]>(StringComparer.Ordinal) { [layer.Name] = weight }, activation ? [layer.Name] : null);
+            ? RunSuffixFrom(cut, layer, weight, activation, bias)
+            : RunFull(new Dictionary<string, float[]>(StringComparer.Ordinal) { [layer.Name] = weight }, activation ? [layer.Name] : null, Single(layer, bias));
         var metrics = Compare(outputs) with
         {
             SamplesChanged = SampleChanges.Count(ReferenceOutputs, outputs, _data.SampleCount),
@@ -236,9 +257,13 @@ public sealed class TrialSession : IDisposable
 
     /// <summary>
     /// Runs the whole model with some layers' weights replaced (by layer name) and, when activation
-    /// quantization is on, the input activations of <paramref name="activationLayers"/> quantized.
+    /// quantization is on, the input activations of <paramref name="activationLayers"/> quantized, and the biases of
+    /// <paramref name="biasesByLayer"/> (layers with a bias site, see <see cref="BiasSite"/>) replaced.
     /// </summary>
-    public IReadOnlyList<OutputTensor> RunFull(IReadOnlyDictionary<string, float[]> weightsByLayer, IReadOnlyCollection<string>? activationLayers = null)
+    public IReadOnlyList<OutputTensor> RunFull(
+        IReadOnlyDictionary<string, float[]> weightsByLayer,
+        IReadOnlyCollection<string>? activationLayers = null,
+        IReadOnlyDictionary<string, float[]>? biasesByLayer = null)
     {
         var owned = new List<OrtValue>();
         try
@@ -251,6 +276,8 @@ public sealed class TrialSession : IDisposable
                 owned.Add(value);
                 overrides[layer.WeightName] = value;
             }
+
+            AddBiases(overrides, owned, biasesByLayer);
 
             SwitchOn(overrides, activationLayers ?? []);
             return Run(_full, _full.OutputNames, overrides, extraFeeds: null);
@@ -285,15 +312,26 @@ public sealed class TrialSession : IDisposable
             : RunFull(new Dictionary<string, float[]>(StringComparer.Ordinal) { [layer.Name] = weight }, quantizeActivation ? [layer.Name] : null);
     }
 
-    /// <summary>Runs the graph from the cached cut at <paramref name="cut"/> with one layer's weight replaced.</summary>
-    private List<OutputTensor> RunSuffixFrom(int cut, WeightLayer layer, float[] weight, bool quantizeActivation)
+    /// <summary>Runs the graph from the cached cut at <paramref name="cut"/> with one layer's weight (and corrected bias) replaced.</summary>
+    private List<OutputTensor> RunSuffixFrom(int cut, WeightLayer layer, float[] weight, bool quantizeActivation, float[]? bias = null)
     {
         var cached = _cachedActivations ?? throw new InvalidOperationException("No activations are cached for suffix runs.");
         var session = SuffixSession(cut);
         using var value = OrtTensors.Wrap(weight, layer.Shape.ToArray());
         var overrides = new Dictionary<string, OrtValue>(StringComparer.Ordinal) { [layer.WeightName] = value };
+        var owned = new List<OrtValue>();
+        AddBiases(overrides, owned, Single(layer, bias));
         SwitchOn(overrides, quantizeActivation ? [layer.Name] : []);
-        var suffixOutputs = Run(session, session.OutputNames, overrides, cached);
+        List<OutputTensor> suffixOutputs;
+        try
+        {
+            suffixOutputs = Run(session, session.OutputNames, overrides, cached);
+        }
+        finally
+        {
+            owned.ForEach(v => v.Dispose());
+        }
+
         var byName = suffixOutputs.ToDictionary(o => o.Name, StringComparer.Ordinal);
 
         // Outputs made before the cut do not depend on the layer: they are the reference outputs.
@@ -317,6 +355,20 @@ public sealed class TrialSession : IDisposable
         if (_cachedActivations is not null)
         {
             DisposeFeeds(_cachedActivations);
+        }
+    }
+
+    private static Dictionary<string, float[]>? Single(WeightLayer layer, float[]? bias) =>
+        bias is null ? null : new Dictionary<string, float[]>(StringComparer.Ordinal) { [layer.Name] = bias };
+
+    private void AddBiases(Dictionary<string, OrtValue> overrides, List<OrtValue> owned, IReadOnlyDictionary<string, float[]>? biasesByLayer)
+    {
+        foreach (var (name, bias) in biasesByLayer ?? new Dictionary<string, float[]>())
+        {
+            var site = _biasSites.TryGetValue(name, out var found) ? found : throw new InvalidOperationException($"Layer '{name}' has no bias site in this session.");
+            var value = OrtTensors.Wrap(bias, site.Dims);
+            owned.Add(value);
+            overrides[site.InputName] = value;
         }
     }
 

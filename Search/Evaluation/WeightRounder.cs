@@ -9,6 +9,8 @@ namespace Bitbudget.Search.Evaluation;
 /// exactly the integers that were measured. Nearest rounding needs nothing but the weight; compensated rounding also
 /// needs the layer's input moments (<see cref="LayerInputCollector"/>), and a layer without them is rounded to nearest.
 /// The Cholesky factors (one per layer, whatever the width) and the compensated integers are computed once and kept.
+/// It is also the one place a corrected bias comes from (<see cref="CorrectedBias"/>): trials feed it and the export
+/// writes it, so the exported model holds exactly the bias that was measured.
 /// </summary>
 public sealed class WeightRounder
 {
@@ -16,14 +18,70 @@ public sealed class WeightRounder
     private readonly IReadOnlyDictionary<string, LayerInputs> _inputs;
     private readonly ConcurrentDictionary<string, double[][]> _factors = new(StringComparer.Ordinal);
     private readonly ConcurrentDictionary<string, QuantizedWeight> _compensated = new(StringComparer.Ordinal);
+    private readonly ConcurrentDictionary<string, float[]> _biases = new(StringComparer.Ordinal);
+    private readonly Dictionary<string, BiasSite> _biasSites = new(StringComparer.Ordinal);
+    private readonly Dictionary<string, string> _uncorrected = new(StringComparer.Ordinal);
 
-    public WeightRounder(OnnxModel model, IReadOnlyDictionary<string, LayerInputs> inputs)
+    /// <param name="correctBiases">Find each layer's bias site, so settings with bias correction get corrected biases.</param>
+    public WeightRounder(OnnxModel model, IReadOnlyDictionary<string, LayerInputs> inputs, bool correctBiases = false)
     {
         ArgumentNullException.ThrowIfNull(model);
         ArgumentNullException.ThrowIfNull(inputs);
         _model = model;
         _inputs = inputs;
+        if (!correctBiases)
+        {
+            return;
+        }
+
+        foreach (var layer in model.Layers)
+        {
+            if (BiasSite.Find(model, layer, out var reason) is not { } site)
+            {
+                _uncorrected[layer.Name] = reason;
+            }
+            else if (!inputs.ContainsKey(layer.Name))
+            {
+                _uncorrected[layer.Name] = $"its inputs' mean was not gathered (inputs wider than {LayerInputCollector.MaxColumns} values, past the memory allowed, or not read as one linear map)";
+            }
+            else
+            {
+                _biasSites[layer.Name] = site;
+            }
+        }
     }
+
+    /// <summary>Layers bias correction cannot apply to, with the reason (a sentence fragment); empty when it was not asked for.</summary>
+    public IReadOnlyDictionary<string, string> UncorrectedBiases => _uncorrected;
+
+    /// <summary>The bias sites of the layers whose biases are corrected, by layer name.</summary>
+    internal IReadOnlyDictionary<string, BiasSite> BiasSites => _biasSites;
+
+    /// <summary>
+    /// The bias <paramref name="layer"/> runs with under <paramref name="setting"/>: its own plus the bias correction
+    /// shift of the stored weight (Nagel et al. 2019), or null when the setting does not correct it or the layer has
+    /// no bias site. Computed once per layer and setting.
+    /// </summary>
+    public float[]? CorrectedBias(WeightLayer layer, LayerSetting setting)
+    {
+        ArgumentNullException.ThrowIfNull(layer);
+        ArgumentNullException.ThrowIfNull(setting);
+        if (!setting.BiasCorrection || !BitWidths.IsInteger(setting.Bits) || !_biasSites.TryGetValue(layer.Name, out var site))
+        {
+            return null;
+        }
+
+        return _biases.GetOrAdd(layer.Name + "/" + Planning.TrialKeys.Describe(setting), _ =>
+        {
+            var inputs = _inputs[layer.Name];
+            var shift = BiasCorrection.Shift(_model.GetWeight(layer), Dequantized(layer, setting), inputs.Layout, inputs.Moments);
+            return site.Corrected(shift);
+        });
+    }
+
+    /// <summary>Bytes the export's corrected bias adds to the file, by layer (see <see cref="BiasSite.ExportFileBytes"/>).</summary>
+    public IReadOnlyDictionary<string, long> BiasFileBytes() =>
+        _biasSites.ToDictionary(p => p.Key, p => p.Value.ExportFileBytes(_model.Proto.Graph), StringComparer.Ordinal);
 
     /// <summary>Layers whose input moments were gathered, by name.</summary>
     public IReadOnlyDictionary<string, LayerInputs> Inputs => _inputs;
@@ -48,7 +106,8 @@ public sealed class WeightRounder
             return WeightQuantizer.Quantize(_model.GetWeight(layer), layer.Shape, layer.ChannelAxis, setting with { Rounding = RoundingMethod.Nearest });
         }
 
-        return _compensated.GetOrAdd(layer.Name + "/" + Planning.TrialKeys.Describe(setting), _ =>
+        // Bias correction moves the bias, not the integers: both share one rounding.
+        return _compensated.GetOrAdd(layer.Name + "/" + Planning.TrialKeys.Describe(setting with { BiasCorrection = false }), _ =>
         {
             var inputs = _inputs[layer.Name];
             var factors = _factors.GetOrAdd(layer.Name, _ => CompensatedRounding.Factors(inputs.Moments));

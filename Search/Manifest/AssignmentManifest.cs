@@ -28,7 +28,8 @@ public sealed record AssignmentManifest(
     /// 3: sizes are the written file's, storage rule, modelFileBytes; 4: a non-finite number is the string
     /// "Infinity", "-Infinity" or "NaN" instead of null, and null only ever means absent; 5: one vocabulary:
     /// settings.pin/exclude, bits ascending, totals/heldOut.measured is the budget metric's number and .metrics every metric;
-    /// 6: settings.pairs, outcome.rounds (predicted, with pairs, and measured per validation round) and outcome.pairs).
+    /// 6: settings.pairs, outcome.rounds (predicted, with pairs, and measured per validation round) and outcome.pairs;
+    /// settings.biasCorrection).
     /// </summary>
     public const int CurrentFormatVersion = 6;
 }
@@ -58,6 +59,7 @@ public sealed record ManifestDataset(
 /// <param name="Bits">Candidate bit widths, ascending.</param>
 /// <param name="Pin">Layers forced to one bit width.</param>
 /// <param name="Exclude">Layers kept in FP32.</param>
+/// <param name="BiasCorrection">Whether quantized layers' biases were corrected for their mean output shift (warnings name the layers that could not be).</param>
 public sealed record ManifestSettings(
     IReadOnlyList<int> Bits,
     string Method,
@@ -71,7 +73,8 @@ public sealed record ManifestSettings(
     string MetricSpace = "linear",
     string Storage = "container",
     IReadOnlyList<string>? Rounding = null,
-    int Pairs = 0);
+    int Pairs = 0,
+    bool BiasCorrection = false);
 
 /// <summary>The budget: an error bound on <see cref="Metric"/> (AtLeast or AtMost) or a size bound (Bytes or AverageBits).</summary>
 public sealed record ManifestBudget(string Kind, string Metric, double? AtLeast, double? AtMost, long? Bytes, double? AverageBits, string AdditiveModel);

@@ -202,7 +202,7 @@ public sealed class OnnxModel
         return copy.ToByteArray();
     }
 
-    private static P.ValueInfoProto FloatInput(string name, IEnumerable<long> shape)
+    internal static P.ValueInfoProto FloatInput(string name, IEnumerable<long> shape)
     {
         var tensorType = new P.TypeProto.Types.Tensor { ElemType = (int)P.TensorProto.Types.DataType.Float, Shape = new P.TensorShapeProto() };
         foreach (var dim in shape)

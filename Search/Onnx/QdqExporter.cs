@@ -32,7 +32,8 @@ public static class QdqExporter
     /// gets QuantizeLinear/DequantizeLinear (uint8, per-tensor) on its input activation; that needs opset 13.
     /// Run unoptimised, such a model reproduces the validation trial exactly; with ONNX Runtime's default
     /// optimisations it stays within a relative MSE of 1e-8 of it (measured 9e-15 on the test MLP; 8-bit weights next to quantized activations are stored as uint8, see below).
-    /// Layers set to compensated rounding take their integers from <paramref name="rounder"/>, the trials' own source.
+    /// Layers set to compensated rounding take their integers from <paramref name="rounder"/>, the trials' own source,
+    /// and layers set to bias correction their corrected bias (see <see cref="BiasSite.Export"/>).
     /// </summary>
     public static ExportedModel Export(
         OnnxModel model,
@@ -92,6 +93,12 @@ public static class QdqExporter
 
             graph.Initializer.AddRange(stored.Initializers);
             dequantizers.AddRange(stored.Nodes);
+
+            // The corrected bias comes from the rounder too, so the file holds the very bias the trials ran with.
+            if (rounder?.CorrectedBias(layer, setting) is { } bias)
+            {
+                rounder.BiasSites[layer.Name].Export(graph, bias);
+            }
             forms.Add(stored.Form);
             if (stored.Form == WeightStorage.DequantizeForm)
             {

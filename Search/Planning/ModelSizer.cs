@@ -19,8 +19,11 @@ public sealed class ModelSizer
 
     /// <param name="opset">The opset to count for; the model's own by default (a what-if count may name another).</param>
     /// <param name="activations">The activations the export quantizes next to integer weights (none by default).</param>
-    public ModelSizer(OnnxModel model, StorageRule storage, long? opset = null, IReadOnlyList<ActivationQuantization>? activations = null)
+    /// <param name="biasFileBytes">Bytes a corrected bias adds to the file, by layer (<see cref="Evaluation.WeightRounder.BiasFileBytes"/>),
+    /// counted for settings with bias correction.</param>
+    public ModelSizer(OnnxModel model, StorageRule storage, long? opset = null, IReadOnlyList<ActivationQuantization>? activations = null, IReadOnlyDictionary<string, long>? biasFileBytes = null)
     {
+        BiasFileBytes = biasFileBytes ?? new Dictionary<string, long>(StringComparer.Ordinal);
         ArgumentNullException.ThrowIfNull(model);
         this.model = model;
         Storage = storage;
@@ -32,6 +35,9 @@ public sealed class ModelSizer
     }
 
     public StorageRule Storage { get; }
+
+    /// <summary>Bytes a corrected bias adds to the file, by layer; layers not listed add none.</summary>
+    public IReadOnlyDictionary<string, long> BiasFileBytes { get; }
 
     /// <summary>The activations counted with their layers (quantized when the layer's weight is an integer).</summary>
     public IReadOnlyList<ActivationQuantization> Activations { get; }
@@ -60,7 +66,8 @@ public sealed class ModelSizer
         bytes = setting.Bits == BitWidths.Float32
             ? model.Float32EntryBytes(layer)
             : WeightStorage.FileBytes(layer, setting, Opset, activations.Count > 0)
-              + activations.Sum(a => ActivationQdq.FileBytes(model.Proto.Graph, a));
+              + activations.Sum(a => ActivationQdq.FileBytes(model.Proto.Graph, a))
+              + (setting.BiasCorrection && BitWidths.IsInteger(setting.Bits) ? BiasFileBytes.GetValueOrDefault(layer.Name) : 0);
         if (Storage == StorageRule.Packed && BitWidths.IsInteger(setting.Bits))
         {
             var container = CostModel.PayloadBytes(layer.ParameterCount, WeightStorage.ContainerBits(setting, Opset));

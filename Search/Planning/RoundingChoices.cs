@@ -9,6 +9,13 @@ namespace Bitbudget.Search.Planning;
 /// </summary>
 public static class RoundingChoices
 {
+    /// <summary>Whether a search with these settings gathers its layers' input moments first (compensated rounding or bias correction).</summary>
+    public static bool NeedsInputMoments(SearchSettings settings)
+    {
+        ArgumentNullException.ThrowIfNull(settings);
+        return settings.BiasCorrection || Asked(settings).Contains(RoundingMethod.Compensated);
+    }
+
     /// <summary>The roundings the settings ask for, nearest first; nearest alone when none are given.</summary>
     public static IReadOnlyList<RoundingMethod> Asked(SearchSettings settings)
     {

@@ -50,7 +50,7 @@ public static class SearchRunner
 
         cancellationToken.ThrowIfCancellationRequested();
         progress?.Report(new SearchProgress(SearchStage.Search, 0, 1));
-        var problem = PlanningProblem.Build(model, settings, session.ReferenceMetrics, sweep, new ModelSizer(model, settings.Storage, activations: session.Activations), data.SampleCount);
+        var problem = PlanningProblem.Build(model, settings, session.ReferenceMetrics, sweep, new ModelSizer(model, settings.Storage, activations: session.Activations, biasFileBytes: rounder.BiasFileBytes()), data.SampleCount);
         var frontier = KnapsackSolver.Frontier(problem.Layers);
         progress?.Report(new SearchProgress(SearchStage.Search, 1, 1));
 
@@ -68,7 +68,8 @@ public static class SearchRunner
         var heldOut = decision.Chosen is { } kept && holdout is not null ? MeasureHeldOut(model, holdout, options, session, kept) : null;
         var warnings = SearchWarnings.FewSamples(session.ReferenceOutputs, problem.Judge, settings.MetricSpace)
             .Concat(SearchWarnings.SilentOutputs(session.ReferenceOutputs, problem.Judge))
-            .Concat(SearchWarnings.NonFiniteChoices(problem.NonFiniteChoices)).ToList();
+            .Concat(SearchWarnings.NonFiniteChoices(problem.NonFiniteChoices))
+            .Concat(SearchWarnings.UncorrectedBiases(rounder.UncorrectedBiases, decision.Chosen?.Assignment)).ToList();
         if (SearchWarnings.Resolution(settings.Budget, session.ReferenceOutputs, problem.Judge, data.SampleCount, data.Labels?.Count) is { } resolution)
         {
             warnings.Add(resolution);
@@ -142,19 +143,19 @@ public static class SearchRunner
     }
 
     /// <summary>
-    /// The source of every weight's integers. With compensated rounding asked for, the searched layers' input moments
-    /// are gathered first, in one pass of the FP32 model over the calibration set (bounded like the activation cache).
+    /// The source of every weight's integers and corrected biases. With compensated rounding or bias correction asked for,
+    /// the searched layers' input moments are gathered first, in one pass of the FP32 model over the calibration set (bounded like the activation cache).
     /// </summary>
     private static WeightRounder RounderFor(OnnxModel model, CalibrationSet data, SearchSettings settings, TrialSessionOptions options, CancellationToken cancellationToken)
     {
-        if (!RoundingChoices.Asked(settings).Contains(RoundingMethod.Compensated))
+        if (!RoundingChoices.NeedsInputMoments(settings))
         {
             return new WeightRounder(model, new Dictionary<string, LayerInputs>(StringComparer.Ordinal));
         }
 
         var excluded = (settings.Excluded ?? []).ToHashSet(StringComparer.Ordinal);
         var searched = model.Layers.Where(l => !excluded.Contains(l.Name)).ToList();
-        return new WeightRounder(model, LayerInputCollector.Collect(model, data, searched, options.MaxBatch, options.MaxCachedActivationBytes, cancellationToken));
+        return new WeightRounder(model, LayerInputCollector.Collect(model, data, searched, options.MaxBatch, options.MaxCachedActivationBytes, cancellationToken), settings.BiasCorrection);
     }
 
     /// <summary>

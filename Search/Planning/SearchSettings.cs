@@ -18,6 +18,7 @@ namespace Bitbudget.Search.Planning;
 /// Most layer pairs measured together for the interaction-aware prediction (<see cref="PairwiseModel"/>, <see cref="PairRanking"/>);
 /// each pair costs one or two extra trials. 0 turns pair terms off (the additive model alone). Error budgets only.
 /// </param>
+/// <param name="BiasCorrection">Correct each quantized layer's bias for its mean output shift (Nagel et al. 2019), with either rounding.</param>
 public sealed record SearchSettings(
     Budget Budget,
     IReadOnlyList<int> Bits,
@@ -34,13 +35,17 @@ public sealed record SearchSettings(
     IReadOnlyDictionary<string, int>? SampleAxes = null,
     StorageRule Storage = StorageRule.Container,
     IReadOnlyList<RoundingMethod>? Rounding = null,
-    int Pairs = SearchSettings.DefaultPairs)
+    int Pairs = SearchSettings.DefaultPairs,
+    bool BiasCorrection = false)
 {
     /// <summary>The pairs measured when none is said (see the benchmark in DEVELOPERS.md).</summary>
     public const int DefaultPairs = 0;
 
     /// <summary>The most pairs a search may ask for: the trials stay a small part of a sweep's.</summary>
     public const int MaxPairs = 64;
+
+    /// <summary>Whether bias correction is on when a request or the command line does not say (see DEVELOPERS.md, "Rounding: nearest against compensated").</summary>
+    public const bool DefaultBiasCorrection = false;
 
     /// <summary>The candidate widths most teams start from when sub-byte widths are packed (common practice).</summary>
     public static IReadOnlyList<int> DefaultBits { get; } = [2, 3, 4, 5, 6, 8];

@@ -33,6 +33,23 @@ internal static class SearchWarnings
         }
     }
 
+    /// <summary>
+    /// One warning naming the layers of <paramref name="chosen"/> that bias correction was asked for but could not move,
+    /// with why (their biases stay as uploaded); none when every quantized layer was corrected.
+    /// </summary>
+    public static IEnumerable<string> UncorrectedBiases(IReadOnlyDictionary<string, string> uncorrected, IReadOnlyDictionary<string, LayerSetting>? chosen)
+    {
+        var missed = (chosen ?? new Dictionary<string, LayerSetting>())
+            .Where(p => p.Value.BiasCorrection && BitWidths.IsInteger(p.Value.Bits) && uncorrected.ContainsKey(p.Key))
+            .OrderBy(p => p.Key, StringComparer.Ordinal)
+            .Select(p => $"'{p.Key}' ({uncorrected[p.Key]})")
+            .ToList();
+        if (missed.Count > 0)
+        {
+            yield return $"Bias correction left {missed.Count} quantized layer{(missed.Count == 1 ? string.Empty : "s")} with {(missed.Count == 1 ? "its" : "their")} own bias: {string.Join("; ", missed)}.";
+        }
+    }
+
     /// <summary>One warning per layer with candidate widths whose error came out infinite, which the search did not offer.</summary>
     public static IEnumerable<string> NonFiniteChoices(IReadOnlyList<(string Layer, int Bits)> choices) =>
         choices.GroupBy(c => c.Layer, StringComparer.Ordinal).Select(g =>

@@ -57,9 +57,9 @@ public static class SensitivitySweep
         : settings.Clip == ClipMethod.Percentile ? ActivationCalibration.Percentile
         : ActivationCalibration.MinMax;
 
-    /// <summary>The full setting a width gets under the search's scheme, granularity and clipping.</summary>
+    /// <summary>The full setting a width gets under the search's scheme, granularity, clipping and bias correction (integer widths only).</summary>
     public static LayerSetting SettingFor(int bits, SearchSettings settings) =>
-        new(bits, settings.Scheme, settings.Granularity, settings.Clip);
+        new(bits, settings.Scheme, settings.Granularity, settings.Clip, BiasCorrection: settings.BiasCorrection && BitWidths.IsInteger(bits));
 
     /// <summary>
     /// Runs the trials not yet in <paramref name="store"/> and returns every trial's record by key.

@@ -37,7 +37,7 @@ internal static class StorageAdvice
             return sentences.Count == 0 ? null : string.Join(" ", sentences);
         }
 
-        var packed = new ModelSizer(model, StorageRule.Packed, opset, problem.Sizer.Activations);
+        var packed = new ModelSizer(model, StorageRule.Packed, opset, problem.Sizer.Activations, problem.Sizer.BiasFileBytes);
         var measuredSmall = problem.Layers.Any(l => l.Choices.Any(c => BitWidths.IsInteger(c.Bits) && c.Bits < BitWidths.MaxInteger));
         if (measuredSmall)
         {
@@ -55,7 +55,7 @@ internal static class StorageAdvice
         var text = $"Smaller widths are closed by the storage: {bits} bits on every searched layer would take {Format(fixedBytes + problem.Searched.Sum(l => packed.LayerBytes(l, uniform)))} with --storage packed";
         if (opset < WeightStorage.Int4Opset)
         {
-            var int4 = new ModelSizer(model, StorageRule.Container, WeightStorage.Int4Opset, problem.Sizer.Activations);
+            var int4 = new ModelSizer(model, StorageRule.Container, WeightStorage.Int4Opset, problem.Sizer.Activations, problem.Sizer.BiasFileBytes);
             text += $" or {Format(fixedBytes + problem.Searched.Sum(l => int4.LayerBytes(l, uniform)))} stored as int4 with --target-opset 21";
         }
 

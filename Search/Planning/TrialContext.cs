@@ -9,7 +9,7 @@ namespace Bitbudget.Search.Planning;
 /// Names everything a sensitivity trial's result depends on besides its own key (layer and setting): the
 /// model's and the dataset's bytes, and every search setting that changes what a trial measures. Two
 /// searches with the same context may share sensitivity trials; anything else (budget, method, candidate
-/// widths and roundings, which each trial's key names, pins, exclusions, judged outputs, storage rule, held-out
+/// widths, roundings and bias correction, which each trial's key names, pins, exclusions, judged outputs, storage rule, held-out
 /// set) only chooses which trials to run or among them.
 /// </summary>
 public static class TrialContext

@@ -53,7 +53,7 @@ public static class TrialKeys
     /// <summary>
     /// A setting as a short stable string in the wire names, e.g. "4b-symmetric-per-channel-min-max"; a rounding other
     /// than nearest is appended ("...-compensated"), so nearest keys stay as they were and the two roundings of a width
-    /// are two trials.
+    /// are two trials; bias correction appends "-bias-corrected", so a trial with corrected biases never matches one without.
     /// </summary>
     public static string Describe(LayerSetting setting) =>
         WithRounding(setting, WithPercentile(setting, $"{setting.Bits}b-{WireNames.Format(setting.Scheme)}-{WireNames.Format(setting.Granularity)}-{WireNames.Format(setting.Clip)}"));
@@ -67,5 +67,9 @@ public static class TrialKeys
             : text;
 
     private static string WithRounding(LayerSetting setting, string text) =>
-        setting.Rounding == RoundingMethod.Nearest ? text : text + "-" + WireNames.Format(setting.Rounding);
+        (setting.Rounding == RoundingMethod.Nearest ? text : text + "-" + WireNames.Format(setting.Rounding))
+        + (setting.BiasCorrection ? "-" + BiasCorrected : string.Empty);
+
+    /// <summary>The suffix of a bias-corrected setting's key.</summary>
+    public const string BiasCorrected = "bias-corrected";
 }

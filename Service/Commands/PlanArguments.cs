@@ -120,7 +120,8 @@ internal sealed record PlanArguments(string Model, string Data, SearchSettings S
             sampleAxes.Count == 0 ? null : sampleAxes,
             Enum<StorageRule>(result, options.Storage),
             rounding,
-            pairs);
+            pairs,
+            result.GetValue(options.BiasCorrection));
         return new PlanArguments(
             result.GetRequiredValue(options.Model),
             result.GetRequiredValue(options.Data),

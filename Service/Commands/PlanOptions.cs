@@ -67,6 +67,13 @@ internal sealed class PlanOptions
         Description = "Most layer pairs measured together so the search predicts how layers' errors interact (0 to 64; 0: off). Default: " + SearchSettings.DefaultPairs.ToString(System.Globalization.CultureInfo.InvariantCulture) + ".",
     };
 
+    public Option<bool> BiasCorrection { get; } = new("--bias-correction")
+    {
+        HelpName = "true|false",
+        Description = "Correct each quantized layer's bias for the mean output shift of its quantized weight (Nagel et al. 2019), with either rounding.",
+        DefaultValueFactory = _ => SearchSettings.DefaultBiasCorrection,
+    };
+
     public Option<string> Out { get; } = new("--out") { HelpName = "DIR", Description = "Where the artifacts are written (created if missing).", DefaultValueFactory = _ => "plan" };
 
     public Option<bool> Quiet { get; } = new("--quiet", "-q") { Description = "No progress; errors, warnings and the summary only." };
@@ -78,7 +85,7 @@ internal sealed class PlanOptions
     public IEnumerable<Option> All =>
     [
         Model, Data, Budget, Bits, Method, Scheme, Granularity, Clip, Pin, Exclude, Activations, TargetOpset, SampleAxis, Outputs, MetricSpace,
-        Holdout, Storage, Rounding, Pairs, Out, Quiet, NoCache, MaxSweepMemory,
+        Holdout, Storage, Rounding, Pairs, BiasCorrection, Out, Quiet, NoCache, MaxSweepMemory,
     ];
 
     // Choices are read case-insensitively by PlanArguments (WireNames), so the option takes any string and help lists the spellings.

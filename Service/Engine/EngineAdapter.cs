@@ -43,12 +43,14 @@ internal sealed class EngineAdapter(IOptions<BitbudgetOptions> options) : ISearc
             arrays.Any(a => a.Name == CalibrationSet.LabelsName));
     }
 
-    public void CheckCompatible(byte[] model, Stream dataset, long? targetOpset = null, IReadOnlyDictionary<string, int>? sampleAxes = null)
+    public void CheckCompatible(byte[] model, Stream dataset, long? targetOpset = null, IReadOnlyDictionary<string, int>? sampleAxes = null, bool inputMoments = false)
     {
         var loaded = OnnxModel.Load(model, "model", targetOpset);
         var headers = DatasetReader.Inspect(dataset, Limits, verifyData: false);
         // The job reads the dataset file whole before decoding it, so its size counts beside the estimate.
-        SearchMemoryEstimate.Of(loaded, headers, new TrialSessionOptions().MaxCachedActivationBytes, heldBytes: dataset.Length, sampleAxes: sampleAxes)
+        var sessionOptions = new TrialSessionOptions();
+        var moments = inputMoments ? LayerInputCollector.MomentBytes(loaded, loaded.Layers, sessionOptions.MaxCachedActivationBytes) : 0;
+        SearchMemoryEstimate.Of(loaded, headers, sessionOptions.MaxCachedActivationBytes, heldBytes: dataset.Length, sampleAxes: sampleAxes, inputMomentBytes: moments)
             .Check(options.Value.MaxSearchMemoryBytes, "Bitbudget:MaxSearchMemoryBytes");
         dataset.Position = 0;
         var data = CalibrationSet.Create(DatasetReader.Read(dataset, Limits), loaded.Inputs, sampleAxes);

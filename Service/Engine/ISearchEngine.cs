@@ -22,7 +22,7 @@ internal interface ISearchEngine
     /// (<c>opset-raise-*</c>) when <paramref name="targetOpset"/> is given and the model cannot be raised to it.
     /// </summary>
     /// <param name="sampleAxes">Sample axes given outright, by input name.</param>
-    void CheckCompatible(byte[] model, Stream dataset, long? targetOpset = null, IReadOnlyDictionary<string, int>? sampleAxes = null);
+    void CheckCompatible(byte[] model, Stream dataset, long? targetOpset = null, IReadOnlyDictionary<string, int>? sampleAxes = null, bool inputMoments = false);
 
     /// <summary>
     /// Runs a whole search. The engine loads what <paramref name="trials"/> already holds, skips those

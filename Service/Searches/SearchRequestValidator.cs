@@ -116,7 +116,8 @@ internal static class SearchRequestValidator
         }
 
         return new SearchSpec(
-            budget, bits, method!, scheme!, granularity!, clip!, request.Activations ?? false, pin, exclude, request.TargetOpset, sampleAxes, outputs, metricSpace!, holdout?.Id, storage!, rounding, request.Pairs ?? SearchSettings.DefaultPairs);
+            budget, bits, method!, scheme!, granularity!, clip!, request.Activations ?? false, pin, exclude, request.TargetOpset, sampleAxes, outputs, metricSpace!, holdout?.Id, storage!, rounding, request.Pairs ?? SearchSettings.DefaultPairs,
+            request.BiasCorrection ?? SearchSettings.DefaultBiasCorrection);
     }
 
     /// <summary>Lower-case names, nearest first, each once; input accepted in any case.</summary>

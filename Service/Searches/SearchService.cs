@@ -46,15 +46,17 @@ internal sealed partial class SearchService(
             return (CheckSameRequest(earlier, requestHash), false);
         }
 
+        // Compensated rounding and bias correction hold every layer's input moments: the memory check counts them.
+        var inputMoments = Search.Planning.RoundingChoices.NeedsInputMoments(SearchVocabulary.ToSettings(spec));
         using (var datasetFile = File.OpenRead(blobs.PathOf(dataset.Summary.Sha256)))
         {
-            engine.CheckCompatible(blobs.Read(model.Summary.Sha256), datasetFile, spec.TargetOpset, spec.SampleAxes);
+            engine.CheckCompatible(blobs.Read(model.Summary.Sha256), datasetFile, spec.TargetOpset, spec.SampleAxes, inputMoments);
         }
 
         if (holdout is not null)
         {
             using var holdoutFile = File.OpenRead(blobs.PathOf(holdout.Summary.Sha256));
-            engine.CheckCompatible(blobs.Read(model.Summary.Sha256), holdoutFile, spec.TargetOpset, spec.SampleAxes);
+            engine.CheckCompatible(blobs.Read(model.Summary.Sha256), holdoutFile, spec.TargetOpset, spec.SampleAxes, inputMoments);
         }
 
         var (search, created) = searches.Create(model.Id, dataset.Id, spec, idempotencyKey, requestHash);

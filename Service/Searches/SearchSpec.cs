@@ -5,6 +5,7 @@ namespace Bitbudget.Service.Searches;
 /// <param name="Storage">"container" (sizes as the export writes them) or "packed" (ideal packed bits).</param>
 /// <param name="Rounding">The roundings measured ("nearest", "compensated"); null (stored before the option existed) means nearest.</param>
 /// <param name="Pairs">Most layer pairs measured together; null (stored before the option existed) means none.</param>
+/// <param name="BiasCorrection">Whether quantized layers' biases are corrected; false for searches stored before the option existed.</param>
 internal sealed record SearchSpec(
     BudgetSpec Budget,
     IReadOnlyList<int>? Bits,
@@ -22,4 +23,5 @@ internal sealed record SearchSpec(
     string? HoldoutDatasetId = null,
     string Storage = "container",
     IReadOnlyList<string>? Rounding = null,
-    int? Pairs = null);
+    int? Pairs = null,
+    bool BiasCorrection = false);

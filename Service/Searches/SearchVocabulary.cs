@@ -91,6 +91,7 @@ internal static class SearchVocabulary
             spec.SampleAxes,
             Storages[spec.Storage],
             spec.Rounding?.Select(r => Roundings[r]).ToList(),
-            spec.Pairs ?? 0);
+            spec.Pairs ?? 0,
+            spec.BiasCorrection);
     }
 }

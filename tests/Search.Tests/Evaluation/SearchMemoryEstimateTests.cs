@@ -21,6 +21,27 @@ public sealed class SearchMemoryEstimateTests
     }
 
     [Fact]
+    public void CompensatedRoundingAndBiasCorrectionCountTheLayersInputMoments()
+    {
+        // Mlp's layers read 16, 24 and 24 input values: Σ x x^T and Σ x in double, (16² + 16 + 2 x (24² + 24)) x 8 bytes.
+        var model = SmallModels.Mlp();
+        var moments = LayerInputCollector.MomentBytes(model, model.Layers, Cache);
+        Assert.Equal(((16 * 16) + 16 + (2 * ((24 * 24) + 24))) * 8, moments);
+
+        // What the collector really allocates for the same layers.
+        var gathered = LayerInputCollector.Collect(model, SmallModels.MlpData(model, samples: 4), model.Layers, 32, Cache);
+        Assert.Equal(moments, gathered.Values.Sum(i => Bitbudget.Search.Quantization.InputMoments.BytesFor(i.Moments.Groups, i.Moments.Columns)));
+
+        var plain = SearchMemoryEstimate.Of(model, [new NpyArrayInfo("x", ElementType.Float32, [1000, 16], 1000 * 16 * 4)], Cache);
+        var withMoments = SearchMemoryEstimate.Of(model, [new NpyArrayInfo("x", ElementType.Float32, [1000, 16], 1000 * 16 * 4)], Cache, inputMomentBytes: moments);
+        Assert.Equal(plain.FixedBytes + moments, withMoments.FixedBytes);
+        Assert.Equal(plain.Bytes + moments, withMoments.Bytes);
+
+        // A bound on the moments' memory leaves out the layers past it, in model order, as the collector does.
+        Assert.Equal(((16 * 16) + 16) * 8, LayerInputCollector.MomentBytes(model, model.Layers, ((16 * 16) + 16) * 8));
+    }
+
+    [Fact]
     public void Float64DataCountsItsFloat32Copy()
     {
         var model = SmallModels.Mlp();

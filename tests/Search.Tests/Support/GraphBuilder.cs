@@ -112,6 +112,13 @@ internal sealed class GraphBuilder
     public static P.AttributeProto IntAttribute(string name, long value) =>
         new() { Name = name, Type = P.AttributeProto.Types.AttributeType.Int, I = value };
 
+    public static P.AttributeProto IntsAttribute(string name, params long[] values)
+    {
+        var attribute = new P.AttributeProto { Name = name, Type = P.AttributeProto.Types.AttributeType.Ints };
+        attribute.Ints.AddRange(values);
+        return attribute;
+    }
+
     public static P.AttributeProto FloatAttribute(string name, float value) =>
         new() { Name = name, Type = P.AttributeProto.Types.AttributeType.Float, F = value };
 

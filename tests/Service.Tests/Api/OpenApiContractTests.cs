@@ -60,6 +60,10 @@ public sealed partial class OpenApiContractTests(ServiceFactory factory) : IClas
         AssertValid(document, request, JsonNode.Parse("""{"modelId":"m","datasetId":"d","budget":{"metric":"sqnr","atLeast":30},"pairs":16}"""));
         Assert.False(Evaluate(document, request, JsonNode.Parse("""{"modelId":"m","datasetId":"d","budget":{"metric":"sqnr","atLeast":30},"pairs":65}""")).IsValid);
         Assert.False(Evaluate(document, request, JsonNode.Parse("""{"modelId":"m","datasetId":"d","budget":{"metric":"sqnr","atLeast":30},"pairs":-1}""")).IsValid);
+
+        // biasCorrection is a boolean, as the service reads it.
+        AssertValid(document, request, JsonNode.Parse("""{"modelId":"m","datasetId":"d","budget":{"bytes":1000},"rounding":["compensated"],"biasCorrection":true}"""));
+        Assert.False(Evaluate(document, request, JsonNode.Parse("""{"modelId":"m","datasetId":"d","budget":{"bytes":1000},"biasCorrection":"yes"}""")).IsValid);
     }
 
     [Fact]

@@ -70,6 +70,23 @@ public sealed class SearchesApiTests(ServiceFactory factory) : IClassFixture<Ser
         Assert.Equal(["nearest", "compensated"], done.GetProperty("settings").GetProperty("rounding").EnumerateArray().Select(r => r.GetString()));
     }
 
+    [Theory]
+    [InlineData(true)]
+    [InlineData(false)]
+    public async Task BiasCorrectionReachesTheEngineAndIsEchoed(bool on)
+    {
+        var tag = on ? "bias-on" : "bias-off";
+        var (modelId, datasetId) = await client.UploadAsync(tag);
+
+        var accepted = await client.PostAsJsonAsync("/v1/searches", new { modelId, datasetId, budget = new { metric = "sqnr", atLeast = 20 }, bits = new[] { 4, 8 }, biasCorrection = on });
+
+        Assert.Equal(HttpStatusCode.Accepted, accepted.StatusCode);
+        var id = (await accepted.JsonAsync()).GetProperty("id").GetString()!;
+        var done = await client.WaitForStateAsync(id, "succeeded", "failed");
+        Assert.Equal(on, done.GetProperty("settings").GetProperty("biasCorrection").GetBoolean());
+        Assert.Equal(on, factory.Engine.Settings[tag].BiasCorrection);
+    }
+
     [Fact]
     public async Task PairsAreEchoedInTheSettings()
     {

@@ -42,6 +42,19 @@ public sealed class PlanArgumentsTests
     }
 
     [Fact]
+    public void BiasCorrectionIsAFlagThatAlsoTakesTrueOrFalseAndRefusesAnythingElse()
+    {
+        string[] common = ["--model", "m.onnx", "--data", "d.npz", "--budget", "sqnr>=30"];
+
+        Assert.True(PlanArguments.Parse([.. common, "--bias-correction"]).Settings.BiasCorrection);
+        Assert.True(PlanArguments.Parse([.. common, "--bias-correction", "True"]).Settings.BiasCorrection);
+        Assert.False(PlanArguments.Parse([.. common, "--bias-correction", "false"]).Settings.BiasCorrection);
+        Assert.Equal(Search.Planning.SearchSettings.DefaultBiasCorrection, PlanArguments.Parse(common).Settings.BiasCorrection);
+        var error = Assert.Throws<ArgumentException>(() => PlanArguments.Parse([.. common, "--bias-correction", "maybe"]));
+        Assert.Contains("maybe", error.Message, StringComparison.Ordinal);
+    }
+
+    [Fact]
     public void TargetOpsetIsCarriedIntoTheSettings()
     {
         string[] common = ["--model", "m.onnx", "--data", "d.npz", "--budget", "sqnr>=30"];

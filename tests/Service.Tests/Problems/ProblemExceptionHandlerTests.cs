@@ -29,6 +29,7 @@ public sealed class ProblemExceptionHandlerTests(ServiceFactory factory) : IClas
     [InlineData("""{"bits": "4,8"}""", "bits", "bits must be an array of whole numbers.")]
     [InlineData("""{"bits": [4, "8"]}""", "bits[1]", "bits[1] must be a whole number.")]
     [InlineData("""{"activations": "yes"}""", "activations", "activations must be true or false.")]
+    [InlineData("""{"biasCorrection": 1}""", "biasCorrection", "biasCorrection must be true or false.")]
     [InlineData("""{"pin": {"conv1": "four"}}""", "pin.conv1", "pin.conv1 must be a whole number.")]
     [InlineData("""{"budget": 30}""", "budget", "budget must be an object with the fields metric, atLeast, atMost, bytes, averageBits.")]
     public async Task AJsonFieldOfTheWrongTypeIsNamedWithTheJsonTypeItTakes(string body, string field, string detail)

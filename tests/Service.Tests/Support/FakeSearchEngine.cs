@@ -104,7 +104,7 @@ internal sealed class FakeSearchEngine : ISearchEngine
         return new DatasetSummary(Convert.ToHexStringLower(SHA256.HashData(bytes)), arrays, samples, hasLabels);
     }
 
-    public void CheckCompatible(byte[] model, Stream dataset, long? targetOpset = null, IReadOnlyDictionary<string, int>? sampleAxes = null)
+    public void CheckCompatible(byte[] model, Stream dataset, long? targetOpset = null, IReadOnlyDictionary<string, int>? sampleAxes = null, bool inputMoments = false)
     {
         var modelInput = Value(Lines(model, ModelMagic, "model-not-onnx", "Not a model."), "input");
         var datasetInput = Value(Lines(ReadAll(dataset), DatasetMagic, "dataset-invalid", "Not a dataset."), "input");
