@@ -189,8 +189,6 @@ internal sealed class AssignmentValidator(
         return (selection, predicted);
     }
 
-    private double Error(int layer, Selection selection) => problem.Layers[layer].Choices[selection.ChoiceIndex[layer]].Error;
-
     /// <summary>One pair trial, read from the store when a run before measured it.</summary>
     private PairTerm MeasurePair(int first, int firstChoice, int second, int secondChoice)
     {
