@@ -16,7 +16,10 @@ internal static class SweepMemory
     /// <param name="CacheBudgetBytes">Memory the cut points' cached activations may take together.</param>
     /// <param name="Reason">How the chunk was chosen, for the user.</param>
     /// <param name="DeadOutputBytes">Outputs of finished trials allowed to wait for the collector (see <see cref="DeadOutputs"/>).</param>
-    public sealed record Choice(int SamplesPerRun, long CacheBudgetBytes, string Reason, long DeadOutputBytes);
+    /// <param name="RunAndCacheBytes">What the budget leaves for one run's activations and the cache together (stacked copies of a
+    /// chunk share it with the cache).</param>
+    /// <param name="ActivationBytesPerSample">Activations one sample of a run may hold (0: not measured).</param>
+    public sealed record Choice(int SamplesPerRun, long CacheBudgetBytes, string Reason, long DeadOutputBytes, long RunAndCacheBytes = 0, long ActivationBytesPerSample = 0);
 
     /// <summary>
     /// The least allowance for dead outputs: a model with small outputs is then collected once every few MiB of trials
@@ -41,12 +44,12 @@ internal static class SweepMemory
 
         if (data.SamplesPerRun is int fixedRun)
         {
-            return new Choice(fixedRun, Math.Min(options.MaxCachedActivationBytes, Math.Max(0, rest - (fixedRun * activationsPerSample))), $"{fixedRun} samples per run, as the model fixes its batch ({limit})", dead);
+            return new Choice(fixedRun, Math.Min(options.MaxCachedActivationBytes, Math.Max(0, rest - (fixedRun * activationsPerSample))), $"{fixedRun} samples per run, as the model fixes its batch ({limit})", dead, rest, activationsPerSample);
         }
 
         if (activationsPerSample <= 0)
         {
-            return new Choice(cap, Math.Min(options.MaxCachedActivationBytes, rest), $"up to {cap} samples per run (activation sizes could not be measured; {limit})", dead);
+            return new Choice(cap, Math.Min(options.MaxCachedActivationBytes, rest), $"up to {cap} samples per run (activation sizes could not be measured; {limit})", dead, rest);
         }
 
         var chunk = (int)Math.Clamp(rest / 2 / activationsPerSample, 1, cap);
@@ -55,6 +58,8 @@ internal static class SweepMemory
             chunk,
             cache,
             string.Create(CultureInfo.InvariantCulture, $"{chunk:#,0} of {data.SampleCount:#,0} samples per run (at most {activationsPerSample / MiB:#,0.#} MiB of activations per sample; {limit})"),
-            dead);
+            dead,
+            rest,
+            activationsPerSample);
     }
 }

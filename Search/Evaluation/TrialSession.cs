@@ -34,6 +34,7 @@ public sealed class TrialSession : IDisposable
     private readonly RunOptions _runOptions = new();
     private readonly SessionOptions _sessionOptions;
     private readonly Dictionary<string, float[]> _fp32ByLayer;
+    private readonly Dictionary<string, WeightLayer> _weightLayers;
     private readonly Dictionary<string, OrtValue> _fp32Values;
     private readonly IReadOnlyDictionary<string, BiasSite> _biasSites;
     private readonly List<Dictionary<string, OrtValue>> _dataFeeds;
@@ -47,6 +48,28 @@ public sealed class TrialSession : IDisposable
     private readonly OrtValue? _switchOn;
     private readonly IReadOnlyDictionary<string, int?> _outputAxes;
     private (int Cut, InferenceSession Session)? _suffix;
+    private readonly long _runAndCacheBytes;
+    private readonly long _activationBytesPerSample;
+    private IReadOnlyDictionary<string, int>? _pendingTrials;
+    private StackedSession? _stacked;
+    private double _lowestFp32Sqnr = double.PositiveInfinity;
+    private string? _stackingOff;
+    private int _stackedRuns;
+    private int _stackedTrials;
+    private int _largestStack;
+    private string _layoutNote;
+    private double _suffixBuildMilliseconds;
+    private int _suffixBuilds;
+
+    /// <summary>Most copies of a chunk one stacked run holds, whatever the memory allows (more adds little but rows).</summary>
+    private const int MaxStackedCopies = 16;
+
+    /// <summary>
+    /// Least SQNR an FP32 copy of a stacked run may have against the reference, per output. Rounding differences of FP32
+    /// kernels sit near 130 dB and more (measured on the OCR models); 100 dB keeps the SQNR of a trial at 70 dB within
+    /// 0.005 dB of the trial run unstacked (noise powers add: 10 log10(1 + 10^-3)).
+    /// </summary>
+    internal const double StackedFp32FloorDb = 100;
 
     /// <summary>Trials per layer assumed when a suffix run comes before <see cref="PrepareSweep"/> (the usual number of candidate widths).</summary>
     private const int AssumedTrialsPerLayer = 6;
@@ -64,6 +87,7 @@ public sealed class TrialSession : IDisposable
 
         var weightsAsInputs = global::Onnx.ModelProto.Parser.ParseFrom(model.BuildWeightsAsInputs());
         _fp32ByLayer = model.Layers.ToDictionary(l => l.Name, model.GetWeight, StringComparer.Ordinal);
+        _weightLayers = model.Layers.GroupBy(l => l.WeightName, StringComparer.Ordinal).ToDictionary(g => g.Key, g => g.First(), StringComparer.Ordinal);
         _fp32Values = model.Layers.ToDictionary(
             l => l.WeightName,
             l => OrtTensors.Wrap(_fp32ByLayer[l.Name], l.Shape.ToArray()),
@@ -85,6 +109,8 @@ public sealed class TrialSession : IDisposable
         _cacheBudgetBytes = memory.CacheBudgetBytes;
         _batchReason = memory.Reason;
         _deadOutputs = new DeadOutputs(memory.DeadOutputBytes);
+        _runAndCacheBytes = memory.RunAndCacheBytes;
+        _activationBytesPerSample = memory.ActivationBytesPerSample;
         _dataFeeds = BuildDataFeeds();
 
         var runModel = weightsAsInputs;
@@ -117,7 +143,7 @@ public sealed class TrialSession : IDisposable
         // Accuracy compares labels with the argmax over the first output's last axis: a label past it never matches.
         data.CheckLabels(ReferenceOutputs[0].Shape is [.., var classes] ? classes : 1, ReferenceOutputs[0].Name);
         ReferenceMetrics = Compare(ReferenceOutputs);
-        SweepNote = $"{_batchReason}; no sensitivity trial was run, so no cut point was chosen";
+        _layoutNote = $"{_batchReason}; no sensitivity trial was run, so no cut point was chosen";
     }
 
     /// <summary>Outputs of the FP32 model over the whole calibration set.</summary>
@@ -148,7 +174,8 @@ public sealed class TrialSession : IDisposable
     /// How the sweep was laid out, for the user: samples per run and why, and the cut points with their cache (once a
     /// sweep has been prepared).
     /// </summary>
-    public string SweepNote { get; private set; }
+    public string SweepNote => _layoutNote + StackingNote()
+        + (_suffixBuilds > 0 ? string.Create(System.Globalization.CultureInfo.InvariantCulture, $"; {_suffixBuilds} suffix sessions built in {_suffixBuildMilliseconds / 1000:0.0} s") : string.Empty);
 
     /// <summary>
     /// Chooses the sweep's shared cut points for the trials still to run (by layer name) and caches their activations;
@@ -159,6 +186,7 @@ public sealed class TrialSession : IDisposable
         ArgumentNullException.ThrowIfNull(pendingTrialsByLayer);
         if (pendingTrialsByLayer.Values.Sum() > 0)
         {
+            _pendingTrials = pendingTrialsByLayer;
             EnsureCutPlan(pendingTrialsByLayer);
         }
     }
@@ -256,6 +284,372 @@ public sealed class TrialSession : IDisposable
     }
 
     /// <summary>
+    /// Measures one layer at several settings with every other layer FP32 (sensitivity trials): the same metrics as
+    /// <see cref="MeasureLayer"/> per setting, in as few runs as the model allows. Where the batch is free, the widths go
+    /// on the batch axis, one stacked copy of the chunk per width, with one more copy at FP32 in the layer's first run whose
+    /// outputs must equal the reference bit for bit; a model where they do not (an op mixes samples, or folds the batch
+    /// into another axis) turns stacking off for the session and measures one width per run, as <see cref="SweepNote"/> says.
+    /// </summary>
+    public IReadOnlyList<MetricSet> MeasureLayerWidths(WeightLayer layer, IReadOnlyList<LayerSetting> settings, int trialsForLayer)
+    {
+        ArgumentNullException.ThrowIfNull(layer);
+        ArgumentNullException.ThrowIfNull(settings);
+        // The activation switch is one per layer, shared by every copy, so only weight-only trials share a run.
+        var stackable = Enumerable.Range(0, settings.Count).Where(i => !(QuantizesActivation(settings[i]) && HasActivation(layer.Name))).ToList();
+        var results = new MetricSet?[settings.Count];
+        if (stackable.Count > 1 && MeasureStacked(layer, stackable.Select(i => settings[i]).ToList(), trialsForLayer) is { } stacked)
+        {
+            for (var n = 0; n < stackable.Count; n++)
+            {
+                results[stackable[n]] = stacked[n];
+            }
+        }
+
+        return results.Select((r, i) => r ?? MeasureLayer(layer, settings[i], trialsForLayer)).ToList();
+    }
+
+    /// <summary>The layer's widths on stacked runs, or null when this session does not stack (the reason is kept for the note).</summary>
+    private MetricSet[]? MeasureStacked(WeightLayer layer, IReadOnlyList<LayerSetting> settings, int trialsForLayer)
+    {
+        if (!_options.StackWidths || _stackingOff is not null || CutPosition(layer) < 0)
+        {
+            return null;
+        }
+
+        var stacked = StackedSessionFor(_options.SuffixRuns ? PlannedCut(layer, trialsForLayer) : 0, settings.Count);
+        if (stacked is null)
+        {
+            return null;
+        }
+
+        var weights = settings.Select(s => Quantized(layer, s)).ToList();
+        var results = new MetricSet[settings.Count];
+        var copies = stacked.Copies;
+        if (copies == 1)
+        {
+            return MeasureOneCopy(stacked, layer, weights);
+        }
+
+        // The first run keeps the last copy at FP32: the check that the copies stay apart, and the baseline a trial's changed
+        // samples are counted against (the stacked graph's own FP32 outputs, so an unreached layer changes no sample).
+        // Runs are balanced, so the last one is not nearly empty.
+        var runs = (settings.Count + copies) / copies;
+        List<OutputTensor>? baseline = null;
+        try
+        {
+            var next = 0;
+            for (var run = 0; run < runs; run++)
+            {
+                var take = Math.Min((settings.Count + 1 - next + (runs - run) - 1) / (runs - run), copies - (run == 0 ? 1 : 0));
+                take = Math.Min(take, settings.Count - next);
+                var slots = new float[]?[copies];
+                for (var j = 0; j < take; j++)
+                {
+                    slots[j] = weights[next + j];
+                }
+
+                var outputs = RunStacked(stacked, layer, slots);
+                baseline ??= outputs[^1];
+                for (var j = 0; j < take; j++)
+                {
+                    results[next + j] = Compare(outputs[j]) with { SamplesChanged = SampleChanges.Count(baseline, outputs[j], _data.SampleCount) };
+                    _deadOutputs.Add(outputs[j], ReferenceOutputs);
+                }
+
+                next += take;
+                _stackedRuns++;
+            }
+        }
+        catch (StackingMismatchException e)
+        {
+            TurnStackingOff(e.Message);
+            return null;
+        }
+        catch (OnnxRuntimeException e)
+        {
+            TurnStackingOff($"ONNX Runtime could not run the stacked copies ({e.Message})");
+            return null;
+        }
+
+        _stackedTrials += settings.Count;
+        return results;
+    }
+
+    /// <summary>One width per run on the constant-weight suffix; its FP32 outputs, run once per session, are the check and the baseline.</summary>
+    private MetricSet[]? MeasureOneCopy(StackedSession stacked, WeightLayer layer, IReadOnlyList<float[]> weights)
+    {
+        try
+        {
+            stacked.Baseline ??= RunStacked(stacked, layer, [null])[0];
+            var results = weights.Select(w =>
+            {
+                var outputs = RunStacked(stacked, layer, [w])[0];
+                var metrics = Compare(outputs) with { SamplesChanged = SampleChanges.Count(stacked.Baseline, outputs, _data.SampleCount) };
+                _deadOutputs.Add(outputs, ReferenceOutputs);
+                return metrics;
+            }).ToArray();
+            _stackedRuns += weights.Count;
+            _stackedTrials += weights.Count;
+            return results;
+        }
+        catch (StackingMismatchException e)
+        {
+            TurnStackingOff(e.Message);
+            return null;
+        }
+    }
+
+    /// <summary>
+    /// One run per chunk of the stacked session with copy j of the layer's weight set to <paramref name="slots"/>[j] (null:
+    /// FP32); returns each copy's outputs over the calibration set. A copy at FP32 must give the reference bit for bit.
+    /// </summary>
+    private List<List<OutputTensor>> RunStacked(StackedSession stacked, WeightLayer layer, float[]?[] slots)
+    {
+        var owned = new List<OrtValue>();
+        try
+        {
+            var overrides = new Dictionary<string, OrtValue>(stacked.Fp32Feeds, StringComparer.Ordinal);
+            for (var j = 0; j < slots.Length; j++)
+            {
+                var value = _fp32Values[layer.WeightName];
+                if (slots[j] is { } weight)
+                {
+                    value = OrtTensors.Wrap(weight, layer.Shape.ToArray());
+                    owned.Add(value);
+                }
+
+                overrides[GraphSlicer.WidthInput(layer.WeightName, j)] = value;
+            }
+
+            var session = stacked.Session;
+            if (slots.Length == 1)
+            {
+                var byOwnName = Run(session, session.OutputNames, overrides, _cachedActivations).ToDictionary(o => o.Name, StringComparer.Ordinal);
+                var single = ReferenceOutputs.Select(r => byOwnName.TryGetValue(r.Name, out var o) ? o : r).ToList();
+                if (slots[0] is null)
+                {
+                    CheckFp32Copy(layer, single);
+                }
+
+                return [single];
+            }
+
+            var names = session.OutputNames.ToList();
+            var parts = slots.Select(_ => names.Select(_ => new List<Array>(_plan.BatchCount)).ToList()).ToList();
+            var shapes = slots.Select(_ => names.Select(_ => new List<long[]>(_plan.BatchCount)).ToList()).ToList();
+            var counts = new List<int>(_plan.BatchCount);
+            for (var b = 0; b < _plan.BatchCount; b++)
+            {
+                var (_, count) = _plan.Batch(b);
+                counts.Add(count);
+                var inputs = Feeds(session, b, overrides, _cachedActivations);
+                using var results = session.Run(_runOptions, inputs.Keys.ToList(), inputs.Values.ToList(), names);
+                for (var o = 0; o < names.Count; o++)
+                {
+                    var data = OrtTensors.CopyRows(results[o], int.MaxValue, out var shape);
+                    var axis = _outputAxes[names[o]] ?? throw new StackingMismatchException($"output '{names[o]}' has no sample axis");
+                    if (shape.Length <= axis || shape[axis] != (long)count * slots.Length)
+                    {
+                        throw new StackingMismatchException($"output '{names[o]}' came out with shape [{string.Join(", ", shape)}] for {slots.Length} copies of {count} samples");
+                    }
+
+                    for (var j = 0; j < slots.Length; j++)
+                    {
+                        parts[j][o].Add(SampleSlicer.Slice(data, shape, axis, j * count, count, count, out var sliceShape));
+                        shapes[j][o].Add(sliceShape);
+                    }
+                }
+            }
+
+            var copies = new List<List<OutputTensor>>(slots.Length);
+            for (var j = 0; j < slots.Length; j++)
+            {
+                var byName = Assemble(names, parts[j], shapes[j], counts).ToDictionary(o => o.Name, StringComparer.Ordinal);
+                var outputs = ReferenceOutputs.Select(r => byName.TryGetValue(r.Name, out var o) ? o : r).ToList();
+                if (slots[j] is null)
+                {
+                    CheckFp32Copy(layer, outputs);
+                }
+
+                copies.Add(outputs);
+            }
+
+            return copies;
+        }
+        finally
+        {
+            owned.ForEach(v => v.Dispose());
+        }
+    }
+
+    /// <summary>
+    /// An FP32 copy must give the reference to within <see cref="StackedFp32FloorDb"/> on every output: the stacked graph has
+    /// the weights it never perturbs as constants, which ONNX Runtime folds and pre-packs (a plain pass's speed, not its
+    /// last bits), while a copy that took another copy's rows, or lost its own, is off by far more.
+    /// </summary>
+    private void CheckFp32Copy(WeightLayer layer, IReadOnlyList<OutputTensor> outputs)
+    {
+        for (var o = 0; o < ReferenceOutputs.Count; o++)
+        {
+            var sqnr = OutputComparer.Compare([ReferenceOutputs[o]], [outputs[o]], null, _options.MetricSpace).SqnrDb;
+            _lowestFp32Sqnr = Math.Min(_lowestFp32Sqnr, sqnr);
+            if (!(sqnr >= StackedFp32FloorDb))
+            {
+                throw new StackingMismatchException(string.Create(
+                    System.Globalization.CultureInfo.InvariantCulture,
+                    $"the FP32 copy of layer '{layer.Name}' gives output '{ReferenceOutputs[o].Name}' at {sqnr:0.#} dB SQNR against the reference, under the {StackedFp32FloorDb} dB allowed"));
+            }
+        }
+    }
+
+    /// <summary>
+    /// The stacked session for <paramref name="cut"/>: built when the sweep moves to it, with as many copies as the memory
+    /// allows up to the widths of its layers still to measure (plus the FP32 check). Null when stacking cannot hold here.
+    /// </summary>
+    private StackedSession? StackedSessionFor(int cut, int widths)
+    {
+        if (_stacked is { } current && current.Cut == cut)
+        {
+            return current;
+        }
+
+        _stacked?.Session.Dispose();
+        _stacked = null;
+        var blocked = StackingBlocked();
+
+        var cache = _cachedActivations is null ? 0 : _cutPlan?.CacheBytes ?? 0;
+        var memoryCopies = _activationBytesPerSample > 0
+            ? Math.Max(0, _runAndCacheBytes - cache) / ((double)_activationBytesPerSample * SamplesPerRun)
+            : _options.MaxBatch / (double)SamplesPerRun;
+        var layers = _model.Layers.Where(l => CutPosition(l) >= 0 && CutServing(CutPosition(l)) == cut).ToList();
+        var wanted = 1 + Math.Max(widths, layers.Max(l => _pendingTrials?.GetValueOrDefault(l.Name) ?? 0));
+        var allowed = blocked is not null ? 1 : (int)Math.Max(1, Math.Min(Math.Min(MaxStackedCopies, _options.MaxWidthsPerRun), Math.Floor(memoryCopies)));
+        if (allowed < 2)
+        {
+            _oneCopyReason ??= blocked ?? (_options.MaxWidthsPerRun < 2
+                ? "MaxWidthsPerRun is 1"
+                : string.Create(System.Globalization.CultureInfo.InvariantCulture, $"MaxSweepMemoryBytes leaves room for one copy of a {SamplesPerRun}-sample chunk"));
+        }
+
+        // As few runs as the memory allows, then as few copies as fill them (two runs of 4 for 6 widths and the check, not 6 + 1).
+        var runs = (wanted + allowed - 1) / allowed;
+        var copies = allowed < 2 ? 1 : (wanted + runs - 1) / runs;
+        var weightNames = layers.Select(l => l.WeightName).ToHashSet(StringComparer.Ordinal);
+        var batched = _slicer.CutSet(cut).Where(IsBatched).ToList();
+        var model = _slicer.StackedSuffix(cut, weightNames, copies, batched, _activationTypes, Fp32Constant, out var reason);
+        if (model is null)
+        {
+            // Another cut's layers may still stack; this one runs a width per run.
+            _stackingSkipped ??= reason;
+            return null;
+        }
+
+        var clock = Stopwatch.StartNew();
+        var session = new InferenceSession(model.ToByteArray(), _sessionOptions);
+        _suffixBuildMilliseconds += clock.Elapsed.TotalMilliseconds;
+        _suffixBuilds++;
+        var fp32 = new Dictionary<string, OrtValue>(StringComparer.Ordinal);
+        foreach (var layer in layers)
+        {
+            for (var j = 1; j < copies; j++)
+            {
+                fp32[GraphSlicer.WidthInput(layer.WeightName, j)] = _fp32Values[layer.WeightName];
+            }
+        }
+
+        _largestStack = Math.Max(_largestStack, copies);
+        _stacked = new StackedSession(cut, session, copies, layers.Select(l => l.Name).ToHashSet(StringComparer.Ordinal), fp32);
+        return _stacked;
+    }
+
+    private string? _stackingSkipped;
+    private string? _oneCopyReason;
+
+    /// <summary>The FP32 weight behind a weights-as-inputs graph input, as an initializer; null for any other input.</summary>
+    private global::Onnx.TensorProto? Fp32Constant(string input)
+    {
+        if (_weightLayers.TryGetValue(input, out var layer) is false)
+        {
+            return null;
+        }
+
+        var tensor = new global::Onnx.TensorProto { Name = input, DataType = (int)global::Onnx.TensorProto.Types.DataType.Float };
+        tensor.Dims.AddRange(layer.Shape);
+        tensor.RawData = ByteString.CopyFrom(System.Runtime.InteropServices.MemoryMarshal.AsBytes(_fp32ByLayer[layer.Name].AsSpan()));
+        return tensor;
+    }
+
+    /// <summary>Why no run of this session can stack the batch (null: it may).</summary>
+    private string? StackingBlocked()
+    {
+        if (_plan.FixedBatch)
+        {
+            return "the model fixes its batch";
+        }
+
+        for (var i = 0; i < _model.Inputs.Count; i++)
+        {
+            if (_data.SampleAxes[i] is int axis && axis != 0)
+            {
+                return $"input '{_model.Inputs[i].Name}' has its samples on axis {axis}";
+            }
+        }
+
+        return _outputAxes.FirstOrDefault(p => p.Value is null) is { Key: { } name } ? $"output '{name}' has no sample axis" : null;
+    }
+
+    /// <summary>A cut-set tensor that carries the chunk's samples on axis 0: a data input with its samples there, or a cached FP32 activation as long as the chunk.</summary>
+    private bool IsBatched(string tensor)
+    {
+        var input = _model.Inputs.Select((v, i) => (v.Name, i)).FirstOrDefault(p => p.Name == tensor);
+        if (input.Name is not null)
+        {
+            return _data.SampleAxes[input.i] == 0;
+        }
+
+        if (_cachedActivations is not { Count: > 0 } cached || !cached[0].TryGetValue(tensor, out var value))
+        {
+            return false;
+        }
+
+        var info = value.GetTensorTypeAndShape();
+        return info.ElementDataType == TensorElementType.Float && info.Shape is [var rows, ..] && rows == _plan.Batch(0).Count;
+    }
+
+    private void TurnStackingOff(string reason)
+    {
+        _stackingOff ??= reason;
+        _stacked?.Session.Dispose();
+        _stacked = null;
+    }
+
+    private string StackingNote()
+    {
+        if (!_options.StackWidths)
+        {
+            return "; one width per run on the weights-as-inputs graph (stacking off)";
+        }
+
+        var runs = string.Create(System.Globalization.CultureInfo.InvariantCulture, $"{_stackedTrials} trials in {_stackedRuns} runs");
+        var floor = string.Create(System.Globalization.CultureInfo.InvariantCulture, $"FP32 checks at {_lowestFp32Sqnr:0.#} dB or more against the reference (floor {StackedFp32FloorDb} dB)");
+        if (_stackingOff is not null)
+        {
+            return $"; one width per run on the weights-as-inputs graph, as {_stackingOff}"
+                + (_stackedTrials > 0 ? $" (found after {runs} on constant-weight suffixes, which stand: their FP32 checks held)" : string.Empty);
+        }
+
+        if (_stackedTrials == 0)
+        {
+            return _stackingSkipped is null ? string.Empty : $"; one width per run (a cut could not stack: {_stackingSkipped})";
+        }
+
+        var skipped = _stackingSkipped is null ? string.Empty : $" (some cuts ran a width per run: {_stackingSkipped})";
+        return _largestStack > 1
+            ? string.Create(System.Globalization.CultureInfo.InvariantCulture, $"; widths stacked on the batch axis on suffixes with the unperturbed weights as constants, up to {_largestStack} copies of a chunk per run: {runs}, each layer's first run with an FP32 copy; {floor}{skipped}")
+            : $"; one width per run on suffixes with the unperturbed weights as constants (widths not stacked: {_oneCopyReason}): {runs}; {floor}{skipped}";
+    }
+
+    /// <summary>
     /// Runs the whole model with some layers' weights replaced (by layer name) and, when activation
     /// quantization is on, the input activations of <paramref name="activationLayers"/> quantized, and the biases of
     /// <paramref name="biasesByLayer"/> (layers with a bias site, see <see cref="BiasSite"/>) replaced.
@@ -341,6 +735,7 @@ public sealed class TrialSession : IDisposable
     public void Dispose()
     {
         _suffix?.Session.Dispose();
+        _stacked?.Session.Dispose();
         _full.Dispose();
         _runOptions.Dispose();
         _sessionOptions.Dispose();
@@ -418,7 +813,10 @@ public sealed class TrialSession : IDisposable
         _suffix?.Session.Dispose();
         _suffix = null;
         var suffix = _slicer.Suffix(cut, _activationTypes);
+        var clock = Stopwatch.StartNew();
         var session = new InferenceSession(suffix.ToByteArray(), _sessionOptions);
+        _suffixBuildMilliseconds += clock.Elapsed.TotalMilliseconds;
+        _suffixBuilds++;
         _suffix = (cut, session);
         return session;
     }
@@ -426,9 +824,12 @@ public sealed class TrialSession : IDisposable
     /// <summary>The cut a layer's trials run from (0: the whole graph), planning the cuts on first use.</summary>
     private int PlannedCut(WeightLayer layer, int trialsForLayer)
     {
-        var plan = EnsureCutPlan(null, trialsForLayer);
-        return plan is null || _cachedActivations is null ? 0 : plan.CutFor(CutPosition(layer));
+        EnsureCutPlan(null, trialsForLayer);
+        return CutServing(CutPosition(layer));
     }
+
+    /// <summary>The cut a suffix starting at <paramref name="position"/> runs from under the current plan (0: the whole graph).</summary>
+    private int CutServing(int position) => _cutPlan is null || _cachedActivations is null ? 0 : _cutPlan.CutFor(position);
 
     /// <summary>
     /// Chooses the cut points once and caches their activations. Pending trials by layer when the sweep says them,
@@ -481,7 +882,7 @@ public sealed class TrialSession : IDisposable
         _cutPlan = plan;
         _cachedActivations = plan.Cuts.Count == 0 ? null : CacheCutActivations(plan.Cuts);
         var whole = demands.Sum(d => d.Trials) * ForwardPassMilliseconds;
-        SweepNote = _cachedActivations is null
+        _layoutNote = _cachedActivations is null
             ? $"{_batchReason}; every trial runs the whole graph (no cut repays its session build{(plan.Cuts.Count > 0 ? " within the memory allowed" : string.Empty)})"
             : string.Create(
                 System.Globalization.CultureInfo.InvariantCulture,
@@ -836,6 +1237,12 @@ public sealed class TrialSession : IDisposable
             }
         }
 
+        return Assemble(outputNames, parts, shapes, counts);
+    }
+
+    /// <summary>Joins each output's per-run parts into one tensor over the calibration set (along its sample axis, or stacked when it has none).</summary>
+    private List<OutputTensor> Assemble(IReadOnlyList<string> outputNames, List<List<Array>> parts, List<List<long[]>> shapes, List<int> counts)
+    {
         var outputs = new List<OutputTensor>(outputNames.Count);
         for (var o = 0; o < outputNames.Count; o++)
         {

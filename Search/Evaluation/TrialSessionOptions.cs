@@ -15,6 +15,12 @@ namespace Bitbudget.Search.Evaluation;
 /// <param name="MaxSweepMemoryBytes">Memory a sweep plans for: it bounds the samples per run and the activations cached at
 /// cut points (see <see cref="SweepMemory"/>), so the sweep's memory no longer grows with the calibration set beyond the data itself.</param>
 /// <param name="CutEveryLayer">Cut at every layer's own position instead of the planned shared cuts (tests of suffix runs use it).</param>
+/// <param name="StackWidths">Measure a layer's widths on a suffix whose unperturbed weights are constants, several widths in
+/// one run stacked on the batch axis where the model's batch is free (see <see cref="TrialSession.MeasureLayerWidths"/>);
+/// off runs one width per run on the weights-as-inputs graph, bit for bit as the reference was computed.</param>
+/// <param name="MaxWidthsPerRun">Most widths one stacked run holds. 1 (the default): one width per run, still on the constant-weight
+/// suffix; stacking measured slower on the OCR classifier (its runs are compute-bound, and a stacked batch adds Split, Concat
+/// and tiling copies and loses cache locality; DEVELOPERS.md), so it is there for models whose runs are short.</param>
 public sealed record TrialSessionOptions(
     int MaxBatch = 32,
     bool SuffixRuns = true,
@@ -25,7 +31,9 @@ public sealed record TrialSessionOptions(
     IReadOnlyList<ActivationQuantization>? FixedActivations = null,
     WeightRounder? Rounder = null,
     long MaxSweepMemoryBytes = TrialSessionOptions.DefaultMaxSweepMemoryBytes,
-    bool CutEveryLayer = false)
+    bool CutEveryLayer = false,
+    bool StackWidths = true,
+    int MaxWidthsPerRun = 1)
 {
     /// <summary>1 GiB: the OCR detector's sweep on 32 images fits in it.</summary>
     public const long DefaultMaxSweepMemoryBytes = 1L << 30;

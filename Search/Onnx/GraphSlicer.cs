@@ -125,6 +125,144 @@ internal sealed class GraphSlicer
         return model;
     }
 
+    /// <summary>Name of the graph input that feeds copy <paramref name="copy"/> (1..) of a stacked weight; copy 0 reads the weight's own name.</summary>
+    public static string WidthInput(string weight, int copy) => copy == 0 ? weight : $"{weight}::width{copy}";
+
+    /// <summary>
+    /// The suffix from <paramref name="position"/> with <paramref name="copies"/> copies of the calibration chunk stacked on
+    /// axis 0: each of <paramref name="batched"/> (cut-set tensors that carry the samples on axis 0) is concatenated with
+    /// itself <paramref name="copies"/> times inside the graph, and every node that reads one of
+    /// <paramref name="stackedWeights"/> becomes Split (axis 0) into copies, one clone of the node per copy reading its
+    /// own weight input (<see cref="WidthInput"/>), and Concat (axis 0) back. Row block j of every output is then what
+    /// the plain suffix gives with copy j's weights, as long as every op downstream keeps samples apart on axis 0; that
+    /// the caller checks against the reference (an ONNX graph cannot say it). Null, with the reason, when a reader of a
+    /// stacked weight is not a Conv, ConvTranspose, MatMul or Gemm reading it as its second input from a first input with
+    /// samples on axis 0, or a node of the suffix has a body (its outer-scope reads could not be redirected).
+    /// Graph inputs for which <paramref name="constant"/> gives a tensor (the weights of layers this suffix never perturbs)
+    /// become initializers.
+    /// </summary>
+    public ModelProto? StackedSuffix(
+        int position,
+        IReadOnlyCollection<string> stackedWeights,
+        int copies,
+        IReadOnlyCollection<string> batched,
+        IReadOnlyDictionary<string, (int ElementType, int Rank)> activationTypes,
+        Func<string, TensorProto?> constant,
+        out string reason)
+    {
+        reason = string.Empty;
+        var model = Suffix(position, activationTypes);
+        var graph = model.Graph;
+        if (graph.Node.FirstOrDefault(n => n.Attribute.Any(a => a.G is not null || a.Graphs.Count > 0)) is { } withBody)
+        {
+            reason = $"node '{withBody.Name}' ({withBody.OpType}) has a body";
+            return null;
+        }
+
+        var opset = model.OpsetImport.Where(o => o.Domain.Length == 0 || o.Domain == "ai.onnx").Select(o => o.Version).DefaultIfEmpty(1).Max();
+        var weights = stackedWeights.ToHashSet(StringComparer.Ordinal);
+        // One copy needs no stacking: the suffix only gets its constants back.
+        var stackedNames = copies > 1 ? batched.ToDictionary(n => n, n => $"{n}::stacked", StringComparer.Ordinal) : [];
+        var nodes = new List<NodeProto>();
+        foreach (var (name, stacked) in stackedNames)
+        {
+            var tile = new NodeProto { Name = stacked, OpType = "Concat", Output = { stacked } };
+            tile.Input.AddRange(Enumerable.Repeat(name, copies));
+            tile.Attribute.Add(new AttributeProto { Name = "axis", Type = AttributeProto.Types.AttributeType.Int, I = 0 });
+            nodes.Add(tile);
+        }
+
+        foreach (var original in graph.Node)
+        {
+            var node = original.Clone();
+            for (var i = 0; i < node.Input.Count; i++)
+            {
+                if (stackedNames.TryGetValue(node.Input[i], out var stacked))
+                {
+                    node.Input[i] = stacked;
+                }
+            }
+
+            if (copies == 1 || !node.Input.Any(weights.Contains))
+            {
+                nodes.Add(node);
+                continue;
+            }
+
+            if (!StacksOnBatch(node, weights))
+            {
+                reason = $"node '{node.Name}' ({node.OpType}) reads a weight other than as the second input of a Conv, ConvTranspose, MatMul or Gemm with samples on axis 0";
+                return null;
+            }
+
+            nodes.AddRange(SplitPerCopy(node, copies, opset));
+        }
+
+        graph.Node.Clear();
+        graph.Node.AddRange(nodes);
+
+        // Weights no copy perturbs become constants again, so ONNX Runtime can fold and pre-pack them as in a plain pass.
+        foreach (var input in graph.Input.Where(i => !weights.Contains(i.Name)).ToList())
+        {
+            if (constant(input.Name) is { } tensor)
+            {
+                graph.Input.Remove(input);
+                graph.Initializer.Add(tensor);
+            }
+        }
+
+        foreach (var input in graph.Input.Where(i => weights.Contains(i.Name)).ToList())
+        {
+            for (var j = 1; j < copies; j++)
+            {
+                var copy = input.Clone();
+                copy.Name = WidthInput(input.Name, j);
+                graph.Input.Add(copy);
+            }
+        }
+
+        return model;
+    }
+
+    private static bool StacksOnBatch(NodeProto node, HashSet<string> weights) =>
+        node.OpType is "Conv" or "ConvTranspose" or "MatMul" or "Gemm"
+        && node.Input.Count >= 2
+        && weights.Contains(node.Input[1])
+        && !weights.Contains(node.Input[0])
+        && node.Input.Skip(2).All(i => !weights.Contains(i))
+        && node.Output.Count == 1
+        && !(node.OpType == "Gemm" && node.Attribute.Any(a => a.Name == "transA" && a.I != 0));
+
+    /// <summary>Split(input 0) -> one clone per copy with its own weight -> Concat, all on axis 0, writing the node's output.</summary>
+    private static IEnumerable<NodeProto> SplitPerCopy(NodeProto node, int copies, long opset)
+    {
+        var prefix = $"{node.Name}::{node.Output[0]}";
+        var split = new NodeProto { Name = $"{prefix}::split", OpType = "Split", Input = { node.Input[0] } };
+        split.Attribute.Add(new AttributeProto { Name = "axis", Type = AttributeProto.Types.AttributeType.Int, I = 0 });
+        if (opset >= 18)
+        {
+            // From opset 18 Split needs the number of outputs said when no sizes are given (equal parts either way).
+            split.Attribute.Add(new AttributeProto { Name = "num_outputs", Type = AttributeProto.Types.AttributeType.Int, I = copies });
+        }
+
+        var concat = new NodeProto { Name = $"{prefix}::concat", OpType = "Concat", Output = { node.Output[0] } };
+        concat.Attribute.Add(new AttributeProto { Name = "axis", Type = AttributeProto.Types.AttributeType.Int, I = 0 });
+        var clones = new List<NodeProto>(copies);
+        for (var j = 0; j < copies; j++)
+        {
+            split.Output.Add($"{prefix}::in{j}");
+            var clone = node.Clone();
+            clone.Name = $"{prefix}::copy{j}";
+            clone.Input[0] = $"{prefix}::in{j}";
+            clone.Input[1] = WidthInput(node.Input[1], j);
+            clone.Output[0] = $"{prefix}::out{j}";
+            concat.Input.Add(clone.Output[0]);
+            clones.Add(clone);
+        }
+
+        return [split, .. clones, concat];
+    }
+
     private static ValueInfoProto Activation(string name, (int ElementType, int Rank) type)
     {
         var shape = new TensorShapeProto();

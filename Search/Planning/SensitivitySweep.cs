@@ -62,8 +62,10 @@ public static class SensitivitySweep
         new(bits, settings.Scheme, settings.Granularity, settings.Clip, BiasCorrection: settings.BiasCorrection && BitWidths.IsInteger(bits));
 
     /// <summary>
-    /// Runs the trials not yet in <paramref name="store"/> and returns every trial's record by key.
-    /// Cancellation is honoured between trials.
+    /// Runs the trials not yet in <paramref name="store"/> and returns every trial's record by key. A layer's trials
+    /// still to measure are measured together (<see cref="TrialSession.MeasureLayerWidths"/>: several widths per run where
+    /// the batch is free), each saved as soon as its run finishes with an equal share of the run's time.
+    /// Cancellation is honoured between layers.
     /// </summary>
     public static IReadOnlyDictionary<string, TrialRecord> Run(
         TrialSession session,
@@ -72,7 +74,7 @@ public static class SensitivitySweep
         IProgress<SearchProgress>? progress,
         CancellationToken cancellationToken)
     {
-        var stored = store.LoadAll();
+        var stored = new Dictionary<string, TrialRecord>(store.LoadAll(), StringComparer.Ordinal);
         var results = new Dictionary<string, TrialRecord>(StringComparer.Ordinal);
         var perLayer = trials.GroupBy(t => t.Layer.Name).ToDictionary(g => g.Key, g => g.Count(), StringComparer.Ordinal);
 
@@ -80,20 +82,41 @@ public static class SensitivitySweep
         session.PrepareSweep(trials.Where(t => !stored.ContainsKey(t.Key)).GroupBy(t => t.Layer.Name).ToDictionary(g => g.Key, g => g.Count(), StringComparer.Ordinal));
         var done = 0;
         progress?.Report(new SearchProgress(SearchStage.Sweep, 0, trials.Count));
-        foreach (var trial in trials)
+
+        // A layer's trials still to measure go to the session together, so it can measure several widths in one run.
+        for (var start = 0; start < trials.Count;)
         {
-            if (!stored.TryGetValue(trial.Key, out var record))
+            var end = start;
+            while (end < trials.Count && trials[end].Layer.Name == trials[start].Layer.Name)
+            {
+                end++;
+            }
+
+            var group = trials.Skip(start).Take(end - start).ToList();
+            var pending = group.Where(t => !stored.ContainsKey(t.Key)).ToList();
+            if (pending.Count > 0)
             {
                 cancellationToken.ThrowIfCancellationRequested();
                 var clock = Stopwatch.StartNew();
-                var metrics = session.MeasureLayer(trial.Layer, trial.Setting, perLayer[trial.Layer.Name]);
-                record = new TrialRecord(
-                    trial.Key, "sensitivity", trial.Layer.Name, trial.Setting.Bits, null, metrics, clock.Elapsed.TotalMilliseconds, new Dictionary<string, LayerSetting> { [trial.Layer.Name] = trial.Setting }, trial.Activations);
-                store.Save(record);
+                var measured = session.MeasureLayerWidths(pending[0].Layer, pending.Select(t => t.Setting).ToList(), perLayer[pending[0].Layer.Name]);
+                var each = clock.Elapsed.TotalMilliseconds / pending.Count;
+                for (var i = 0; i < pending.Count; i++)
+                {
+                    var trial = pending[i];
+                    var record = new TrialRecord(
+                        trial.Key, "sensitivity", trial.Layer.Name, trial.Setting.Bits, null, measured[i], each, new Dictionary<string, LayerSetting> { [trial.Layer.Name] = trial.Setting }, trial.Activations);
+                    store.Save(record);
+                    stored[trial.Key] = record;
+                }
             }
 
-            results[trial.Key] = record;
-            progress?.Report(new SearchProgress(SearchStage.Sweep, ++done, trials.Count));
+            foreach (var trial in group)
+            {
+                results[trial.Key] = stored[trial.Key];
+                progress?.Report(new SearchProgress(SearchStage.Sweep, ++done, trials.Count));
+            }
+
+            start = end;
         }
 
         return results;

@@ -45,23 +45,102 @@ internal static class SweepBenchmark
         var perLayer = trials.GroupBy(t => t.Layer.Name).ToDictionary(g => g.Key, g => g.Count(), StringComparer.Ordinal);
 
         using var plain = new InferenceSession(model.BuildWithWeights(new Dictionary<string, float[]>()));
-        var pass = Timing.Measure(repeat, () => BenchmarkRun.PlainPass(plain, data));
-
-        string note = "";
+        // Three layouts of the same trials: widths stacked (the default), one width per run on the same constant-weight
+        // suffixes, and one width per run on the weights-as-inputs graph (the sweep before stacking).
+        var layouts = new[] { new TrialSessionOptions(), new TrialSessionOptions(MaxWidthsPerRun: 1), new TrialSessionOptions(StackWidths: false) };
+        var notes = new string[layouts.Length];
+        var measuredTrials = new IReadOnlyDictionary<string, TrialRecord>[layouts.Length];
         double ideal = 0;
-        var sweep = Timing.Measure(Math.Max(1, repeat / 3), () =>
+        double Sweep(int layout)
         {
-            using var session = TrialSession.Open(model, data);
-            SensitivitySweep.Run(session, trials, new InMemoryTrialStore(), null, CancellationToken.None);
-            note = session.SweepNote;
+            var clock = Stopwatch.StartNew();
+            using var session = TrialSession.Open(model, data, layouts[layout]);
+            measuredTrials[layout] = SensitivitySweep.Run(session, trials, new InMemoryTrialStore(), null, CancellationToken.None);
+            var elapsed = clock.Elapsed.TotalMilliseconds;
+            notes[layout] = session.SweepNote;
             ideal = session.IdealSweepPasses(perLayer);
-        });
+            return elapsed;
+        }
+
+        // Rounds interleave the plain pass and both sweeps, so a shared machine's changing load falls on all three alike;
+        // each ratio is taken within its round, then the median over rounds.
+        var rounds = Math.Max(1, repeat);
+        BenchmarkRun.PlainPass(plain, data);
+        var passes = new List<double>();
+        var times = layouts.Select(_ => new List<double>()).ToArray();
+        for (var round = 0; round < rounds; round++)
+        {
+            passes.Add(Timing.Measure(5, () => BenchmarkRun.PlainPass(plain, data)).Median);
+            for (var layout = 0; layout < layouts.Length; layout++)
+            {
+                times[layout].Add(Sweep(layout));
+            }
+        }
+
+        Spread Of(IEnumerable<double> values)
+        {
+            var sorted = values.Order().ToArray();
+            return new Spread(sorted[sorted.Length / 2], sorted[0], sorted[^1]);
+        }
+
+        var pass = Of(passes);
+        var sweep = Of(times[0]);
         var plainSweep = trials.Count * pass.Median;
         ideal *= pass.Median;
-        Console.WriteLine(string.Create(CultureInfo.InvariantCulture, $"plain forward pass {pass}"));
-        Console.WriteLine(string.Create(CultureInfo.InvariantCulture, $"whole sweep ({trials.Count} trials, session open included) {sweep} vs {trials.Count} plain passes {plainSweep:0} ms  ratio {sweep.Median / plainSweep:0.00} (goal <= 0.5)"));
+        string Ratio(IEnumerable<double> ratios)
+        {
+            var r = Of(ratios);
+            return string.Create(CultureInfo.InvariantCulture, $"{r.Median:0.00} ({r.Min:0.00}-{r.Max:0.00})");
+        }
+
+        string ToPlain(int layout) => Ratio(times[layout].Select((t, i) => t / (trials.Count * passes[i])));
+        string ToFirst(int layout) => Ratio(times[0].Select((t, i) => t / times[layout][i]));
+        Console.WriteLine(string.Create(CultureInfo.InvariantCulture, $"plain forward pass {pass}; {rounds} rounds, each: 5 plain passes, then the sweep in each layout (ratios within a round, median over rounds)"));
+        Console.WriteLine(string.Create(CultureInfo.InvariantCulture, $"whole sweep, widths stacked ({trials.Count} trials, session open included) {sweep} vs {trials.Count} plain passes {plainSweep:0} ms  ratio {ToPlain(0)} (goal <= 0.5)"));
+        Console.WriteLine($"   {notes[0]}");
+        Console.WriteLine(string.Create(CultureInfo.InvariantCulture, $"whole sweep, one width per run, constant weights {Of(times[1])}  ratio to plain passes {ToPlain(1)}; stacked vs this {ToFirst(1)}"));
+        Console.WriteLine($"   {notes[1]}");
+        Console.WriteLine(string.Create(CultureInfo.InvariantCulture, $"whole sweep, one width per run, weights as inputs (before) {Of(times[2])}  ratio to plain passes {ToPlain(2)}; stacked vs this {ToFirst(2)}"));
+        Console.WriteLine($"   {notes[2]}");
         Console.WriteLine(string.Create(CultureInfo.InvariantCulture, $"whole sweep vs the FLOP-weighted ideal {ideal:0} ms  ratio {sweep.Median / ideal:0.00}"));
-        Console.WriteLine($"   {note}");
+        for (var layout = 0; layout < 2; layout++)
+        {
+            var (a, b) = (measuredTrials[layout], measuredTrials[2]);
+            Console.WriteLine(string.Create(CultureInfo.InvariantCulture, $"{(layout == 0 ? "stacked" : "constant weights")} vs weights as inputs: same trial keys {a.Keys.Order().SequenceEqual(b.Keys.Order())}; largest SQNR difference {LargestDifference(a, b):0.######} dB; top-1 or changed samples differ in {Disagreements(a, b)} of {a.Count} trials"));
+        }
+
+        // One layer's widths at a time, sessions open and their cuts cached, layouts interleaved: the runs alone, no builds.
+        var open = layouts.Select(o => TrialSession.Open(model, data, o)).ToList();
+        try
+        {
+            foreach (var session in open)
+            {
+                session.PrepareSweep(perLayer);
+            }
+
+            foreach (var layer in new[] { model.Layers[0], model.Layers[model.Layers.Count / 3], model.Layers[2 * model.Layers.Count / 3], model.Layers[^1] })
+            {
+                var widths = trials.Where(t => t.Layer.Name == layer.Name).Select(t => t.Setting).ToList();
+                var layerTimes = layouts.Select(_ => new List<double>()).ToArray();
+                for (var round = 0; round < rounds + 2; round++)
+                {
+                    for (var layout = 0; layout < layouts.Length; layout++)
+                    {
+                        var timer = Stopwatch.StartNew();
+                        open[layout].MeasureLayerWidths(layer, widths, widths.Count);
+                        layerTimes[layout].Add(timer.Elapsed.TotalMilliseconds);
+                    }
+                }
+
+                // The first round builds each layout's session for the layer's cut: left out.
+                var kept = layerTimes.Select(t => t.Skip(1).ToList()).ToArray();
+                Console.WriteLine(string.Create(CultureInfo.InvariantCulture, $"layer '{layer.Name}', {widths.Count} widths: stacked {Of(kept[0])}, constant weights {Of(kept[1])}, weights as inputs {Of(kept[2])}; stacked / inputs {Ratio(kept[0].Select((t, i) => t / kept[2][i]))}, constants / inputs {Ratio(kept[1].Select((t, i) => t / kept[2][i]))}"));
+            }
+        }
+        finally
+        {
+            open.ForEach(o => o.Dispose());
+        }
 
         // The peer: a session rebuilt with the quantized weight for every trial, timed on a few layers spread over the model.
         var sampled = Enumerable.Range(0, 3).Select(i => model.Layers[i * (model.Layers.Count - 1) / 2]).Distinct().ToList();
@@ -90,4 +169,12 @@ internal static class SweepBenchmark
         var second = clock.Elapsed.TotalMilliseconds;
         Console.WriteLine(string.Create(CultureInfo.InvariantCulture, $"second search, another budget, vs the first: {second:0} ms vs {first:0} ms  ratio {second / first:0.00} (goal <= 0.1)"));
     }
+
+    /// <summary>Largest SQNR difference between the same trials of two sweeps (0 when they agree bit for bit).</summary>
+    private static double LargestDifference(IReadOnlyDictionary<string, TrialRecord> a, IReadOnlyDictionary<string, TrialRecord> b) =>
+        a.Where(p => b.ContainsKey(p.Key)).Select(p => (p.Value.Metrics.SqnrDb, b[p.Key].Metrics.SqnrDb))
+            .Select(p => p.Item1.Equals(p.Item2) ? 0 : Math.Abs(p.Item1 - p.Item2)).DefaultIfEmpty(0).Max();
+
+    private static int Disagreements(IReadOnlyDictionary<string, TrialRecord> a, IReadOnlyDictionary<string, TrialRecord> b) =>
+        a.Count(p => b.TryGetValue(p.Key, out var other) && (other.Metrics.Top1Agreement != p.Value.Metrics.Top1Agreement || other.Metrics.SamplesChanged != p.Value.Metrics.SamplesChanged));
 }
