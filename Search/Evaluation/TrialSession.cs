@@ -311,7 +311,7 @@ public sealed class TrialSession : IDisposable
     /// <summary>The layer's widths on stacked runs, or null when this session does not stack (the reason is kept for the note).</summary>
     private MetricSet[]? MeasureStacked(WeightLayer layer, IReadOnlyList<LayerSetting> settings, int trialsForLayer)
     {
-        if (!_options.StackWidths || _stackingOff is not null || CutPosition(layer) < 0)
+        if (!_options.ConstantSuffixes || _stackingOff is not null || CutPosition(layer) < 0)
         {
             return null;
         }
@@ -625,9 +625,9 @@ public sealed class TrialSession : IDisposable
 
     private string StackingNote()
     {
-        if (!_options.StackWidths)
+        if (!_options.ConstantSuffixes)
         {
-            return "; one width per run on the weights-as-inputs graph (stacking off)";
+            return string.Empty;
         }
 
         var runs = string.Create(System.Globalization.CultureInfo.InvariantCulture, $"{_stackedTrials} trials in {_stackedRuns} runs");

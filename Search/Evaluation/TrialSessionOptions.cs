@@ -15,12 +15,14 @@ namespace Bitbudget.Search.Evaluation;
 /// <param name="MaxSweepMemoryBytes">Memory a sweep plans for: it bounds the samples per run and the activations cached at
 /// cut points (see <see cref="SweepMemory"/>), so the sweep's memory no longer grows with the calibration set beyond the data itself.</param>
 /// <param name="CutEveryLayer">Cut at every layer's own position instead of the planned shared cuts (tests of suffix runs use it).</param>
-/// <param name="StackWidths">Measure a layer's widths on a suffix whose unperturbed weights are constants, several widths in
-/// one run stacked on the batch axis where the model's batch is free (see <see cref="TrialSession.MeasureLayerWidths"/>);
-/// off runs one width per run on the weights-as-inputs graph, bit for bit as the reference was computed.</param>
-/// <param name="MaxWidthsPerRun">Most widths one stacked run holds. 1 (the default): one width per run, still on the constant-weight
-/// suffix; stacking measured slower on the OCR classifier (its runs are compute-bound, and a stacked batch adds Split, Concat
-/// and tiling copies and loses cache locality; DEVELOPERS.md), so it is there for models whose runs are short.</param>
+/// <param name="ConstantSuffixes">Measure a layer's widths on suffix sessions whose unperturbed weights are constants (ONNX Runtime
+/// folds and pre-packs them), with <paramref name="MaxWidthsPerRun"/> widths stacked on the batch axis where the model's batch is free
+/// (see <see cref="TrialSession.MeasureLayerWidths"/>). Off (the default): one width per run on the weights-as-inputs graph,
+/// bit for bit whatever cut a trial runs from. On, a trial's metrics move by rounding with the cut it runs from (within 0.01 dB
+/// on the OCR classifier), so a resumed or cached sweep is no longer bit for bit an uninterrupted one: measured, not the default.</param>
+/// <param name="MaxWidthsPerRun">Most widths one stacked run holds under <paramref name="ConstantSuffixes"/>; 1 (the default) runs
+/// one width per run. Stacking measured slower on the OCR classifier (its runs are compute-bound, and a stacked batch adds
+/// Split, Concat and tiling copies and loses cache locality; DEVELOPERS.md).</param>
 public sealed record TrialSessionOptions(
     int MaxBatch = 32,
     bool SuffixRuns = true,
@@ -32,7 +34,7 @@ public sealed record TrialSessionOptions(
     WeightRounder? Rounder = null,
     long MaxSweepMemoryBytes = TrialSessionOptions.DefaultMaxSweepMemoryBytes,
     bool CutEveryLayer = false,
-    bool StackWidths = true,
+    bool ConstantSuffixes = false,
     int MaxWidthsPerRun = 1)
 {
     /// <summary>1 GiB: the OCR detector's sweep on 32 images fits in it.</summary>

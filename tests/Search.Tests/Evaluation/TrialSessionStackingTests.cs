@@ -23,8 +23,8 @@ public sealed class TrialSessionStackingTests
     {
         var model = SmallModels.Mlp();
         var data = SmallModels.MlpData(model);
-        using var stacked = TrialSession.Open(model, data, new TrialSessionOptions(MaxWidthsPerRun: 8));
-        using var oneByOne = TrialSession.Open(model, data, new TrialSessionOptions(StackWidths: false));
+        using var stacked = TrialSession.Open(model, data, new TrialSessionOptions(ConstantSuffixes: true, MaxWidthsPerRun: 8));
+        using var oneByOne = TrialSession.Open(model, data, new TrialSessionOptions());
 
         foreach (var layer in model.Layers)
         {
@@ -57,9 +57,9 @@ public sealed class TrialSessionStackingTests
             return (SensitivitySweep.Run(session, trials, new InMemoryTrialStore(), null, CancellationToken.None), session);
         }
 
-        var (expected, plain) = Sweep(new TrialSessionOptions(StackWidths: false));
-        var (stacked, stackedSession) = Sweep(new TrialSessionOptions(MaxWidthsPerRun: 8));
-        var (constant, constantSession) = Sweep(new TrialSessionOptions());
+        var (expected, plain) = Sweep(new TrialSessionOptions());
+        var (stacked, stackedSession) = Sweep(new TrialSessionOptions(ConstantSuffixes: true, MaxWidthsPerRun: 8));
+        var (constant, constantSession) = Sweep(new TrialSessionOptions(ConstantSuffixes: true));
         using (plain)
         using (stackedSession)
         using (constantSession)
@@ -97,8 +97,8 @@ public sealed class TrialSessionStackingTests
                 .ToBytes(),
             "batch-statistics");
         var data = SmallModels.MlpData(model);
-        using var stacked = TrialSession.Open(model, data, new TrialSessionOptions(MaxWidthsPerRun: 8));
-        using var oneByOne = TrialSession.Open(model, data, new TrialSessionOptions(StackWidths: false));
+        using var stacked = TrialSession.Open(model, data, new TrialSessionOptions(ConstantSuffixes: true, MaxWidthsPerRun: 8));
+        using var oneByOne = TrialSession.Open(model, data, new TrialSessionOptions());
         var layer = model.Layers.Single(l => l.Name == "fc1");
 
         var together = stacked.MeasureLayerWidths(layer, Widths, Widths.Length);
@@ -112,8 +112,8 @@ public sealed class TrialSessionStackingTests
     {
         var model = SmallModels.Mlp(batch: 1);
         var data = SmallModels.MlpData(model, samples: 10);
-        using var session = TrialSession.Open(model, data, new TrialSessionOptions(MaxWidthsPerRun: 8));
-        using var oneByOne = TrialSession.Open(model, data, new TrialSessionOptions(StackWidths: false));
+        using var session = TrialSession.Open(model, data, new TrialSessionOptions(ConstantSuffixes: true, MaxWidthsPerRun: 8));
+        using var oneByOne = TrialSession.Open(model, data, new TrialSessionOptions());
         var layer = model.Layers[1];
 
         var together = session.MeasureLayerWidths(layer, Widths, Widths.Length);
@@ -131,14 +131,14 @@ public sealed class TrialSessionStackingTests
         var model = SmallModels.Mlp();
         var data = SmallModels.MlpData(model);
         var trials = SensitivitySweep.Plan(model.Layers, new SearchSettings(new ErrorBudget(BudgetMetric.Sqnr, 30), [2, 4, 8]));
-        using var session = TrialSession.Open(model, data, new TrialSessionOptions(MaxWidthsPerRun: 8));
+        using var session = TrialSession.Open(model, data, new TrialSessionOptions(ConstantSuffixes: true, MaxWidthsPerRun: 8));
         var fresh = SensitivitySweep.Run(session, trials, new InMemoryTrialStore(), null, CancellationToken.None);
 
         // A stored trial is taken as it is, even one no run would give: proof that it was not measured again.
         var kept = trials.First(t => t.Layer.Name == "fc2");
         var marked = fresh[kept.Key] with { Metrics = fresh[kept.Key].Metrics with { SqnrDb = 12.5 } };
         var store = new InMemoryTrialStore([marked]);
-        using var resumed = TrialSession.Open(model, data, new TrialSessionOptions(MaxWidthsPerRun: 8));
+        using var resumed = TrialSession.Open(model, data, new TrialSessionOptions(ConstantSuffixes: true, MaxWidthsPerRun: 8));
 
         var results = SensitivitySweep.Run(resumed, trials, store, null, CancellationToken.None);
 
