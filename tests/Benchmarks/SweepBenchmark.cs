@@ -111,10 +111,10 @@ internal static class SweepBenchmark
         }
 
         Console.WriteLine(string.Create(CultureInfo.InvariantCulture, $"whole sweep (default) vs the FLOP-weighted ideal {ideal:0} ms  ratio {sweep.Median / ideal:0.00}"));
-        for (var layout = 0; layout < 2; layout++)
+        for (var layout = 1; layout < layouts.Length; layout++)
         {
-            var (a, b) = (measuredTrials[layout], measuredTrials[2]);
-            Console.WriteLine(string.Create(CultureInfo.InvariantCulture, $"{names[layout]} vs weights as inputs: same trial keys {a.Keys.Order().SequenceEqual(b.Keys.Order())}; largest SQNR difference {LargestDifference(a, b):0.######} dB; top-1 or changed samples differ in {Disagreements(a, b)} of {a.Count} trials"));
+            var (a, b) = (measuredTrials[layout], measuredTrials[0]);
+            Console.WriteLine(string.Create(CultureInfo.InvariantCulture, $"{names[layout]} vs the default: same trial keys {a.Keys.Order().SequenceEqual(b.Keys.Order())}; largest SQNR difference {LargestDifference(a, b):0.######} dB; top-1 or changed samples differ in {Disagreements(a, b)} of {a.Count} trials"));
         }
 
         // One layer's widths at a time, sessions open and their cuts cached, layouts interleaved: the runs alone, no builds.
