@@ -142,7 +142,7 @@ internal static class SweepBenchmark
 
                 // The first round builds each layout's session for the layer's cut: left out.
                 var kept = layerTimes.Select(t => t.Skip(1).ToList()).ToArray();
-                Console.WriteLine(string.Create(CultureInfo.InvariantCulture, $"layer '{layer.Name}', {widths.Count} widths, runs only: constant weights {Of(kept[0])}, stacked {Of(kept[1])}, weights as inputs {Of(kept[2])}; constants / inputs {Ratio(kept[0].Select((t, i) => t / kept[2][i]))}, stacked / inputs {Ratio(kept[1].Select((t, i) => t / kept[2][i]))}"));
+                Console.WriteLine(string.Create(CultureInfo.InvariantCulture, $"layer '{layer.Name}', {widths.Count} widths, runs only: weights as inputs {Of(kept[0])}, constant weights {Of(kept[1])}, stacked {Of(kept[2])}; constants / inputs {Ratio(kept[1].Select((t, i) => t / kept[0][i]))}, stacked / inputs {Ratio(kept[2].Select((t, i) => t / kept[0][i]))}; first round (the cut's session built and run first): {layerTimes[0][0]:0} / {layerTimes[1][0]:0} / {layerTimes[2][0]:0} ms"));
             }
         }
         finally
