@@ -20,19 +20,22 @@ public static class LayerInputCollector
     /// </summary>
     public const long MaxProductsPerBatch = 1L << 28;
 
-    /// <summary>Widest input vector whose moments are gathered (Columns² doubles each); wider layers stay at nearest.</summary>
+    /// <summary>Widest input vector whose second moments are gathered (Columns² doubles each); wider layers stay at nearest.</summary>
     public const int MaxColumns = 4096;
 
     /// <summary>
     /// The inputs of the <paramref name="layers"/> that can use them, by layer name (layers without a linear input site,
-    /// wider than <see cref="MaxColumns"/> or past <paramref name="maxBytes"/> in model order are left out).
+    /// wider than <see cref="MaxColumns"/> or past <paramref name="maxBytes"/> in model order are left out). Without
+    /// <paramref name="secondMoments"/> only Σ x is gathered (bias correction without compensated rounding): no width limit,
+    /// Columns doubles per group, and no products to sum.
     /// </summary>
-    public static IReadOnlyDictionary<string, LayerInputs> Collect(OnnxModel model, CalibrationSet data, IReadOnlyList<WeightLayer> layers, int maxBatch, long maxBytes, CancellationToken cancellationToken = default)
+    public static IReadOnlyDictionary<string, LayerInputs> Collect(
+        OnnxModel model, CalibrationSet data, IReadOnlyList<WeightLayer> layers, int maxBatch, long maxBytes, CancellationToken cancellationToken = default, bool secondMoments = true)
     {
         ArgumentNullException.ThrowIfNull(model);
         ArgumentNullException.ThrowIfNull(data);
-        var wanted = Chosen(model, layers, maxBytes)
-            .Select(c => (c.Layer, c.Sites, Inputs: new LayerInputs(c.Sites[0].Layout, new InputMoments(c.Sites[0].Layout.Groups, c.Sites[0].Layout.Columns))))
+        var wanted = Chosen(model, layers, maxBytes, secondMoments)
+            .Select(c => (c.Layer, c.Sites, Inputs: new LayerInputs(c.Sites[0].Layout, new InputMoments(c.Sites[0].Layout.Groups, c.Sites[0].Layout.Columns, secondMoments))))
             .ToList();
         if (wanted.Count == 0)
         {
@@ -93,14 +96,14 @@ public static class LayerInputCollector
     /// Bytes the moments <see cref="Collect"/> gathers for these layers take (Σ x x^T and Σ x per group, in double), known
     /// from the graph alone, for estimating a search's memory before it runs.
     /// </summary>
-    public static long MomentBytes(OnnxModel model, IReadOnlyList<WeightLayer> layers, long maxBytes)
+    public static long MomentBytes(OnnxModel model, IReadOnlyList<WeightLayer> layers, long maxBytes, bool secondMoments = true)
     {
         ArgumentNullException.ThrowIfNull(model);
-        return Chosen(model, layers, maxBytes).Sum(c => c.Bytes);
+        return Chosen(model, layers, maxBytes, secondMoments).Sum(c => c.Bytes);
     }
 
     /// <summary>The layers whose moments are gathered, in model order, while they fit <paramref name="maxBytes"/>.</summary>
-    private static List<(WeightLayer Layer, IReadOnlyList<LinearInputSite> Sites, long Bytes)> Chosen(OnnxModel model, IReadOnlyList<WeightLayer> layers, long maxBytes)
+    private static List<(WeightLayer Layer, IReadOnlyList<LinearInputSite> Sites, long Bytes)> Chosen(OnnxModel model, IReadOnlyList<WeightLayer> layers, long maxBytes, bool secondMoments)
     {
         var chosen = new List<(WeightLayer, IReadOnlyList<LinearInputSite>, long)>();
         long bytes = 0;
@@ -112,8 +115,8 @@ public static class LayerInputCollector
             }
 
             var layout = sites[0].Layout;
-            var size = InputMoments.BytesFor(layout.Groups, layout.Columns);
-            if (layout.Columns > MaxColumns || bytes + size > maxBytes)
+            var size = InputMoments.BytesFor(layout.Groups, layout.Columns, secondMoments);
+            if ((secondMoments && layout.Columns > MaxColumns) || bytes + size > maxBytes)
             {
                 continue;
             }
@@ -150,7 +153,7 @@ public static class LayerInputCollector
             vectors = values.Length / columns;
         }
 
-        var step = Math.Max(1L, (long)Math.Ceiling(vectors * (double)columns * columns / MaxProductsPerBatch));
+        var step = Math.Max(1L, (long)Math.Ceiling(vectors * (double)columns * (moments.HasSecondMoments ? columns : 1) / MaxProductsPerBatch));
         var block = new float[columns * Chunk];
         var picked = new long[Chunk];
         for (long next = 0; next < vectors;)

@@ -87,7 +87,7 @@ public sealed class WeightRounder
     public IReadOnlyDictionary<string, LayerInputs> Inputs => _inputs;
 
     /// <summary>True when <paramref name="layer"/> can be rounded with compensation (its inputs were gathered).</summary>
-    public bool Compensates(string layer) => _inputs.ContainsKey(layer);
+    public bool Compensates(string layer) => _inputs.TryGetValue(layer, out var inputs) && inputs.Moments.HasSecondMoments;
 
     /// <summary>The rounding <paramref name="setting"/> really gets for <paramref name="layer"/>: compensated falls back to nearest without inputs.</summary>
     public RoundingMethod RoundingFor(string layer, LayerSetting setting)

@@ -167,12 +167,31 @@ internal sealed class BiasSite
         return result;
     }
 
-    /// <summary>Makes the layer read its bias from the graph input <see cref="InputName"/> (a trial session's model).</summary>
+    /// <summary>
+    /// Makes the layer read its bias from the graph input <see cref="InputName"/> (a trial session's model); its own bias
+    /// constant, read by nothing else, leaves the graph (ONNX Runtime would warn about it at every session build).
+    /// </summary>
     public void AddSessionInput(P.GraphProto graph)
     {
         ArgumentNullException.ThrowIfNull(graph);
         graph.Input.Add(OnnxModel.FloatInput(InputName, Dims));
         ReadFrom(graph, InputName);
+        if (_source is null || !_exclusive)
+        {
+            return;
+        }
+
+        if (_sourceIsConstantNode)
+        {
+            graph.Node.Remove(graph.Node.First(n => n.OpType == "Constant" && n.Output.Count == 1 && n.Output[0] == _source));
+            return;
+        }
+
+        graph.Initializer.Remove(graph.Initializer.First(t => t.Name == _source));
+        if (graph.Input.FirstOrDefault(i => i.Name == _source) is { } listed)
+        {
+            graph.Input.Remove(listed);
+        }
     }
 
     /// <summary>

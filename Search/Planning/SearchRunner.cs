@@ -155,7 +155,9 @@ public static class SearchRunner
 
         var excluded = (settings.Excluded ?? []).ToHashSet(StringComparer.Ordinal);
         var searched = model.Layers.Where(l => !excluded.Contains(l.Name)).ToList();
-        return new WeightRounder(model, LayerInputCollector.Collect(model, data, searched, options.MaxBatch, options.MaxCachedActivationBytes, cancellationToken), settings.BiasCorrection);
+        // Bias correction alone needs the inputs' means only; compensated rounding needs Σ x xᵀ too.
+        var secondMoments = RoundingChoices.Asked(settings).Contains(RoundingMethod.Compensated);
+        return new WeightRounder(model, LayerInputCollector.Collect(model, data, searched, options.MaxBatch, options.MaxCachedActivationBytes, cancellationToken, secondMoments), settings.BiasCorrection);
     }
 
     /// <summary>

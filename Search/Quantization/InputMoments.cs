@@ -4,7 +4,8 @@ namespace Bitbudget.Search.Quantization;
 /// First and second moments of a linear layer's input vectors on the calibration set, per block of a
 /// <see cref="LinearLayout"/>: the sum of x and the sum of x xᵀ, accumulated in double. They are all that
 /// compensated rounding (H = 2 Σ x xᵀ) and bias correction (E[x]) need, so the inputs themselves are never kept:
-/// memory is Groups x Columns² doubles whatever the calibration set's size.
+/// memory is Groups x Columns² doubles whatever the calibration set's size. Bias correction alone needs only Σ x: without
+/// <see cref="HasSecondMoments"/> the products are neither summed nor kept (Groups x Columns doubles).
 /// </summary>
 public sealed class InputMoments
 {
@@ -12,18 +13,22 @@ public sealed class InputMoments
     private readonly double[][] _sums;
     private readonly long[] _counts;
 
-    public InputMoments(int groups, int columns)
+    public InputMoments(int groups, int columns, bool secondMoments = true)
     {
         ArgumentOutOfRangeException.ThrowIfNegativeOrZero(groups);
         ArgumentOutOfRangeException.ThrowIfNegativeOrZero(columns);
         Groups = groups;
         Columns = columns;
-        _secondMoments = Enumerable.Range(0, groups).Select(_ => new double[(long)columns * columns]).ToArray();
+        HasSecondMoments = secondMoments;
+        _secondMoments = Enumerable.Range(0, groups).Select(_ => secondMoments ? new double[(long)columns * columns] : []).ToArray();
         _sums = Enumerable.Range(0, groups).Select(_ => new double[columns]).ToArray();
         _counts = new long[groups];
     }
 
     public int Groups { get; }
+
+    /// <summary>Whether Σ x xᵀ is gathered (compensated rounding needs it; bias correction does not).</summary>
+    public bool HasSecondMoments { get; }
 
     /// <summary>Length of one input vector.</summary>
     public int Columns { get; }
@@ -32,7 +37,8 @@ public sealed class InputMoments
     public long Count(int group) => _counts[group];
 
     /// <summary>Σ x xᵀ of block <paramref name="group"/>, row-major Columns x Columns (both triangles filled).</summary>
-    public ReadOnlySpan<double> SecondMoment(int group) => _secondMoments[group];
+    public ReadOnlySpan<double> SecondMoment(int group) =>
+        HasSecondMoments ? _secondMoments[group] : throw new InvalidOperationException("These moments were gathered without Σ x xᵀ.");
 
     /// <summary>Σ x of block <paramref name="group"/>.</summary>
     public ReadOnlySpan<double> Sum(int group) => _sums[group];
@@ -41,7 +47,8 @@ public sealed class InputMoments
     public double[] Mean(int group) => _counts[group] == 0 ? new double[Columns] : Array.ConvertAll(_sums[group], s => s / _counts[group]);
 
     /// <summary>Bytes the moments of a layer with these dimensions take.</summary>
-    public static long BytesFor(int groups, int columns) => (long)groups * (((long)columns * columns) + columns) * sizeof(double);
+    public static long BytesFor(int groups, int columns, bool secondMoments = true) =>
+        (long)groups * ((secondMoments ? (long)columns * columns : 0) + columns) * sizeof(double);
 
     /// <summary>
     /// Adds <paramref name="count"/> input vectors of block <paramref name="group"/>, given column by column:
@@ -73,7 +80,7 @@ public sealed class InputMoments
         {
             var xi = block.AsSpan(i * count, count);
             sum[i] += System.Numerics.Tensors.TensorPrimitives.Sum<double>(xi);
-            for (var j = i; j < Columns; j++)
+            for (var j = i; HasSecondMoments && j < Columns; j++)
             {
                 var dot = System.Numerics.Tensors.TensorPrimitives.Dot<double>(xi, block.AsSpan(j * count, count));
                 h[((long)i * Columns) + j] += dot;

@@ -86,7 +86,7 @@ internal sealed record PlanArguments(string Model, string Data, SearchSettings S
             : [];
         var rounding = result.GetValue(options.Rounding) is { } roundingList
             ? roundingList.Split(',', StringSplitOptions.RemoveEmptyEntries | StringSplitOptions.TrimEntries).Select(r => Enum<RoundingMethod>(options.Rounding.Name, r)).ToList()
-            : null;
+            : SearchSettings.DefaultRounding;
         var pairs = SearchSettings.DefaultPairs;
         if (result.GetValue(options.Pairs) is { } pairsText
             && (!int.TryParse(pairsText, NumberStyles.None, CultureInfo.InvariantCulture, out pairs) || pairs > SearchSettings.MaxPairs))

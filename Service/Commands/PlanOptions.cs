@@ -58,7 +58,7 @@ internal sealed class PlanOptions
     public Option<string> Rounding { get; } = new("--rounding")
     {
         HelpName = "R,R",
-        Description = "Rounding methods to try per layer and width: " + WireNames.Choices<RoundingMethod>() + " (compensated: the GPTQ update, Frantar et al. 2022). Default: nearest.",
+        Description = "Rounding methods to try per layer and width: " + WireNames.Choices<RoundingMethod>() + " (compensated: the GPTQ update, Frantar et al. 2022). Default: " + string.Join(",", SearchSettings.DefaultRounding.Select(r => WireNames.Format(r))) + ".",
     };
 
     public Option<string> Pairs { get; } = new("--pairs")

@@ -49,6 +49,7 @@ internal sealed class EngineAdapter(IOptions<BitbudgetOptions> options) : ISearc
         var headers = DatasetReader.Inspect(dataset, Limits, verifyData: false);
         // The job reads the dataset file whole before decoding it, so its size counts beside the estimate.
         var sessionOptions = new TrialSessionOptions();
+        // Counted with Σ x xᵀ: an upper bound when bias correction alone gathers only the means.
         var moments = inputMoments ? LayerInputCollector.MomentBytes(loaded, loaded.Layers, sessionOptions.MaxCachedActivationBytes) : 0;
         SearchMemoryEstimate.Of(loaded, headers, sessionOptions.MaxCachedActivationBytes, heldBytes: dataset.Length, sampleAxes: sampleAxes, inputMomentBytes: moments)
             .Check(options.Value.MaxSearchMemoryBytes, "Bitbudget:MaxSearchMemoryBytes");

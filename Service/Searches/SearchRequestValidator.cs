@@ -120,12 +120,12 @@ internal static class SearchRequestValidator
             request.BiasCorrection ?? SearchSettings.DefaultBiasCorrection);
     }
 
-    /// <summary>Lower-case names, nearest first, each once; input accepted in any case.</summary>
-    private static List<string>? ValidateRounding(IReadOnlyList<string>? given, Action<string, string> add)
+    /// <summary>Lower-case names, nearest first, each once; input accepted in any case; the engine's default when not given.</summary>
+    private static List<string> ValidateRounding(IReadOnlyList<string>? given, Action<string, string> add)
     {
         if (given is null)
         {
-            return null;
+            return SearchSettings.DefaultRounding.Select(r => WireNames.Format(r)).ToList();
         }
 
         var names = new List<string>();
@@ -144,7 +144,7 @@ internal static class SearchRequestValidator
 
         if (given.Count == 0)
         {
-            add("rounding", "rounding must list at least one of nearest, compensated, or be left out for nearest.");
+            add("rounding", "rounding must list at least one of nearest, compensated, or be left out for the default.");
         }
 
         return names.OrderBy(n => SearchVocabulary.Roundings[n]).ToList();

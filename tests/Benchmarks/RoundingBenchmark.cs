@@ -7,8 +7,8 @@ using Bitbudget.Search.Quantization;
 namespace Bitbudget.Benchmarks;
 
 /// <summary>
-/// Nearest against compensated rounding, side by side in one process, on whole searches with packed storage and
-/// candidates 2, 3, 4, 5, 6, 8 bits: (a) the packed size of the plan meeting sqnr>=30, (b) the measured SQNR of the
+/// Nearest against compensated rounding, each without and with bias correction, side by side in one process, on whole
+/// searches with packed storage and candidates 2, 3, 4, 5, 6, 8 bits: (a) the packed size of the plan meeting sqnr>=30, (b) the measured SQNR of the
 /// least-error plan within the packed size of uniform 4-bit (and of uniform 4-bit itself), (c) what the sweep costs:
 /// reference, input gathering and sweep together, against nearest's reference and sweep.
 /// </summary>
@@ -16,11 +16,14 @@ internal static class RoundingBenchmark
 {
     private static readonly int[] Bits = [2, 3, 4, 5, 6, 8];
 
-    private static readonly (string Name, IReadOnlyList<RoundingMethod> Rounding)[] Variants =
+    private static readonly (string Name, IReadOnlyList<RoundingMethod> Rounding, bool BiasCorrection)[] Variants =
     [
-        ("nearest", [RoundingMethod.Nearest]),
-        ("compensated", [RoundingMethod.Compensated]),
-        ("both", [RoundingMethod.Nearest, RoundingMethod.Compensated]),
+        ("nearest", [RoundingMethod.Nearest], false),
+        ("nearest+bias", [RoundingMethod.Nearest], true),
+        ("compensated", [RoundingMethod.Compensated], false),
+        ("compensated+bias", [RoundingMethod.Compensated], true),
+        ("both", [RoundingMethod.Nearest, RoundingMethod.Compensated], false),
+        ("both+bias", [RoundingMethod.Nearest, RoundingMethod.Compensated], true),
     ];
 
     public static void Run(OnnxModel model, CalibrationSet data)
@@ -29,17 +32,20 @@ internal static class RoundingBenchmark
         Console.WriteLine($"== {model.Name}: {model.Layers.Count} layers, {model.Layers.Sum(l => l.ParameterCount)} weights, {data.SampleCount} samples; packed storage, bits {string.Join(",", Bits)}");
         var uniform4 = new ModelSizer(model, StorageRule.Packed);
         var uniform4Bytes = uniform4.OtherBytes + model.Layers.Sum(l => uniform4.LayerBytes(l, new LayerSetting(4)));
+
+        // One untimed nearest search first: the first variant would otherwise pay the JIT and ONNX Runtime's first runs alone.
+        SearchRunner.Run(model, data, Settings(new ErrorBudget(BudgetMetric.Sqnr, 30), [RoundingMethod.Nearest], false), new InMemoryTrialStore(), null, CancellationToken.None);
         double nearestSweep = 0;
         long? nearestPlan = null;
         double? nearestAt4 = null;
-        foreach (var (name, rounding) in Variants)
+        foreach (var (name, rounding, bias) in Variants)
         {
             var store = new InMemoryTrialStore();
             var stages = new StageClock();
-            var error = SearchRunner.Run(model, data, Settings(new ErrorBudget(BudgetMetric.Sqnr, 30), rounding), store, stages, CancellationToken.None);
+            var error = SearchRunner.Run(model, data, Settings(new ErrorBudget(BudgetMetric.Sqnr, 30), rounding, bias), store, stages, CancellationToken.None);
             var sweepMs = stages.SweepMilliseconds;
-            var size = SearchRunner.Run(model, data, Settings(new SizeBudget(uniform4Bytes, null, BudgetMetric.Sqnr), rounding), store, null, CancellationToken.None);
-            var uniform = Uniform4Sqnr(model, data, rounding);
+            var size = SearchRunner.Run(model, data, Settings(new SizeBudget(uniform4Bytes, null, BudgetMetric.Sqnr), rounding, bias), store, null, CancellationToken.None);
+            var uniform = Uniform4Sqnr(model, data, rounding, bias);
             var compensatedLayers = error.Feasible ? Manifest(error).Layers.Count(l => l.Rounding == "compensated") : 0;
             if (name == "nearest")
             {
@@ -49,26 +55,26 @@ internal static class RoundingBenchmark
             }
 
             Console.WriteLine(
-                $"{name,-12} (a) sqnr>=30: {(error.Feasible ? $"{error.Bytes,9} B packed, {error.MeasuredError,6:0.00} dB, {Manifest(error).Outcome.ValidationRounds} rounds, {compensatedLayers} layers compensated" : "infeasible"),-70}"
+                $"{name,-16} (a) sqnr>=30: {(error.Feasible ? $"{error.Bytes,9} B packed, {error.MeasuredError,6:0.00} dB, {Manifest(error).Outcome.ValidationRounds} rounds, {compensatedLayers} layers compensated" : "infeasible"),-70}"
                 + $" {Ratio(error.Feasible ? error.Bytes : null, nearestPlan)}");
             Console.WriteLine(
-                $"{string.Empty,-12} (b) <= {uniform4Bytes} B (uniform 4-bit): {(size.Feasible ? $"{size.MeasuredError,6:0.00} dB ({size.Bytes} B)" : "infeasible")}{Delta(size.Feasible ? size.MeasuredError : null, nearestAt4)}; uniform 4-bit itself {uniform:0.00} dB");
+                $"{string.Empty,-16} (b) <= {uniform4Bytes} B (uniform 4-bit): {(size.Feasible ? $"{size.MeasuredError,6:0.00} dB ({size.Bytes} B)" : "infeasible")}{Delta(size.Feasible ? size.MeasuredError : null, nearestAt4)}; uniform 4-bit itself {uniform:0.00} dB");
             Console.WriteLine(
-                $"{string.Empty,-12} (c) reference + inputs + sweep {sweepMs,9:0} ms, {sweepMs / nearestSweep:0.00}x nearest's");
+                $"{string.Empty,-16} (c) reference + inputs + sweep {sweepMs,9:0} ms, {sweepMs / nearestSweep:0.00}x nearest's");
         }
     }
 
-    private static SearchSettings Settings(Budget budget, IReadOnlyList<RoundingMethod> rounding) =>
-        new(budget, Bits, Storage: StorageRule.Packed, Rounding: rounding);
+    private static SearchSettings Settings(Budget budget, IReadOnlyList<RoundingMethod> rounding, bool biasCorrection) =>
+        new(budget, Bits, Storage: StorageRule.Packed, Rounding: rounding, BiasCorrection: biasCorrection);
 
     private static Search.Manifest.AssignmentManifest Manifest(SearchResult result) => Search.Manifest.ManifestJson.Deserialize(result.ManifestJson);
 
-    private static double Uniform4Sqnr(OnnxModel model, CalibrationSet data, IReadOnlyList<RoundingMethod> rounding)
+    private static double Uniform4Sqnr(OnnxModel model, CalibrationSet data, IReadOnlyList<RoundingMethod> rounding, bool biasCorrection)
     {
         var compensated = rounding.Contains(RoundingMethod.Compensated);
-        var rounder = new WeightRounder(model, compensated ? LayerInputCollector.Collect(model, data, model.Layers, 32, 512L << 20) : new Dictionary<string, LayerInputs>());
+        var rounder = new WeightRounder(model, compensated || biasCorrection ? LayerInputCollector.Collect(model, data, model.Layers, 32, 512L << 20) : new Dictionary<string, LayerInputs>(), biasCorrection);
         using var session = TrialSession.Open(model, data, new TrialSessionOptions(SuffixRuns: false, Rounder: rounder));
-        var setting = new LayerSetting(4, Rounding: compensated ? RoundingMethod.Compensated : RoundingMethod.Nearest);
+        var setting = new LayerSetting(4, Rounding: compensated ? RoundingMethod.Compensated : RoundingMethod.Nearest, BiasCorrection: biasCorrection);
         return session.MeasureAssignment(model.Layers.ToDictionary(l => l.Name, _ => setting)).SqnrDb;
     }
 

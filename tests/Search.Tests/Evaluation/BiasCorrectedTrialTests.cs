@@ -106,6 +106,19 @@ public sealed class BiasCorrectedTrialTests
     }
 
     [Fact]
+    public void BiasCorrectionAloneGathersMeansOnlyAndCorrectsTheSame()
+    {
+        var (model, data) = Build("conv");
+        var layer = model.Layers.Single();
+        var meansOnly = new WeightRounder(model, LayerInputCollector.Collect(model, data, model.Layers, 32, 512L << 20, secondMoments: false), correctBiases: true);
+        var setting = new LayerSetting(3, BiasCorrection: true);
+
+        Assert.False(meansOnly.Compensates(layer.Name));
+        Assert.Equal(RoundingMethod.Nearest, meansOnly.RoundingFor(layer.Name, setting with { Rounding = RoundingMethod.Compensated }));
+        Assert.Equal(Rounder(model, data).CorrectedBias(layer, setting), meansOnly.CorrectedBias(layer, setting));
+    }
+
+    [Fact]
     public void TheKeyOfACorrectedTrialNeverMatchesAnUncorrectedOne()
     {
         var plain = new LayerSetting(4, Rounding: RoundingMethod.Compensated);

@@ -37,6 +37,9 @@ public sealed class SearchMemoryEstimateTests
         Assert.Equal(plain.FixedBytes + moments, withMoments.FixedBytes);
         Assert.Equal(plain.Bytes + moments, withMoments.Bytes);
 
+        // Bias correction alone keeps Σ x only.
+        Assert.Equal((16 + 24 + 24) * 8, LayerInputCollector.MomentBytes(model, model.Layers, Cache, secondMoments: false));
+
         // A bound on the moments' memory leaves out the layers past it, in model order, as the collector does.
         Assert.Equal(((16 * 16) + 16) * 8, LayerInputCollector.MomentBytes(model, model.Layers, ((16 * 16) + 16) * 8));
     }
