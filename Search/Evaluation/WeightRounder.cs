@@ -51,6 +51,15 @@ public sealed class WeightRounder
         }
     }
 
+    /// <summary>
+    /// The rounder a search builds for <paramref name="layers"/> (its searched layers): their input moments gathered in one
+    /// FP32 pass over <paramref name="data"/> (Σ x x^T only with <paramref name="secondMoments"/>, for compensated rounding),
+    /// bounded by <paramref name="maxBytes"/>, so a stored trial can be run again with the very integers and biases it measured.
+    /// </summary>
+    public static WeightRounder Gather(
+        OnnxModel model, CalibrationSet data, IReadOnlyList<WeightLayer> layers, bool secondMoments, bool correctBiases, int maxBatch, long maxBytes, CancellationToken cancellationToken = default) =>
+        new(model, LayerInputCollector.Collect(model, data, layers, maxBatch, maxBytes, cancellationToken, secondMoments), correctBiases);
+
     /// <summary>Layers bias correction cannot apply to, with the reason (a sentence fragment); empty when it was not asked for.</summary>
     public IReadOnlyDictionary<string, string> UncorrectedBiases => _uncorrected;
 

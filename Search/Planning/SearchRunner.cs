@@ -157,7 +157,7 @@ public static class SearchRunner
         var searched = model.Layers.Where(l => !excluded.Contains(l.Name)).ToList();
         // Bias correction alone needs the inputs' means only; compensated rounding needs Σ x xᵀ too.
         var secondMoments = RoundingChoices.Asked(settings).Contains(RoundingMethod.Compensated);
-        return new WeightRounder(model, LayerInputCollector.Collect(model, data, searched, options.MaxBatch, options.MaxCachedActivationBytes, cancellationToken, secondMoments), settings.BiasCorrection);
+        return WeightRounder.Gather(model, data, searched, secondMoments, settings.BiasCorrection, options.MaxBatch, options.MaxCachedActivationBytes, cancellationToken);
     }
 
     /// <summary>

@@ -96,7 +96,10 @@ internal static class BenchmarkRun
                 RoundingBenchmark.Run(hive, CalibrationSet.Create(DatasetReader.Read(File.ReadAllBytes(Path.Combine(demo, "calibration.npz"))), hive.Inputs));
             }
 
-            foreach (var file in new[] { "ch_ppocr_mobile_v2.0_cls_infer.onnx", "ch_PP-OCRv4_rec_infer.onnx" }.Select(f => Path.Combine(ocr, f)).Where(File.Exists))
+            // --model NAME keeps the OCR models whose file name contains NAME ("none" runs the demo alone).
+            foreach (var file in new[] { "ch_ppocr_mobile_v2.0_cls_infer.onnx", "ch_PP-OCRv4_rec_infer.onnx" }
+                .Where(f => Option(args, "--model") is not { } only || f.Contains(only, StringComparison.Ordinal))
+                .Select(f => Path.Combine(ocr, f)).Where(File.Exists))
             {
                 var model = OnnxModel.LoadFile(file);
                 RoundingBenchmark.Run(model, SyntheticData(model, samples));

@@ -61,8 +61,14 @@ public sealed class TrialPagesTests(RealEngineFixture fixture, DemoFolderFixture
         Assert.All(assignment.Values, s => Assert.Equal((QuantizationScheme.Asymmetric, ClipMethod.MseOptimal), (s.Scheme, s.Clip)));
         Assert.Equal(chosen.GetProperty("assignmentHash").GetString(), TrialKeys.AssignmentHash(assignment));
 
+        // The default rounding (compensated, biases corrected) takes each layer's input moments from the calibration set,
+        // gathered as the search gathered them.
+        Assert.All(assignment.Values, s => Assert.Equal((RoundingMethod.Compensated, true), (s.Rounding, s.BiasCorrection)));
         var model = OnnxModel.Load(modelBytes, "replay.onnx");
-        using var session = TrialSession.Open(model, CalibrationSet.Create(DatasetReader.Read(dataBytes), model.Inputs));
+        var data = CalibrationSet.Create(DatasetReader.Read(dataBytes), model.Inputs);
+        var defaults = new TrialSessionOptions();
+        var rounder = WeightRounder.Gather(model, data, model.Layers, secondMoments: true, correctBiases: true, defaults.MaxBatch, defaults.MaxCachedActivationBytes);
+        using var session = TrialSession.Open(model, data, defaults with { Rounder = rounder });
         var again = session.MeasureAssignment(assignment);
         Assert.Equal(chosenDb, again.SqnrDb, 9);
         Assert.Equal(chosen.GetProperty("metrics").GetProperty("relativeMse").GetDouble(), again.RelativeMse, 12);

@@ -21,7 +21,7 @@ public sealed class PlanArgumentsTests
         Assert.Equal(
             [Search.Quantization.RoundingMethod.Compensated, Search.Quantization.RoundingMethod.Nearest],
             PlanArguments.Parse([.. common, "--rounding", "Compensated,nearest"]).Settings.Rounding);
-        Assert.Equal([Search.Quantization.RoundingMethod.Nearest], Search.Planning.RoundingChoices.Asked(PlanArguments.Parse(common).Settings));
+        Assert.Equal([Search.Quantization.RoundingMethod.Compensated], Search.Planning.RoundingChoices.Asked(PlanArguments.Parse(common).Settings));
         var error = Assert.Throws<ArgumentException>(() => PlanArguments.Parse([.. common, "--rounding", "stochastic"]));
         Assert.Contains("nearest, compensated", error.Message, StringComparison.Ordinal);
     }
