@@ -294,8 +294,11 @@ public sealed class TrialSession : IDisposable
     {
         ArgumentNullException.ThrowIfNull(layer);
         ArgumentNullException.ThrowIfNull(settings);
-        // The activation switch is one per layer, shared by every copy, so only weight-only trials share a run.
-        var stackable = Enumerable.Range(0, settings.Count).Where(i => !(QuantizesActivation(settings[i]) && HasActivation(layer.Name))).ToList();
+        // The activation switch is one per layer, shared by every copy, so only weight-only trials share a run; a corrected
+        // bias is one graph input too, so bias-corrected trials run one width at a time.
+        var stackable = Enumerable.Range(0, settings.Count)
+            .Where(i => !(QuantizesActivation(settings[i]) && HasActivation(layer.Name)) && !(settings[i].BiasCorrection && _biasSites.ContainsKey(layer.Name)))
+            .ToList();
         var results = new MetricSet?[settings.Count];
         if (stackable.Count > 1 && MeasureStacked(layer, stackable.Select(i => settings[i]).ToList(), trialsForLayer) is { } stacked)
         {

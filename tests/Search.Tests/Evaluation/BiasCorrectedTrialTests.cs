@@ -106,6 +106,24 @@ public sealed class BiasCorrectedTrialTests
     }
 
     [Fact]
+    public void WidthsMeasuredTogetherKeepTheirCorrectedBiases()
+    {
+        // The opt-in stacked sweep (several widths per run) must give each bias-corrected width the figure it gets alone.
+        var (model, data) = Build("conv");
+        var layer = model.Layers.Single();
+        var rounder = Rounder(model, data);
+        using var session = TrialSession.Open(model, data, new TrialSessionOptions(Rounder: rounder, ConstantSuffixes: true, MaxWidthsPerRun: 4));
+        LayerSetting[] settings = [new(2, BiasCorrection: true), new(3, BiasCorrection: true), new(4, BiasCorrection: true)];
+
+        var together = session.MeasureLayerWidths(layer, settings, settings.Length);
+
+        for (var i = 0; i < settings.Length; i++)
+        {
+            Assert.Equal(session.MeasureLayer(layer, settings[i], settings.Length).SqnrDb, together[i].SqnrDb, 6);
+        }
+    }
+
+    [Fact]
     public void BiasCorrectionAloneGathersMeansOnlyAndCorrectsTheSame()
     {
         var (model, data) = Build("conv");
