@@ -14,8 +14,8 @@ namespace Bitbudget.Service.Searches;
 /// <param name="Outputs">The model outputs the budget judges (default: every output).</param>
 /// <param name="MetricSpace">"linear" (default) or "logit" (SQNR and relative MSE of probability outputs on their logits).</param>
 /// <param name="HoldoutDatasetId">A second uploaded dataset the chosen assignment is checked on.</param>
-/// <param name="Rounding">The roundings measured per layer and width, each width keeping the better: ["nearest"] (default), ["compensated"] or both.</param>
-/// <param name="BiasCorrection">Correct each quantized layer's bias for the mean output shift its quantized weight causes (Nagel et al. 2019); works with either rounding. Default: the engine's (<see cref="Search.Planning.SearchSettings"/>).</param>
+/// <param name="Rounding">The roundings measured per layer and width, each width keeping the better: ["compensated"] (default, <see cref="Search.Planning.SearchSettings.DefaultRounding"/>), ["nearest"] or both.</param>
+/// <param name="BiasCorrection">Correct each quantized layer's bias for the mean output shift its quantized weight causes (Nagel et al. 2019); works with either rounding. Default: <see cref="Search.Planning.SearchSettings.DefaultBiasCorrection"/> (on).</param>
 /// <param name="Storage">"container" (default: sizes are what the written file stores at the model's opset) or "packed" (b-bit weights count b bits, for targets that pack sub-byte widths themselves).</param>
 /// <param name="Pairs">Most layer pairs measured together for the interaction-aware prediction (0 to 64; 0 turns pair terms off). Default: see README.</param>
 internal sealed record SearchRequest(
