@@ -87,6 +87,18 @@ internal static class BenchmarkRun
             return 0;
         }
 
+        if (args.Contains("--profile-rounding"))
+        {
+            // Where compensated rounding's added cost goes (RoundingBenchmark.Profile): the OCR classifier and recogniser.
+            foreach (var file in new[] { "ch_ppocr_mobile_v2.0_cls_infer.onnx", "ch_PP-OCRv4_rec_infer.onnx" }.Select(f => Path.Combine(ocr, f)).Where(File.Exists))
+            {
+                var model = OnnxModel.LoadFile(file);
+                RoundingBenchmark.Profile(model, SyntheticData(model, samples));
+            }
+
+            return 0;
+        }
+
         if (args.Contains("--rounding"))
         {
             // Nearest against compensated rounding on whole searches (RoundingBenchmark): the demo, the OCR classifier and recogniser.

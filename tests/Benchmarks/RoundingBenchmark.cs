@@ -64,6 +64,46 @@ internal static class RoundingBenchmark
         }
     }
 
+    /// <summary>
+    /// Where the added cost of compensated rounding with bias correction goes, stage by stage in one process: the input
+    /// pass, the Cholesky factors with the first width's rounding, five more widths, against the session with its FP32
+    /// reference and a nearest sweep of every layer at six widths (whole-graph and suffix runs as a search plans them).
+    /// </summary>
+    public static void Profile(OnnxModel model, CalibrationSet data)
+    {
+        var clock = Stopwatch.StartNew();
+        var inputs = LayerInputCollector.Collect(model, data, model.Layers, 32, 512L << 20);
+        var collect = clock.Elapsed.TotalMilliseconds;
+        var rounder = new WeightRounder(model, inputs, correctBiases: true);
+        var compensable = model.Layers.Where(l => rounder.Compensates(l.Name)).ToList();
+        clock.Restart();
+        compensable.ForEach(l => rounder.Quantize(l, new LayerSetting(8, Rounding: RoundingMethod.Compensated)));
+        var first = clock.Elapsed.TotalMilliseconds;
+        clock.Restart();
+        foreach (var bits in new[] { 2, 3, 4, 5, 6 })
+        {
+            compensable.ForEach(l => rounder.Quantize(l, new LayerSetting(bits, Rounding: RoundingMethod.Compensated)));
+        }
+
+        var more = clock.Elapsed.TotalMilliseconds;
+        clock.Restart();
+        using var session = TrialSession.Open(model, data, new TrialSessionOptions(Rounder: rounder));
+        var open = clock.Elapsed.TotalMilliseconds;
+        clock.Restart();
+        foreach (var layer in model.Layers)
+        {
+            foreach (var bits in new[] { 8, 6, 5, 4, 3, 2 })
+            {
+                session.MeasureLayer(layer, new LayerSetting(bits), Bits.Length);
+            }
+        }
+
+        var sweep = clock.Elapsed.TotalMilliseconds;
+        Console.WriteLine(
+            $"{model.Name}: input pass {collect:0} ms, factors + first width {first:0} ms, five more widths {more:0} ms; session and reference {open:0} ms, nearest sweep {sweep:0} ms"
+            + $" (added {(collect + first + more) / (open + sweep):0.00}x of session + sweep)");
+    }
+
     private static SearchSettings Settings(Budget budget, IReadOnlyList<RoundingMethod> rounding, bool biasCorrection) =>
         new(budget, Bits, Storage: StorageRule.Packed, Rounding: rounding, BiasCorrection: biasCorrection);
 
