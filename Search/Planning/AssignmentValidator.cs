@@ -107,10 +107,7 @@ internal sealed class AssignmentValidator(
                 rescaled = Math.Min(rescaled, target * 0.9);
             }
 
-            var next = rescaled > met && rescaled < missed
-                ? rescaled
-                : double.IsPositiveInfinity(missed) ? met * 2 : met > 0 ? Math.Sqrt(met * missed) : missed / 2;
-            if (next <= 0 || Math.Abs(next - target) <= target * 1e-3)
+            if (NextTarget(target, rescaled, met, missed) is not { } next)
             {
                 break;
             }
@@ -258,10 +255,7 @@ internal sealed class AssignmentValidator(
             }
 
             var rescaled = predicted > 0 ? target * limit / predicted : target * 4;
-            var next = rescaled > good && rescaled < bad
-                ? rescaled
-                : double.IsPositiveInfinity(bad) ? good * 2 : good > 0 ? Math.Sqrt(good * bad) : bad / 2;
-            if (next <= 0 || Math.Abs(next - target) <= target * 1e-3)
+            if (NextTarget(target, rescaled, good, bad) is not { } next)
             {
                 break;
             }
@@ -297,6 +291,20 @@ internal sealed class AssignmentValidator(
         var measurement = new AssignmentMeasurement(assignment, hash, problem.TotalBytes(selection), selection.Error, record.Metrics, meets, corrected);
         _rounds.Add(measurement);
         return measurement;
+    }
+
+    /// <summary>
+    /// The next additive target, shared by the measured loop and the corrected-prediction solves: the rescaled target when it
+    /// lies strictly between the largest target that met (<paramref name="met"/>) and the smallest that missed
+    /// (<paramref name="missed"/>), else a bisection between them (geometric, as targets span decades); null when the
+    /// target has stopped moving.
+    /// </summary>
+    private static double? NextTarget(double target, double rescaled, double met, double missed)
+    {
+        var next = rescaled > met && rescaled < missed
+            ? rescaled
+            : double.IsPositiveInfinity(missed) ? met * 2 : met > 0 ? Math.Sqrt(met * missed) : missed / 2;
+        return next <= 0 || Math.Abs(next - target) <= target * 1e-3 ? null : next;
     }
 
     internal static string FormatBytes(long bytes) => bytes switch
