@@ -4,8 +4,9 @@ namespace Bitbudget.Search.Evaluation;
 
 /// <summary>
 /// Splits <see cref="TrialSessionOptions.MaxSweepMemoryBytes"/> between what a sweep must hold whatever it does (the data
-/// and its feeds, the weights three times over, the reference and one trial's outputs for every sample, and the dead
-/// outputs of finished trials that wait for the collector, see <see cref="DeadOutputs"/>), the activations
+/// and its feeds, the weights three times over, the reference and one trial's outputs for every sample, the dead
+/// outputs of finished trials that wait for the collector, see <see cref="DeadOutputs"/>, and what the weight rounder
+/// holds, see <see cref="WeightRounder.HeldBytes"/>), the activations
 /// ONNX Runtime holds while it runs a chunk of samples (at most every tensor of the graph for each sample of the chunk,
 /// measured on a one-sample run), and the activations cached at cut points, which get what is left. Half of what is left
 /// after the fixed part goes to a run's chunk, so the cache never starves a run.
@@ -37,10 +38,12 @@ internal static class SweepMemory
         var dataBytes = data.Inputs.Sum(a => (long)Buffer.ByteLength(a.Data));
         var outputBytes = outputsPerSample * data.SampleCount;
         var dead = Math.Max(outputBytes, MinimumDeadOutputBytes);
-        var fixedBytes = (2 * dataBytes) + (3 * parameters * sizeof(float)) + (3 * outputBytes) + dead;
+        var rounderBytes = options.Rounder?.HeldBytes ?? 0;
+        var fixedBytes = (2 * dataBytes) + (3 * parameters * sizeof(float)) + (3 * outputBytes) + dead + rounderBytes;
         var rest = Math.Max(0, options.MaxSweepMemoryBytes - fixedBytes);
         var cap = Math.Max(1, Math.Min(options.MaxBatch, data.SampleCount));
-        var limit = string.Create(CultureInfo.InvariantCulture, $"MaxSweepMemoryBytes {options.MaxSweepMemoryBytes / MiB:#,0} MiB, {fixedBytes / MiB:#,0.#} MiB of it for data, weights and outputs, including {dead / MiB:#,0.#} MiB of finished trials' outputs awaiting the garbage collector");
+        var limit = string.Create(CultureInfo.InvariantCulture, $"MaxSweepMemoryBytes {options.MaxSweepMemoryBytes / MiB:#,0} MiB, {fixedBytes / MiB:#,0.#} MiB of it for data, weights, outputs{(rounderBytes > 0 ? " and the weight rounder" : string.Empty)}, including {dead / MiB:#,0.#} MiB of finished trials' outputs awaiting the garbage collector")
+            + (rounderBytes > 0 ? string.Create(CultureInfo.InvariantCulture, $" and {rounderBytes / MiB:#,0.#} MiB of layer input moments and rounding factors") : string.Empty);
 
         if (data.SamplesPerRun is int fixedRun)
         {

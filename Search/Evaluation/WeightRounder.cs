@@ -92,6 +92,33 @@ public sealed class WeightRounder
     public IReadOnlyDictionary<string, long> BiasFileBytes() =>
         _biasSites.ToDictionary(p => p.Key, p => p.Value.ExportFileBytes(_model.Proto.Graph), StringComparer.Ordinal);
 
+    /// <summary>
+    /// Bytes this rounder holds for the rest of a search: every layer's input moments (Σx, and Σxxᵀ for compensated
+    /// rounding), the Cholesky factors of each layer that can be compensated (one columns x columns double matrix per
+    /// group, kept once computed, counted whether computed yet or not), and one more such matrix for the factoring under
+    /// way. The compensated integers and corrected biases are not counted: a few bytes per weight, next to the weights.
+    /// </summary>
+    public long HeldBytes
+    {
+        get
+        {
+            long moments = 0, factors = 0, workspace = 0;
+            foreach (var inputs in _inputs.Values)
+            {
+                var m = inputs.Moments;
+                moments += InputMoments.BytesFor(m.Groups, m.Columns, m.HasSecondMoments);
+                if (m.HasSecondMoments)
+                {
+                    var matrix = (long)m.Columns * m.Columns * sizeof(double);
+                    factors += m.Groups * matrix;
+                    workspace = Math.Max(workspace, matrix);
+                }
+            }
+
+            return moments + factors + workspace;
+        }
+    }
+
     /// <summary>Layers whose input moments were gathered, by name.</summary>
     public IReadOnlyDictionary<string, LayerInputs> Inputs => _inputs;
 

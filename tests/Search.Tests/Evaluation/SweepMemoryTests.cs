@@ -68,6 +68,54 @@ public sealed class SweepMemoryTests
     }
 
     [Fact]
+    public void CompensatedRoundingLeavesTheCacheLessByWhatTheRounderHolds()
+    {
+        // x [n, 8, 512] through two 512x512 MatMuls: each layer's inputs have 512 columns in one group, so compensated
+        // rounding keeps Σx (512 doubles) and Σxxᵀ (512² doubles) per layer, and a 512² double Cholesky factor per layer
+        // once computed, plus one 512² matrix for the factoring under way.
+        const int Columns = 512;
+        var graph = new GraphBuilder().Input("x", -1, 8, Columns)
+            .Initializer("w1", [Columns, Columns], GraphBuilder.RandomValues(1, Columns * Columns, 0.05f))
+            .Node("MatMul", ["x", "w1"], ["m1"], "fc1")
+            .Node("Relu", ["m1"], ["h1"], "relu1")
+            .Initializer("w2", [Columns, Columns], GraphBuilder.RandomValues(2, Columns * Columns, 0.05f))
+            .Node("MatMul", ["h1", "w2"], ["m2"], "fc2");
+        var model = OnnxModel.Load(graph.Output("m2", -1, 8, Columns).ToBytes(), "square-pair");
+        const int SampleCount = 16;
+        var data = CalibrationSet.Create([new NpyArray("x", ElementType.Float32, [SampleCount, 8, Columns], GraphBuilder.RandomValues(3, SampleCount * 8 * Columns))], model.Inputs);
+
+        var nearest = new WeightRounder(model, new Dictionary<string, LayerInputs>(StringComparer.Ordinal));
+        var compensated = WeightRounder.Gather(model, data, model.Layers, secondMoments: true, correctBiases: true, maxBatch: 32, maxBytes: 512L << 20);
+
+        // Sizes from the definitions of Σx and Σxxᵀ in double (8 bytes), not from the code under test.
+        const long Matrix = (long)Columns * Columns * sizeof(double);
+        const long Moments = 2 * (Matrix + (Columns * sizeof(double)));
+        Assert.Equal(Moments, LayerInputCollector.MomentBytes(model, model.Layers, 512L << 20));
+        Assert.Equal(Moments + (2 * Matrix) + Matrix, compensated.HeldBytes);
+        Assert.Equal(0, nearest.HeldBytes);
+
+        // The plan, on shapes of a one-sample probe (16 KiB a tensor), under the same 64 MiB setting.
+        var shapes = new[] { "m1", "h1", "m2" }.ToDictionary(n => n, _ => new long[] { 1, 8, Columns }, StringComparer.Ordinal);
+        var parameters = model.Layers.Sum(l => l.ParameterCount);
+        SweepMemory.Choice Plan(WeightRounder rounder) =>
+            SweepMemory.Plan(data, new TrialSessionOptions(Rounder: rounder, MaxSweepMemoryBytes: 64L << 20), shapes, 1, model.Proto, parameters);
+        var withNearest = Plan(nearest);
+        var withCompensated = Plan(compensated);
+
+        Assert.Equal(SampleCount, withNearest.SamplesPerRun);
+        Assert.Equal(SampleCount, withCompensated.SamplesPerRun);
+        Assert.Equal(compensated.HeldBytes, withNearest.RunAndCacheBytes - withCompensated.RunAndCacheBytes);
+        Assert.Equal(compensated.HeldBytes, withNearest.CacheBudgetBytes - withCompensated.CacheBudgetBytes);
+        Assert.DoesNotContain("rounding factors", withNearest.Reason, StringComparison.Ordinal);
+        Assert.Contains("and 10 MiB of layer input moments and rounding factors", withCompensated.Reason, StringComparison.Ordinal);
+
+        // The session passes its rounder to the plan: the sweep note names the rounder's part.
+        using var session = TrialSession.Open(model, data, new TrialSessionOptions(Rounder: compensated, MaxSweepMemoryBytes: 64L << 20));
+        session.PrepareSweep(model.Layers.ToDictionary(l => l.Name, _ => 6));
+        Assert.Contains("MiB of layer input moments and rounding factors", session.SweepNote, StringComparison.Ordinal);
+    }
+
+    [Fact]
     public void DeadOutputsAreCollectedOncePastTheirAllowance()
     {
         var reference = new List<OutputTensor> { new("y", new float[1000], [1000]) };
