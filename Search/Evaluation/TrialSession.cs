@@ -54,6 +54,8 @@ public sealed class TrialSession : IDisposable
     private StackedSession? _stacked;
     private double _lowestFp32Sqnr = double.PositiveInfinity;
     private string? _stackingOff;
+    private string? _stackingSkipped;
+    private string? _oneCopyReason;
     private int _stackedRuns;
     private int _stackedTrials;
     private int _largestStack;
@@ -427,8 +429,7 @@ public sealed class TrialSession : IDisposable
             var session = stacked.Session;
             if (slots.Length == 1)
             {
-                var byOwnName = Run(session, session.OutputNames, overrides, _cachedActivations).ToDictionary(o => o.Name, StringComparer.Ordinal);
-                var single = ReferenceOutputs.Select(r => byOwnName.TryGetValue(r.Name, out var o) ? o : r).ToList();
+                var single = WithReferenceOutputs(Run(session, session.OutputNames, overrides, _cachedActivations));
                 if (slots[0] is null)
                 {
                     CheckFp32Copy(layer, single);
@@ -467,8 +468,7 @@ public sealed class TrialSession : IDisposable
             var copies = new List<List<OutputTensor>>(slots.Length);
             for (var j = 0; j < slots.Length; j++)
             {
-                var byName = Assemble(names, parts[j], shapes[j], counts).ToDictionary(o => o.Name, StringComparer.Ordinal);
-                var outputs = ReferenceOutputs.Select(r => byName.TryGetValue(r.Name, out var o) ? o : r).ToList();
+                var outputs = WithReferenceOutputs(Assemble(names, parts[j], shapes[j], counts));
                 if (slots[j] is null)
                 {
                     CheckFp32Copy(layer, outputs);
@@ -520,9 +520,8 @@ public sealed class TrialSession : IDisposable
         _stacked = null;
         var blocked = StackingBlocked();
 
-        var cache = _cachedActivations is null ? 0 : _cutPlan?.CacheBytes ?? 0;
         var memoryCopies = _activationBytesPerSample > 0
-            ? Math.Max(0, _runAndCacheBytes - cache) / ((double)_activationBytesPerSample * SamplesPerRun)
+            ? Math.Max(0, _runAndCacheBytes - CachedActivationBytes) / ((double)_activationBytesPerSample * SamplesPerRun)
             : _options.MaxBatch / (double)SamplesPerRun;
         var layers = _model.Layers.Where(l => CutPosition(l) >= 0 && CutServing(CutPosition(l)) == cut).ToList();
         var wanted = 1 + Math.Max(widths, layers.Max(l => _pendingTrials?.GetValueOrDefault(l.Name) ?? 0));
@@ -564,9 +563,6 @@ public sealed class TrialSession : IDisposable
         _stacked = new StackedSession(cut, session, copies, layers.Select(l => l.Name).ToHashSet(StringComparer.Ordinal), fp32);
         return _stacked;
     }
-
-    private string? _stackingSkipped;
-    private string? _oneCopyReason;
 
     /// <summary>The FP32 weight behind a weights-as-inputs graph input, as an initializer; null for any other input.</summary>
     private global::Onnx.TensorProto? Fp32Constant(string input)
@@ -729,9 +725,16 @@ public sealed class TrialSession : IDisposable
             owned.ForEach(v => v.Dispose());
         }
 
-        var byName = suffixOutputs.ToDictionary(o => o.Name, StringComparer.Ordinal);
+        return WithReferenceOutputs(suffixOutputs);
+    }
 
-        // Outputs made before the cut do not depend on the layer: they are the reference outputs.
+    /// <summary>
+    /// The model's outputs in reference order from a suffix run's: outputs made before the cut do not depend on the layer,
+    /// so they are the reference outputs.
+    /// </summary>
+    private List<OutputTensor> WithReferenceOutputs(IEnumerable<OutputTensor> suffixOutputs)
+    {
+        var byName = suffixOutputs.ToDictionary(o => o.Name, StringComparer.Ordinal);
         return ReferenceOutputs.Select(r => byName.TryGetValue(r.Name, out var o) ? o : r).ToList();
     }
 
