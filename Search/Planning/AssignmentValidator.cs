@@ -194,15 +194,7 @@ internal sealed class AssignmentValidator(
         var (a, b) = (problem.Layers[first], problem.Layers[second]);
         var (settingA, settingB) = (Setting(a.Choices[firstChoice]), Setting(b.Choices[secondChoice]));
         var key = TrialKeys.Pair(a.Name, settingA, b.Name, settingB, activations);
-        if (!_stored.TryGetValue(key, out var record))
-        {
-            var clock = Stopwatch.StartNew();
-            var assignment = new SortedDictionary<string, LayerSetting>(StringComparer.Ordinal) { [a.Name] = settingA, [b.Name] = settingB };
-            var metrics = session.MeasureAssignment(assignment);
-            record = new TrialRecord(key, "pair", null, null, null, metrics, clock.Elapsed.TotalMilliseconds, assignment, activations);
-            store.Save(record);
-            _stored[key] = record;
-        }
+        var record = Recorded(key, "pair", null, new SortedDictionary<string, LayerSetting>(StringComparer.Ordinal) { [a.Name] = settingA, [b.Name] = settingB });
 
         var joint = problem.Judge.ToAdditive(record.Metrics, session.ReferenceMetrics);
         return new PairTerm(first, firstChoice, second, secondChoice, joint, joint - a.Choices[firstChoice].Error - b.Choices[secondChoice].Error, key);
@@ -276,21 +268,28 @@ internal sealed class AssignmentValidator(
     {
         var assignment = problem.AssignmentOf(selection);
         var hash = TrialKeys.AssignmentHash(assignment);
-        var key = TrialKeys.Validation(hash, SensitivitySweep.ActivationsFor(problem.Settings));
-        if (!_stored.TryGetValue(key, out var record))
-        {
-            var clock = Stopwatch.StartNew();
-            var metrics = session.MeasureAssignment(assignment);
-            record = new TrialRecord(key, "validation", null, null, hash, metrics, clock.Elapsed.TotalMilliseconds, assignment, SensitivitySweep.ActivationsFor(problem.Settings));
-            store.Save(record);
-            _stored[key] = record;
-        }
+        var record = Recorded(TrialKeys.Validation(hash, SensitivitySweep.ActivationsFor(problem.Settings)), "validation", hash, assignment);
 
         var meets = budget is ErrorBudget error
             && problem.Judge.Meets(error.Limit, record.Metrics, session.ReferenceMetrics);
         var measurement = new AssignmentMeasurement(assignment, hash, problem.TotalBytes(selection), selection.Error, record.Metrics, meets, corrected);
         _rounds.Add(measurement);
         return measurement;
+    }
+
+    /// <summary>The stored trial under <paramref name="key"/>, or <paramref name="assignment"/> measured end to end now and saved under it.</summary>
+    private TrialRecord Recorded(string key, string kind, string? assignmentHash, IReadOnlyDictionary<string, LayerSetting> assignment)
+    {
+        if (!_stored.TryGetValue(key, out var record))
+        {
+            var clock = Stopwatch.StartNew();
+            var metrics = session.MeasureAssignment(assignment);
+            record = new TrialRecord(key, kind, null, null, assignmentHash, metrics, clock.Elapsed.TotalMilliseconds, assignment, SensitivitySweep.ActivationsFor(problem.Settings));
+            store.Save(record);
+            _stored[key] = record;
+        }
+
+        return record;
     }
 
     /// <summary>
